@@ -132,6 +132,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "mip_gap": Key("float", 1e-4, "share", 0.0, 0.5, "relative optimality gap at which to stop"),
         "threads": Key("int", 0, "threads", 0, 256, "solver threads (0 = solver default)"),
     },
+    "run": {
+        "tile_m": Key("float", 500.0, "m", 0.0, 100000.0, "tile size for checkpoints and parallel work "
+                      "(0 = one tile)"),
+    },
     "output": {
         "folder": Key("path", "out", doc="output folder (created)"),
         "formats": Key("list", ["geojson"], choices=("geojson", "gpkg"), doc="layer formats"),

@@ -1,0 +1,99 @@
+"""Command line: a thin layer over :mod:`siting.runner` and :mod:`siting.job`.
+
+Exit codes: 0 ok; 1 unexpected error; 2 bad job or input data; 3 the solver gave no usable plan.
+``--debug`` shows the traceback of any error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from . import __version__
+from .errors import SitingError
+
+EXIT_CODES = """exit codes: 0 ok, 1 unexpected error, 2 bad job or input data, 3 solver gave no usable plan"""
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="siting", description="Choose building facades for passive reflecting surfaces.", epilog=EXIT_CODES)
+    parser.add_argument("--version", action="version", version=f"siting {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    def common(p):
+        p.add_argument("job", help="job file (TOML)")
+        p.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE",
+                       help="override a job key, e.g. --set budget.max_cost=20000 (repeatable)")
+        p.add_argument("--debug", action="store_true", help="show the traceback of an error")
+
+    plan = sub.add_parser("plan", help="run a job end to end and write the plan", epilog=EXIT_CODES)
+    common(plan)
+    plan.add_argument("--fresh", action="store_true", help="ignore the stage cache and recompute everything")
+    plan.add_argument("--workers", type=int, default=0, metavar="N",
+                      help="run the heavy stages on a local Dask cluster of N worker processes")
+    plan.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                      help="run the heavy stages on an existing Dask cluster (e.g. tcp://host:8786)")
+    plan.add_argument("--progress", action="store_true", default=None, help="show progress bars")
+    plan.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    validate = sub.add_parser("validate", help="check a job and its input layers; print a district summary",
+                              epilog=EXIT_CODES)
+    common(validate)
+
+    keys = sub.add_parser("keys", help="print the job-file reference (every key, unit, default, range)")
+    keys.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        return _dispatch(args)
+    except SitingError as exc:
+        if args.debug:
+            raise
+        print(f"siting: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("siting: interrupted; rerun the same command to resume from the stage cache", file=sys.stderr)
+        return 1
+    except Exception as exc:  # noqa: BLE001 - the last line of defence turns surprises into one message
+        if args.debug:
+            raise
+        print(f"siting: unexpected error: {type(exc).__name__}: {exc} (rerun with --debug for the traceback)",
+              file=sys.stderr)
+        return 1
+
+
+def _dispatch(args) -> int:
+    from .job import load_job, reference_markdown
+
+    if args.command == "keys":
+        print(reference_markdown())
+        return 0
+    job = load_job(args.job, args.overrides)
+    if args.command == "validate":
+        from .district import summary
+        from .runner import load_stage
+
+        print(summary(load_stage(job)))
+        return 0
+    from .runner import run
+
+    progress = sys.stderr.isatty() if args.progress is None else args.progress
+    result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
+                 progress=progress and not args.quiet)
+    if not args.quiet:
+        plan = result.plan
+        covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())
+        total = float(result.users["weight"].sum())
+        print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}, weight newly covered "
+              f"{plan.objective:,.1f} (before {covered_before:,.1f} of {total:,.1f}); solver {plan.status}, "
+              f"gap {plan.gap:.2%}")
+        print(f"outputs in {job['output']['folder']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

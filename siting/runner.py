@@ -1,0 +1,513 @@
+"""The batch runner: every stage of a job end to end, cached, resumable, with progress and optional Dask.
+
+Stages and what each one's cache key covers (a changed budget re-uses visibility and gains):
+
+=============  =============================================================  ============================
+stage          computes                                                       key
+=============  =============================================================  ============================
+load           district tables (always re-read; hashes the input files)       -
+candidates     facade spots and demand points                                 inputs, area, candidates,
+                                                                              demand, panel widths
+direct         base station -> user links per user tile                       candidates key, radio
+surface        (option, user) coverage rows per site tile                     direct key, surfaces
+optimise       the plan, ranking, backups and budget sweep                    surface key, budget, solver
+outputs        layers, survey list, report, run.json                          (always written)
+=============  =============================================================  ============================
+
+Tiles: the district is cut into square tiles of ``tile_m``.  A tile owns the users (direct stage) or the spots
+(surface stage) inside it and computes their links against every building and point within the longest link
+range of it (the halo), so tile results are disjoint and their union equals the one-piece computation.  Each
+tile is cached on its own, which is the checkpoint a killed job resumes from.  With ``workers`` or ``scheduler``
+the tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in this process.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from . import candidates as cand
+from . import optimize as opt
+from .cache import StageCache, digest
+from .district import District, load_district
+from .errors import SitingError
+from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
+from .job import load_job
+from .visibility import Obstacles, degree_stats
+
+log = logging.getLogger("siting")
+
+
+@dataclass
+class RunResult:
+    """Everything a job produced, one table per stage (for notebooks and tests)."""
+
+    job: dict
+    district: District
+    sites: pd.DataFrame
+    users: pd.DataFrame
+    sizes: pd.DataFrame
+    gains: GainResult
+    plan: object
+    ranking: pd.DataFrame
+    backups: pd.DataFrame
+    sweep: pd.DataFrame | None
+    outputs: dict = field(default_factory=dict)
+    timings_s: dict = field(default_factory=dict)
+    recomputed: list = field(default_factory=list)
+
+
+def sizes_table(job: dict) -> pd.DataFrame:
+    """The panel catalogue of the job as the 'sizes' table, with element counts at the configured pitch."""
+    panels = pd.DataFrame(job["surfaces"]["panels"])
+    wavelength_m = 299_792_458.0 / (job["radio"]["frequency_ghz"] * 1e9)
+    pitch_m = job["surfaces"]["element_pitch_wavelengths"] * wavelength_m
+    return pd.DataFrame({
+        "size_id": panels["size_id"].astype(str).to_numpy(object),
+        "width_m": panels["width_m"].astype(float),
+        "height_m": panels["height_m"].astype(float),
+        "cost": panels["cost"].astype(float),
+        "install_cost": panels["install_cost"].astype(float),
+        "elements": (np.floor(panels["width_m"] / pitch_m + 1e-9) * np.floor(panels["height_m"] / pitch_m + 1e-9))
+        .astype(np.int64),
+    })
+
+
+# ----------------------------------------------------------------------------------------------------- stages
+def load_stage(job: dict) -> District:
+    i, a = job["inputs"], job["area"]
+    return load_district(
+        buildings_path=i["buildings"], base_stations_path=i["base_stations"], sites_path=i["sites"] or None,
+        users_path=i["users"] or None, buildings_layer=i["buildings_layer"] or None,
+        building_id_column=i["building_id_column"], height_column=i["height_column"] or None,
+        storey_height_m=i["storey_height_m"], default_height_m=i["default_height_m"], crs=i["crs"] or None,
+        area_bbox_lonlat=a["bbox"] or None, area_path=a["polygon"] or None,
+        user_weight_column=i["user_weight_column"],
+    )
+
+
+def candidates_stage(district: District, job: dict, sizes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, list]:
+    """Facade spots (generated and given) and demand points (grid, homes, given)."""
+    c, d = job["candidates"], job["demand"]
+    notes: list[str] = []
+    parts = []
+    if c["generate"]:
+        parts.append(cand.facade_spots(
+            district.buildings, spacing_m=c["spacing_m"], mount_heights_m=tuple(c["mount_heights_m"]),
+            roof_margin_m=c["roof_margin_m"], offset_m=c["offset_m"], party_gap_m=c["party_gap_m"],
+            front_clear_m=c["front_clear_m"], min_wall_m=float(sizes["width_m"].min())))
+    if district.given_sites is not None and len(district.given_sites):
+        given, dropped = cand.snap_given_spots(
+            district.buildings, district.given_sites, snap_tolerance_m=c["snap_tolerance_m"],
+            default_z_m=float(c["mount_heights_m"][0]), offset_m=c["offset_m"],
+            start_id=sum(len(p) for p in parts))
+        parts.append(given)
+        if dropped:
+            notes.append(f"{len(dropped)} given spot(s) farther than {c['snap_tolerance_m']} m from any wall were "
+                         f"dropped: {', '.join(map(str, dropped[:20]))}")
+    sites = pd.concat(parts, ignore_index=True) if parts else cand.facade_spots(district.buildings.iloc[:0])
+    sites["site_id"] = np.arange(len(sites), dtype=np.int64)
+
+    demand = []
+    if d["street_grid"]:
+        demand.append(cand.street_grid(district.buildings, district.area, grid_m=d["grid_m"],
+                                       height_m=d["street_height_m"], weight_per_point=d["street_weight"]))
+    if d["homes"]:
+        demand.append(cand.facade_homes(district.buildings, storey_height_m=job["inputs"]["storey_height_m"],
+                                        home_spacing_m=d["home_spacing_m"],
+                                        area_per_household_m2=d["area_per_household_m2"], offset_m=c["offset_m"],
+                                        party_gap_m=c["party_gap_m"]))
+    if district.given_users is not None and len(district.given_users):
+        given_u, n_inside = cand.given_users(district.buildings, district.given_users, allow_indoor=d["allow_indoor"])
+        demand.append(given_u)
+        if n_inside:
+            notes.append(f"{n_inside} given user(s) inside buildings were dropped (set demand.allow_indoor = true "
+                         "to keep them as indoor demand)")
+    if not demand:
+        raise SitingError("no demand: enable demand.street_grid or demand.homes, or give inputs.users")
+    users = cand.combine_users(*demand)
+    return sites, users, notes
+
+
+def _tiles(x: np.ndarray, y: np.ndarray, tile_m: float) -> np.ndarray:
+    """Tile number of each point on a grid of ``tile_m`` squares anchored at the origin of the CRS."""
+    if tile_m <= 0 or len(x) == 0:
+        return np.zeros(len(x), np.int64)
+    ix = np.floor(x / tile_m).astype(np.int64)
+    iy = np.floor(y / tile_m).astype(np.int64)
+    _, tile = np.unique(np.stack([ix, iy], axis=1), axis=0, return_inverse=True)
+    return tile.reshape(-1).astype(np.int64)
+
+
+def _halo_buildings(buildings, x: np.ndarray, y: np.ndarray, halo_m: float):
+    """Buildings intersecting the bounding box of (x, y) grown by ``halo_m`` (what a tile's links can cross)."""
+    minx, miny, maxx, maxy = x.min() - halo_m, y.min() - halo_m, x.max() + halo_m, y.max() + halo_m
+    b = buildings.geometry.bounds
+    keep = (b["minx"] <= maxx) & (b["maxx"] >= minx) & (b["miny"] <= maxy) & (b["maxy"] >= miny)
+    return buildings.geometry.values[keep.to_numpy()], buildings["height_m"].to_numpy(float)[keep.to_numpy()]
+
+
+def _direct_tile(geoms, heights, bs, users, p, user_index):
+    obstacles = Obstacles.from_buildings(geoms, heights)
+    return direct_links(obstacles, bs, users, p, user_index=user_index)
+
+
+def _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, site_index):
+    obstacles = Obstacles.from_buildings(geoms, heights)
+    return surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p, site_index=site_index)
+
+
+class _Executor:
+    """Runs tile tasks in this process, or on Dask when workers / a scheduler address are given."""
+
+    def __init__(self, workers: int = 0, scheduler: str | None = None):
+        self.client = None
+        self.cluster = None
+        if workers or scheduler:
+            try:
+                from dask.distributed import Client, LocalCluster
+            except ImportError:
+                raise SitingError("--workers/--scheduler need Dask: pip install 'siting[dask]'") from None
+            if scheduler:
+                self.client = Client(scheduler)
+            else:
+                self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                            dashboard_address=None)
+                self.client = Client(self.cluster)
+
+    @property
+    def distributed(self) -> bool:
+        return self.client is not None
+
+    def map(self, fn, arg_lists: list[tuple], shared: dict) -> list:
+        """Call ``fn(*args, **shared)`` for each args tuple; ``shared`` is scattered once to the workers."""
+        if not self.client:
+            return [fn(*args, **shared) for args in arg_lists]
+        scattered = {k: self.client.scatter(v, broadcast=True) for k, v in shared.items()}
+        futures = [self.client.submit(fn, *args, **scattered, pure=False) for args in arg_lists]
+        return self.client.gather(futures)
+
+    def close(self) -> None:
+        if self.client:
+            self.client.close()
+        if self.cluster:
+            self.cluster.close()
+
+
+def _run_tiles(name, cache, key, n_tiles, compute, progress, computed: list) -> list[dict]:
+    """Compute (or load from the cache) every tile's tables; returns their dicts in tile order.
+
+    The names of computed tiles are appended to ``computed``."""
+    results: list[dict | None] = [None] * n_tiles
+    todo = []
+    for t in range(n_tiles):
+        hit = cache.load(f"{name}-tile{t}", digest([key, t, n_tiles]))
+        if hit is not None:
+            results[t] = hit[0]
+        else:
+            todo.append(t)
+    if len(todo) < n_tiles:
+        log.info("%s: %d of %d tiles taken from the cache", name, n_tiles - len(todo), n_tiles)
+    bar = _bar(progress, total=len(todo), desc=f"{name} tiles")
+    # Submit in chunks so finished tiles are checkpointed while the rest run.
+    chunk = max(1, compute.chunk)
+    for start in range(0, len(todo), chunk):
+        batch = todo[start:start + chunk]
+        for t, tables in zip(batch, compute(batch)):
+            cache.store(f"{name}-tile{t}", digest([key, t, n_tiles]), tables)
+            computed.append(f"{name}-tile{t}")
+            results[t] = tables
+            bar.update(1)
+    bar.close()
+    return results
+
+
+def _bar(progress: bool, total: int, desc: str):
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=desc, disable=not progress, leave=False)
+
+
+def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, tile_m, executor, progress,
+                computed: list | None = None):
+    """Direct links per user tile, then surface links per site tile; union equals the one-piece computation."""
+    computed = [] if computed is None else computed
+    bs = district.base_stations
+    buildings = district.buildings
+    halo_m = max(p.bs_range_m, p.surface_range_m)
+    ux, uy = users["x"].to_numpy(float), users["y"].to_numpy(float)
+    user_tile = _tiles(ux, uy, tile_m)
+    n_user_tiles = int(user_tile.max()) + 1 if len(users) else 0
+    user_groups = [np.flatnonzero(user_tile == t) for t in range(n_user_tiles)]
+
+    def direct_compute(batch):
+        args = []
+        for t in batch:
+            idx = user_groups[t]
+            geoms, heights = _halo_buildings(buildings, ux[idx], uy[idx], p.bs_range_m)
+            args.append((geoms, heights, idx))
+        out = executor.map(_direct_tile_task, args, {"bs": bs, "users": users, "p": p})
+        return [{"bs_user": df} for df in out]
+
+    direct_compute.chunk = 2 * max(1, len(executor.client.ncores()) if executor.distributed else 1)
+    direct_key = digest([key, "direct"])
+    tiles = _run_tiles("direct", cache, direct_key, n_user_tiles, direct_compute, progress, computed)
+    bs_user = _concat([t["bs_user"] for t in tiles], ["a", "b"])
+    direct = best_direct(bs_user, len(users), p)
+    options = make_options(sites, sizes)
+
+    sx, sy = sites["x"].to_numpy(float), sites["y"].to_numpy(float)
+    site_tile = _tiles(sx, sy, tile_m)
+    n_site_tiles = int(site_tile.max()) + 1 if len(sites) else 0
+    site_groups = [np.flatnonzero(site_tile == t) for t in range(n_site_tiles)]
+
+    def surface_compute(batch):
+        args = []
+        for t in batch:
+            idx = site_groups[t]
+            geoms, heights = _halo_buildings(buildings, sx[idx], sy[idx], halo_m)
+            args.append((geoms, heights, idx))
+        shared = {"bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
+                  "bs_user": bs_user, "direct": direct, "p": p}
+        out = executor.map(_surface_tile_task, args, shared)
+        return [{"coverage": c, "bs_site": a, "site_user": b} for c, a, b in out]
+
+    surface_compute.chunk = direct_compute.chunk
+    tiles = _run_tiles("surface", cache, digest([key, "surface"]), n_site_tiles, surface_compute, progress,
+                       computed)
+    coverage = _concat([t["coverage"] for t in tiles], ["option_id", "user_id"])
+    bs_site = _concat([t["bs_site"] for t in tiles], ["a", "b"])
+    site_user = _concat([t["site_user"] for t in tiles], ["a", "b"])
+    return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
+
+
+def _direct_tile_task(geoms, heights, idx, *, bs, users, p):
+    return _direct_tile(geoms, heights, bs, users, p, idx)
+
+
+def _surface_tile_task(geoms, heights, idx, *, bs, sites, sizes, users, options, bs_user, direct, p):
+    return _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, idx)
+
+
+def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
+    frames = [f for f in frames if f is not None]
+    if not frames:
+        return pd.DataFrame()
+    out = pd.concat(frames, ignore_index=True)
+    if len(out):
+        out = out.sort_values(sort_by, kind="stable").reset_index(drop=True)
+    return out
+
+
+def wall_conflicts(sites: pd.DataFrame, min_spacing_m: float) -> np.ndarray:
+    """Pairs of site rows on the same wall closer than ``min_spacing_m`` (3-D), as an int array (k, 2)."""
+    if min_spacing_m <= 0 or len(sites) < 2:
+        return np.zeros((0, 2), np.int64)
+    from scipy.spatial import cKDTree
+
+    xyz = sites[["x", "y", "z_m"]].to_numpy(float)
+    pairs = cKDTree(xyz).query_pairs(min_spacing_m - 1e-9, output_type="ndarray")
+    wall = sites["wall_id"].to_numpy()
+    return pairs[wall[pairs[:, 0]] == wall[pairs[:, 1]]].astype(np.int64)
+
+
+def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
+    """The plan (maximum coverage, or minimum cost for a target share), its ranking, backups and budget sweep."""
+    b, s = job["budget"], job["solver"]
+    options, direct = gains.options, gains.direct
+    cover = coverage_matrix(gains.coverage, len(options), len(users), p.snr_target_db)
+    weight = users["weight"].to_numpy(float) * ~direct["covered"].to_numpy(bool)
+    cost = options["cost"].to_numpy(float)
+    option_site = options["site_id"].to_numpy(np.int64)
+    solver_kw = dict(
+        conflicts=wall_conflicts(sites, b["min_spacing_m"]),
+        load_cap=job["surfaces"]["load_cap_weight"] or None,
+        solver=s["name"], time_limit_s=s["time_limit_s"], mip_rel_gap=s["mip_gap"], threads=s["threads"] or None,
+    )
+    budget = b["max_cost"] or None
+    max_count = b["max_panels"] or None
+    if b["target_share"] > 0:
+        reachable = float(weight[np.asarray(cover.sum(axis=0)).ravel() > 0].sum())
+        plan = opt.min_cost_cover(cover, weight, cost, option_site, b["target_share"] * reachable,
+                                  max_count=max_count, **solver_kw)
+    else:
+        if budget is None and max_count is None:
+            raise SitingError("no limit given: set budget.max_cost, budget.max_panels or budget.target_share "
+                              "in the job")
+        plan = opt.solve_coverage(cover, weight, cost, option_site, budget=budget, max_count=max_count, **solver_kw)
+    chosen = np.asarray(plan.chosen, dtype=np.int64)
+    ranking = opt.rank_chosen(chosen, cover, weight)
+    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3)
+    budgets = list(b["sweep_budgets"])
+    if not budgets and budget:
+        budgets = [round(budget * f, 2) for f in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0)]
+    sweep = None
+    if budgets:
+        sweep_kw = dict(solver_kw, time_limit_s=max(1.0, s["time_limit_s"] / 4))
+        sweep = opt.budget_sweep(cover, weight, cost, option_site, sorted(budgets), max_count=max_count, **sweep_kw)
+    return plan, ranking, backups, sweep
+
+
+# -------------------------------------------------------------------------------------------- orchestration
+def plan_fields(plan) -> dict:
+    """The JSON-able summary of a Plan (used for the cache and run.json)."""
+    out = {}
+    for k in ("objective", "bound", "gap", "status", "solver", "cost", "greedy_objective", "message",
+              "model_size", "timings_s"):
+        out[k] = getattr(plan, k, None)
+    out["chosen"] = [int(c) for c in plan.chosen]
+    return out
+
+
+@dataclass
+class _CachedPlan:
+    chosen: np.ndarray
+    covered: np.ndarray
+    objective: float
+    bound: float
+    gap: float
+    status: str
+    solver: str
+    cost: float
+    greedy_objective: float
+    message: str
+    model_size: dict
+    timings_s: dict
+
+
+def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
+        progress: bool = False, tile_m: float | None = None, write: bool = True) -> RunResult:
+    """Run a validated job (see :func:`siting.job.load_job`) end to end and return every stage's tables."""
+    out_dir = Path(job["output"]["folder"])
+    out_dir.mkdir(parents=True, exist_ok=True)
+    handler = logging.FileHandler(out_dir / "siting.log", encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    log.addHandler(handler)
+    log.setLevel(logging.INFO)
+    cache = StageCache(out_dir / ".cache", log=log.warning, enabled=not fresh)
+    timings: dict[str, float] = {}
+    recomputed: list[str] = []
+    executor = None
+    try:
+        t0 = time.perf_counter()
+        log.info("siting %s: job started, output folder %s", __version__, out_dir)
+        district = load_stage(job)
+        sizes = sizes_table(job)
+        timings["load"] = time.perf_counter() - t0
+        log.info("load: %d buildings, %d base stations, CRS %s (%s)", len(district.buildings),
+                 len(district.base_stations), district.crs.to_string(), district.crs_rule)
+
+        t0 = time.perf_counter()
+        cand_key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
+                           job["candidates"], job["demand"], sizes["width_m"].tolist()])
+        hit = cache.load("candidates", cand_key)
+        if hit:
+            sites, users, notes = hit[0]["sites"], hit[0]["users"], hit[1]["notes"]
+            log.info("candidates: taken from the cache")
+        else:
+            sites, users, notes = candidates_stage(district, job, sizes)
+            cache.store("candidates", cand_key, {"sites": sites, "users": users}, {"notes": notes})
+            recomputed.append("candidates")
+        district.notes.extend(notes)
+        timings["candidates"] = time.perf_counter() - t0
+        log.info("candidates: %d facade spots, %d demand points (weight %.1f)", len(sites), len(users),
+                 users["weight"].sum())
+
+        t0 = time.perf_counter()
+        p = RadioParams.from_job(job)
+        gains_key = digest([cand_key, job["radio"], {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}])
+        tile = job["run"]["tile_m"] if tile_m is None else tile_m
+        executor = _Executor(workers, scheduler)
+        tiles_done: list[str] = []
+        gains = gains_stage(district, sites, sizes, users, p, cache=cache, key=digest([gains_key, tile]),
+                            tile_m=tile, executor=executor, progress=progress, computed=tiles_done)
+        if tiles_done:
+            recomputed.append(f"gains ({len(tiles_done)} tiles)")
+        timings["gains"] = time.perf_counter() - t0
+        log.info("gains: %d options, %d coverage rows, %d users covered directly of %d", len(gains.options),
+                 int((gains.coverage["snr_db"] >= p.snr_target_db).sum()) if len(gains.coverage) else 0,
+                 int(gains.direct["covered"].sum()), len(users))
+
+        t0 = time.perf_counter()
+        opt_key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
+        hit = cache.load("optimise", opt_key)
+        if hit:
+            tables, extras = hit
+            fields = extras["plan"]
+            chosen = np.asarray(fields.pop("chosen"), np.int64)
+            cover = coverage_matrix(gains.coverage, len(gains.options), len(users), p.snr_target_db)
+            covered = np.asarray(cover[chosen].sum(axis=0)).ravel() > 0 if len(chosen) else np.zeros(len(users), bool)
+            plan = _CachedPlan(chosen=chosen, covered=covered, **fields)
+            ranking, backups = tables["ranking"], tables["backups"]
+            sweep = tables.get("sweep")
+            log.info("optimise: taken from the cache")
+        else:
+            plan, ranking, backups, sweep = optimise_stage(gains, sites, users, job, p)
+            tables = {"ranking": ranking, "backups": backups}
+            if sweep is not None:
+                tables["sweep"] = sweep
+            cache.store("optimise", opt_key, tables, {"plan": plan_fields(plan)})
+            recomputed.append("optimise")
+        timings["optimise"] = time.perf_counter() - t0
+        log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
+                 len(plan.chosen), plan.objective, plan.bound, plan.gap)
+
+        result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
+                           timings_s=timings, recomputed=recomputed)
+        if write:
+            t0 = time.perf_counter()
+            result.outputs = write_stage(result, p)
+            timings["outputs"] = time.perf_counter() - t0
+        log.info("finished; recomputed stages: %s", ", ".join(recomputed) or "none")
+        return result
+    finally:
+        if executor is not None:
+            executor.close()
+        log.removeHandler(handler)
+        handler.close()
+
+
+def write_stage(result: RunResult, p: RadioParams) -> dict:
+    """Hand every table to the output writers (GeoJSON, survey list, report, run.json)."""
+    from .outputs import OutputBundle, write_outputs
+
+    job, gains = result.job, result.gains
+    pairs_stats = {
+        "bs_site": degree_stats(gains.bs_site, len(result.district.base_stations), len(result.sites)),
+        "site_user": degree_stats(gains.site_user, len(result.sites), len(result.users)),
+    }
+    run_info = {
+        "siting_version": __version__,
+        "input_hashes": result.district.input_hashes,
+        "crs": result.district.crs.to_string(),
+        "crs_rule": result.district.crs_rule,
+        "timings_s": result.timings_s,
+        "recomputed_stages": result.recomputed,
+        "visibility_degrees": pairs_stats,
+        "notes": result.district.notes,
+        "counts": {"buildings": len(result.district.buildings), "base_stations": len(result.district.base_stations),
+                   "sites": len(result.sites), "users": len(result.users), "options": len(gains.options),
+                   "coverage_rows": len(gains.coverage)},
+    }
+    bundle = OutputBundle(
+        crs=result.district.crs, buildings=result.district.buildings, base_stations=result.district.base_stations,
+        sites=result.sites, sizes=result.sizes, users=result.users, options=gains.options, coverage=gains.coverage,
+        direct=gains.direct, plan=result.plan, ranking=result.ranking, backups=result.backups, sweep=result.sweep,
+        snr_target_db=p.snr_target_db, budget=job["budget"]["max_cost"] or None,
+        max_panels=job["budget"]["max_panels"] or None, params=job, run_info=run_info,
+        formats=tuple(job["output"]["formats"]), include_candidates=job["output"]["candidates_layer"],
+        title=job["output"]["title"],
+    )
+    return write_outputs(Path(job["output"]["folder"]), bundle)
+
+
+def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs) -> RunResult:
+    """Load, validate and run a job file (the Python API behind ``siting plan``)."""
+    return run(load_job(path, overrides), **kwargs)
