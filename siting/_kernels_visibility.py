@@ -1,0 +1,329 @@
+"""Compiled kernels behind :mod:`siting.visibility` (numba, ``cache=True``, ``parallel=True``).
+
+All coordinates reaching these kernels are already shifted to the obstacle grid's local origin, so the
+crossing arithmetic works on numbers of a few kilometres at most (no loss of precision from UTM eastings).
+
+Data layout
+-----------
+Wall-edge grid: a uniform grid of square cells of side ``cs`` with origin ``(0, 0)`` and ``nx * ny`` cells.
+Every footprint edge (exterior and hole rings) is listed in each cell its (slightly padded) bounding box
+touches; the per-cell lists are stored contiguously (CSR: ``cell_start``) as copies of the edge coordinates
+``ex0, ey0, ex1, ey1`` and the height ``eh`` of the owning building, so a cell's edges are read sequentially.
+``cell_hmax`` is the tallest building among a cell's edges, used to skip cells the ray passes above.
+
+Point grid: the ``b`` points sorted by cell of a uniform grid (side ``pcs``); ``pstart`` is the CSR offset of
+each cell, ``porder`` maps a sorted position to the local ``b`` row.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+# Bounding boxes of edges are padded by this much when assigned to cells, so that a crossing lying on (or
+# within rounding of) a cell boundary is found from either side [m].
+EDGE_PAD_M = 1e-6
+# A cell is only skipped when the ray passes at least this far above its tallest building [m].
+HMAX_MARGIN_M = 1e-6
+
+
+@njit(cache=True)
+def build_edge_grid(ex0, ey0, ex1, ey1, eh, cs, nx, ny):
+    """Bin edges into the grid cells their padded bounding boxes touch; returns the CSR arrays."""
+    n = ex0.shape[0]
+    counts = np.zeros(nx * ny + 1, np.int64)
+    for e in range(n):
+        ix0 = max(0, int(math.floor((min(ex0[e], ex1[e]) - EDGE_PAD_M) / cs)))
+        ix1 = min(nx - 1, int(math.floor((max(ex0[e], ex1[e]) + EDGE_PAD_M) / cs)))
+        iy0 = max(0, int(math.floor((min(ey0[e], ey1[e]) - EDGE_PAD_M) / cs)))
+        iy1 = min(ny - 1, int(math.floor((max(ey0[e], ey1[e]) + EDGE_PAD_M) / cs)))
+        for iy in range(iy0, iy1 + 1):
+            for ix in range(ix0, ix1 + 1):
+                counts[iy * nx + ix + 1] += 1
+    start = np.cumsum(counts)
+    m = start[-1]
+    cx0 = np.empty(m, np.float64)
+    cy0 = np.empty(m, np.float64)
+    cx1 = np.empty(m, np.float64)
+    cy1 = np.empty(m, np.float64)
+    ch = np.empty(m, np.float64)
+    hmax = np.full(nx * ny, -np.inf)
+    fill = start[:-1].copy()
+    for e in range(n):
+        ix0 = max(0, int(math.floor((min(ex0[e], ex1[e]) - EDGE_PAD_M) / cs)))
+        ix1 = min(nx - 1, int(math.floor((max(ex0[e], ex1[e]) + EDGE_PAD_M) / cs)))
+        iy0 = max(0, int(math.floor((min(ey0[e], ey1[e]) - EDGE_PAD_M) / cs)))
+        iy1 = min(ny - 1, int(math.floor((max(ey0[e], ey1[e]) + EDGE_PAD_M) / cs)))
+        for iy in range(iy0, iy1 + 1):
+            for ix in range(ix0, ix1 + 1):
+                c = iy * nx + ix
+                k = fill[c]
+                cx0[k] = ex0[e]
+                cy0[k] = ey0[e]
+                cx1[k] = ex1[e]
+                cy1[k] = ey1[e]
+                ch[k] = eh[e]
+                if eh[e] > hmax[c]:
+                    hmax[c] = eh[e]
+                fill[c] = k + 1
+    return start, cx0, cy0, cx1, cy1, ch, hmax
+
+
+@njit(cache=True, inline="always")
+def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax):
+    """True when the 3-D segment a->b crosses a footprint edge below that building's height.
+
+    DDA traversal (Amanatides & Woo) of the edge-grid cells along the horizontal track; in each visited cell
+    whose tallest building reaches above the ray, every edge is intersected with the track and the ray's
+    height at the crossing compared with the building height.  Parallel (collinear) edges are skipped: a
+    track running along a wall stays on the footprint's boundary, not inside it.  Endpoints inside a footprint
+    are handled by the caller (``buried`` flags).
+    """
+    dx = bx - ax
+    dy = by - ay
+    dz = bz - az
+    if dx == 0.0 and dy == 0.0:
+        return False
+    # Liang-Barsky clip of the track to the grid box [0, nx*cs] x [0, ny*cs]
+    t0 = 0.0
+    t1 = 1.0
+    xmax = nx * cs
+    ymax = ny * cs
+    if dx != 0.0:
+        ta = (0.0 - ax) / dx
+        tb = (xmax - ax) / dx
+        if ta > tb:
+            ta, tb = tb, ta
+        t0 = max(t0, ta)
+        t1 = min(t1, tb)
+    elif ax < 0.0 or ax > xmax:
+        return False
+    if dy != 0.0:
+        ta = (0.0 - ay) / dy
+        tb = (ymax - ay) / dy
+        if ta > tb:
+            ta, tb = tb, ta
+        t0 = max(t0, ta)
+        t1 = min(t1, tb)
+    elif ay < 0.0 or ay > ymax:
+        return False
+    if t0 > t1:
+        return False
+    px = ax + t0 * dx
+    py = ay + t0 * dy
+    ix = min(nx - 1, max(0, int(math.floor(px / cs))))
+    iy = min(ny - 1, max(0, int(math.floor(py / cs))))
+    inf = np.inf
+    if dx > 0.0:
+        stepx = 1
+        tmaxx = ((ix + 1) * cs - ax) / dx
+        tdx = cs / dx
+    elif dx < 0.0:
+        stepx = -1
+        tmaxx = (ix * cs - ax) / dx
+        tdx = -cs / dx
+    else:
+        stepx = 0
+        tmaxx = inf
+        tdx = inf
+    if dy > 0.0:
+        stepy = 1
+        tmaxy = ((iy + 1) * cs - ay) / dy
+        tdy = cs / dy
+    elif dy < 0.0:
+        stepy = -1
+        tmaxy = (iy * cs - ay) / dy
+        tdy = -cs / dy
+    else:
+        stepy = 0
+        tmaxy = inf
+        tdy = inf
+    t_enter = t0
+    while True:
+        t_exit = min(tmaxx, tmaxy, t1)
+        c = iy * nx + ix
+        za = az + t_enter * dz
+        zb = az + t_exit * dz
+        zmin = za if za < zb else zb
+        if zmin < hmax[c] + HMAX_MARGIN_M:
+            for k in range(start[c], start[c + 1]):
+                ex = cx1[k] - cx0[k]
+                ey = cy1[k] - cy0[k]
+                den = dx * ey - dy * ex
+                if den == 0.0:
+                    continue
+                qx = cx0[k] - ax
+                qy = cy0[k] - ay
+                t = (qx * ey - qy * ex) / den
+                if t < 0.0 or t > 1.0:
+                    continue
+                u = (qx * dy - qy * dx) / den
+                if u < 0.0 or u > 1.0:
+                    continue
+                if az + t * dz < ch[k]:
+                    return True
+        if t_exit >= t1:
+            break
+        if tmaxx < tmaxy:
+            ix += stepx
+            t_enter = tmaxx
+            tmaxx += tdx
+        else:
+            iy += stepy
+            t_enter = tmaxy
+            tmaxy += tdy
+        if ix < 0 or ix >= nx or iy < 0 or iy >= ny:
+            break
+    return False
+
+
+@njit(cache=True, parallel=True)
+def los_elementwise(ax, ay, az, bx, by, bz, buried_a, buried_b, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax):
+    """Element-wise LOS flags for pairs (a[i], b[i])."""
+    n = ax.shape[0]
+    out = np.empty(n, np.bool_)
+    for i in prange(n):
+        if buried_a[i] or buried_b[i]:
+            out[i] = False
+        else:
+            out[i] = not segment_blocked(
+                ax[i], ay[i], az[i], bx[i], by[i], bz[i], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax
+            )
+    return out
+
+
+@njit(cache=True, inline="always")
+def _accept(ax, ay, az, bx, by, bz, r2, ha, nax, nay, thr_a, hb, nbx, nby, thr_b):
+    """Range (3-D distance <= R, > 0) and facade filters (front half-space / steering limit)."""
+    dx = bx - ax
+    dy = by - ay
+    dz = bz - az
+    d2 = dx * dx + dy * dy + dz * dz
+    if d2 > r2 or d2 == 0.0:
+        return False
+    if ha or hb:
+        d = math.sqrt(d2)
+        if ha and (nax * dx + nay * dy) <= thr_a * d:
+            return False
+        if hb and -(nbx * dx + nby * dy) <= thr_b * d:
+            return False
+    return True
+
+
+@njit(cache=True, parallel=True)
+def pairs_in_range(
+    ax, ay, az, a_has, anx, any_, thr_a,
+    bx, by, bz, b_has, bnx, bny, thr_b,
+    r, px0, py0, pcs, pnx, pny, pstart, porder,
+    with_los, buried_a, buried_b,
+    cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+):  # fmt: skip
+    """Two-pass (count, then fill) search of the b points within range of each a point, fused with LOS.
+
+    Returns ``counts`` (per a), ``b_local`` (int64, sorted ascending within each a) and ``los`` (bool).
+    """
+    na = ax.shape[0]
+    r2 = r * r
+    counts = np.zeros(na, np.int64)
+    for i in prange(na):
+        counts[i] = _scan(
+            i, False, counts, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
+            r, r2, px0, py0, pcs, pnx, pny, pstart, porder, np.empty(0, np.int64),
+            False, buried_a, buried_b, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+        )  # fmt: skip
+    offsets = np.zeros(na + 1, np.int64)
+    for i in range(na):
+        offsets[i + 1] = offsets[i] + counts[i]
+    key = np.empty(offsets[na], np.int64)
+    for i in prange(na):
+        _scan(
+            i, True, offsets, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
+            r, r2, px0, py0, pcs, pnx, pny, pstart, porder, key,
+            with_los, buried_a, buried_b, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+        )  # fmt: skip
+    return offsets, key
+
+
+@njit(cache=True, inline="always")
+def _scan(
+    i, fill, offsets, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
+    r, r2, px0, py0, pcs, pnx, pny, pstart, porder, key,
+    with_los, buried_a, buried_b, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+):  # fmt: skip
+    """Count (fill=False) or write (fill=True) the accepted b of point i; keys are 2*b + los, sorted."""
+    x = ax[i]
+    y = ay[i]
+    z = az[i]
+    ha = a_has[i]
+    iy0 = max(0, int(math.floor((y - r - py0) / pcs)))
+    iy1 = min(pny - 1, int(math.floor((y + r - py0) / pcs)))
+    pos = offsets[i] if fill else 0
+    n = 0
+    for iy in range(iy0, iy1 + 1):
+        # horizontal half-width of the disc over this row of cells
+        ylo = py0 + iy * pcs
+        yhi = ylo + pcs
+        dyr = 0.0
+        if y < ylo:
+            dyr = ylo - y
+        elif y > yhi:
+            dyr = y - yhi
+        hw2 = r2 - dyr * dyr
+        if hw2 < 0.0:
+            continue
+        hw = math.sqrt(hw2)
+        ix0 = max(0, int(math.floor((x - hw - px0) / pcs)))
+        ix1 = min(pnx - 1, int(math.floor((x + hw - px0) / pcs)))
+        if ix1 < ix0:
+            continue
+        for s in range(pstart[iy * pnx + ix0], pstart[iy * pnx + ix1 + 1]):
+            j = porder[s]
+            if not _accept(x, y, z, bx[j], by[j], bz[j], r2, ha, anx[i], any_[i], thr_a, b_has[j], bnx[j], bny[j], thr_b):
+                continue
+            if fill:
+                vis = False
+                if with_los and not (buried_a[i] or buried_b[j]):
+                    vis = not segment_blocked(
+                        x, y, z, bx[j], by[j], bz[j], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax
+                    )
+                key[pos + n] = 2 * j + (1 if vis else 0)
+            n += 1
+    if fill and n > 1:
+        key[pos : pos + n] = np.sort(key[pos : pos + n])
+    return n
+
+
+@njit(cache=True, parallel=True)
+def pair_metrics(ia, ib, ax, ay, az, a_has, anx, any_, bx, by, bz, b_has, bnx, bny, out_dtype):
+    """distance_m, d2d_m, angle_a_deg, angle_b_deg, elevation_deg for the pairs (ia[k], ib[k])."""
+    n = ia.shape[0]
+    d3 = np.empty(n, out_dtype)
+    d2 = np.empty(n, out_dtype)
+    ang_a = np.empty(n, out_dtype)
+    ang_b = np.empty(n, out_dtype)
+    elev = np.empty(n, out_dtype)
+    rad = 180.0 / math.pi
+    for k in prange(n):
+        i = ia[k]
+        j = ib[k]
+        dx = bx[j] - ax[i]
+        dy = by[j] - ay[i]
+        dz = bz[j] - az[i]
+        h = math.sqrt(dx * dx + dy * dy)
+        d = math.sqrt(dx * dx + dy * dy + dz * dz)
+        d3[k] = d
+        d2[k] = h
+        elev[k] = math.atan2(dz, h) * rad
+        if a_has[i] and d > 0.0:
+            c = (anx[i] * dx + any_[i] * dy) / d
+            ang_a[k] = math.acos(min(1.0, max(-1.0, c))) * rad
+        else:
+            ang_a[k] = np.nan
+        if b_has[j] and d > 0.0:
+            c = -(bnx[j] * dx + bny[j] * dy) / d
+            ang_b[k] = math.acos(min(1.0, max(-1.0, c))) * rad
+        else:
+            ang_b[k] = np.nan
+    return d3, d2, ang_a, ang_b, elev

@@ -1,0 +1,446 @@
+"""Figures derived from a solved plan: per user "before / after", per chosen site, per demand kind, summary.
+
+Everything the layers, the survey list, the report and ``run.json`` print comes from :func:`derive`, so the
+same number is the same everywhere.
+
+Rules (from the plan's coverage relation, DESIGN.md sections 5 and 6)
+--------------------------------------------------------------------
+* A surface is steered to one user at a time, so a user's SNR with the plan is its best SNR over the
+  coverage rows of the *chosen* options (each row already adds the surface coherently to the direct path),
+  or its direct SNR when that is higher or when no chosen option reaches it.
+* The serving surface of a user is the chosen option giving that best SNR (ties: the better-ranked site);
+  users whose direct path is at least as good have no serving surface.
+* Covered after = covered directly, or best chosen SNR >= target.  Newly covered = covered after and not
+  covered directly; this is the quantity the optimiser maximises.
+* For a chosen site: *exclusive weight* is the newly covered weight that no other chosen site reaches at
+  the target, *shared weight* the newly covered weight it reaches together with other chosen sites;
+  *marginal weight* is what it adds in rank order, and *cumulative weight* the covered weight (direct
+  included) after the sites up to it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import pyproj
+
+from .. import tables as T
+from ..errors import SitingError
+
+SPEED_OF_LIGHT_M_S = 299_792_458.0
+
+COMPASS_16 = ("N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW")
+
+
+def compass_point(azimuth_deg) -> np.ndarray:
+    """16-point compass name of azimuths in degrees clockwise from north (each point spans 22.5 deg)."""
+    az = np.mod(np.asarray(azimuth_deg, dtype=float), 360.0)
+    idx = np.floor((az + 11.25) / 22.5).astype(np.int64) % 16
+    return np.asarray(COMPASS_16, dtype=object)[idx]
+
+
+def element_pitch_m(params: dict) -> float | None:
+    """Element pitch [m] from ``surfaces.element_pitch_wavelengths`` and ``radio.frequency_ghz``, or None."""
+    try:
+        pitch_wl = float(params["surfaces"]["element_pitch_wavelengths"])
+        freq_ghz = float(params["radio"]["frequency_ghz"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not (pitch_wl > 0 and freq_ghz > 0):
+        return None
+    return pitch_wl * SPEED_OF_LIGHT_M_S / (freq_ghz * 1e9)
+
+
+def element_count(width_m, height_m, pitch_m: float) -> np.ndarray:
+    """Elements on a ``width_m`` x ``height_m`` panel at ``pitch_m``: floor(w/p) * floor(h/p).
+
+    A relative tolerance of 1e-9 keeps exact multiples (0.3 m at 0.01 m pitch) from losing a row to
+    floating-point rounding.
+    """
+    w = np.asarray(width_m, dtype=float) / pitch_m
+    h = np.asarray(height_m, dtype=float) / pitch_m
+    return (np.floor(w * (1 + 1e-9)) * np.floor(h * (1 + 1e-9))).astype(np.int64)
+
+
+def to_lonlat(crs, x, y) -> tuple[np.ndarray, np.ndarray]:
+    """Projected x, y [m] -> WGS84 longitude, latitude [deg], rounded to 7 decimals (about 1 cm)."""
+    tr = pyproj.Transformer.from_crs(pyproj.CRS(crs), pyproj.CRS("EPSG:4326"), always_xy=True)
+    lon, lat = tr.transform(np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+    return np.round(np.asarray(lon, dtype=float), 7), np.round(np.asarray(lat, dtype=float), 7)
+
+
+def _plan_attr(plan, name, default=None):
+    if isinstance(plan, dict):
+        return plan.get(name, default)
+    return getattr(plan, name, default)
+
+
+def _float_or_none(v):
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return f if np.isfinite(f) else None
+
+
+@dataclass
+class PlanFigures:
+    """Derived tables.  Units in column names; weights in the users' weight unit, costs in currency units."""
+
+    users: pd.DataFrame
+    """one row per user: user_id, x, y, lon, lat, kind, weight, snr_direct_db, snr_plan_db, covered_before,
+    covered_after, newly_covered, direct_bs_id, serving_option_id (-1 none), serving_site_id (-1 none),
+    serving_rank (0 none), serving_bs_idx (-1 none)"""
+    sites: pd.DataFrame
+    """one row per chosen site in rank order (see :data:`SITE_COLUMNS`)"""
+    by_kind: pd.DataFrame
+    """per demand kind: kind, n_users, weight, covered_weight_before, covered_weight_after,
+    newly_covered_weight, covered_share_before, covered_share_after"""
+    links: pd.DataFrame
+    """served (surface, user) pairs: rank, option_id, site_id, user_id, bs_idx, bs_id, snr_db"""
+    backups: pd.DataFrame
+    """rank, site_id, backup_rank, backup_option_id, backup_site_id, backup_lon, backup_lat, recovered_weight"""
+    candidates: pd.DataFrame
+    """every candidate spot: site_id, building_id, lon, lat, facing_deg, facing, mount_height_m,
+    wall_free_m, source, n_options, chosen"""
+    summary: dict
+    notes: list = field(default_factory=list)
+
+
+SITE_COLUMNS = (
+    "rank", "site_id", "option_id", "lon", "lat", "x", "y", "building_id", "name", "address",
+    "facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
+    "cost", "marginal_weight", "exclusive_weight", "shared_weight", "cumulative_weight", "cumulative_share",
+    "n_users_served", "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "wall_free_m",
+    "notes",
+)
+
+
+def _check_bundle(b) -> None:
+    """Contract checks at the boundary: tables, ids and values the outputs rely on."""
+    try:
+        crs = pyproj.CRS(b.crs)
+    except Exception as exc:  # pyproj raises CRSError with its own text
+        raise SitingError(f"output bundle: expected a CRS pyproj understands, got {b.crs!r} ({exc}); "
+                          "pass the job's projected CRS") from exc
+    if not crs.is_projected:
+        raise SitingError(f"output bundle: expected a projected CRS in metres, got {crs.to_string()}; "
+                          "pass the job's working CRS (e.g. a UTM zone), not longitude/latitude")
+    for name in ("buildings", "base_stations", "sites", "sizes", "users", "options", "coverage", "direct"):
+        df = getattr(b, name)
+        if not isinstance(df, pd.DataFrame):
+            raise SitingError(f"output bundle: expected a DataFrame for '{name}', got {type(df).__name__}")
+        T.check(df, name, where="the output bundle")
+    if not np.isfinite(float(b.snr_target_db)):
+        raise SitingError(f"output bundle: expected a finite snr_target_db, got {b.snr_target_db!r}; "
+                          "set radio.snr_target_db in the job")
+    n_users, n_sites, n_opts = len(b.users), len(b.sites), len(b.options)
+    for name, df, n in (("users", b.users, n_users), ("sites", b.sites, n_sites), ("options", b.options, n_opts)):
+        col = {"users": "user_id", "sites": "site_id", "options": "option_id"}[name]
+        if not np.array_equal(df[col].to_numpy(), np.arange(n)):
+            raise SitingError(f"output bundle: expected '{name}.{col}' to be the row position 0..{n - 1}, "
+                              f"got {df[col].to_numpy()[:5].tolist()}...; reset the index before handing over")
+    bad = ~b.options["site_id"].between(0, n_sites - 1)
+    if bad.any():
+        raise SitingError(f"output bundle: options {b.options.loc[bad, 'option_id'].tolist()[:5]} refer to "
+                          f"site ids outside 0..{n_sites - 1}; the options and sites tables do not match")
+    unknown_sizes = set(b.options["size_id"]) - set(b.sizes["size_id"])
+    if unknown_sizes:
+        raise SitingError(f"output bundle: options use size ids {sorted(unknown_sizes)[:5]} that the 'sizes' "
+                          "catalogue lacks; hand over the catalogue the options were built from")
+    for name, df in (("coverage", b.coverage), ("direct", b.direct)):
+        bad_u = ~df["user_id"].between(0, n_users - 1)
+        if bad_u.any():
+            raise SitingError(f"output bundle: '{name}' has user ids outside 0..{n_users - 1} "
+                              f"(e.g. {df.loc[bad_u, 'user_id'].iloc[0]}); the tables come from different runs")
+    if (~b.coverage["option_id"].between(0, n_opts - 1)).any():
+        raise SitingError(f"output bundle: 'coverage' has option ids outside 0..{n_opts - 1}; "
+                          "the coverage and options tables come from different runs")
+    if b.direct["user_id"].duplicated().any():
+        raise SitingError("output bundle: 'direct' has more than one row for some user ids; expected one per user")
+    chosen = np.asarray(list(_plan_attr(b.plan, "chosen", []) or []))
+    if chosen.size:
+        if not np.issubdtype(chosen.dtype, np.integer):
+            raise SitingError(f"output bundle: expected plan.chosen to hold integer option ids, got "
+                              f"{chosen[:5].tolist()}")
+        if ((chosen < 0) | (chosen >= n_opts)).any():
+            raise SitingError(f"output bundle: plan.chosen holds option ids {chosen[(chosen < 0) | (chosen >= n_opts)][:5].tolist()} "
+                              f"outside 0..{n_opts - 1}; the plan and options tables come from different runs")
+        if len(np.unique(chosen)) != len(chosen):
+            raise SitingError("output bundle: plan.chosen lists an option twice; expected each chosen option once")
+        sites_of = b.options["site_id"].to_numpy()[chosen]
+        if len(np.unique(sites_of)) != len(sites_of):
+            raise SitingError("output bundle: plan.chosen puts two sizes on one site; the plan allows one per site")
+    if (b.users["weight"] < 0).any():
+        raise SitingError("output bundle: 'users.weight' has negative values; expected weights >= 0")
+
+
+def _rank_order(chosen: np.ndarray, ranking: pd.DataFrame | None) -> np.ndarray:
+    """Chosen option ids in rank order: by the ranking table when it ranks them all, else as listed."""
+    if ranking is None or not len(ranking) or not {"option", "rank"} <= set(ranking.columns):
+        return chosen
+    r = ranking.drop_duplicates("option").set_index("option")["rank"]
+    if not set(chosen.tolist()) <= set(r.index.tolist()):
+        return chosen
+    key = r.reindex(chosen).to_numpy(float)
+    return chosen[np.argsort(key, kind="stable")]
+
+
+def derive(b) -> PlanFigures:
+    """Compute every figure the outputs print from an :class:`~siting.outputs.OutputBundle`."""
+    _check_bundle(b)
+    notes: list[str] = list(b.run_info.get("notes", []) or []) if isinstance(b.run_info, dict) else []
+    target = float(b.snr_target_db)
+    users, sites, options, sizes = b.users, b.sites, b.options, b.sizes
+    n_users = len(users)
+    chosen = _rank_order(np.asarray(list(_plan_attr(b.plan, "chosen", []) or []), dtype=np.int64), b.ranking)
+    k = len(chosen)
+    rank_of_option = np.zeros(len(options), dtype=np.int64)  # 0 = not chosen, else 1-based rank
+    rank_of_option[chosen] = np.arange(1, k + 1)
+
+    weight = users["weight"].to_numpy(float)
+    total_w = float(weight.sum())
+    # direct state, aligned on user_id (users missing from 'direct' have no signal)
+    d = b.direct.set_index("user_id")
+    snr_direct = d["snr_db"].reindex(np.arange(n_users)).to_numpy(float)
+    snr_direct = np.where(np.isnan(snr_direct), -np.inf, snr_direct)
+    before = d["covered"].reindex(np.arange(n_users)).fillna(False).to_numpy(bool)
+    direct_bs = d["bs_idx"].reindex(np.arange(n_users)).fillna(-1).to_numpy(np.int64)
+
+    # best chosen coverage row per user
+    cov = b.coverage
+    sel = rank_of_option[cov["option_id"].to_numpy(np.int64)] > 0
+    c_opt = cov["option_id"].to_numpy(np.int64)[sel]
+    c_user = cov["user_id"].to_numpy(np.int64)[sel]
+    c_snr = cov["snr_db"].to_numpy(float)[sel]
+    c_snr = np.where(np.isnan(c_snr), -np.inf, c_snr)
+    c_bs = cov["bs_idx"].to_numpy(np.int64)[sel]
+    c_rank = rank_of_option[c_opt]
+    order = np.lexsort((c_rank, -c_snr, c_user))
+    first = np.ones(order.size, dtype=bool)
+    first[1:] = c_user[order][1:] != c_user[order][:-1]
+    best = order[first]
+    best_snr = np.full(n_users, -np.inf)
+    best_snr[c_user[best]] = c_snr[best]
+    best_opt = np.full(n_users, -1, dtype=np.int64)
+    best_opt[c_user[best]] = c_opt[best]
+    best_bs = np.full(n_users, -1, dtype=np.int64)
+    best_bs[c_user[best]] = c_bs[best]
+
+    served = (best_opt >= 0) & (best_snr >= snr_direct)
+    snr_plan = np.where(served, best_snr, snr_direct)
+    after = before | (best_snr >= target)
+    newly = after & ~before
+    serving_opt = np.where(served, best_opt, -1)
+    serving_site = np.where(served, options["site_id"].to_numpy(np.int64)[np.maximum(serving_opt, 0)], -1)
+    serving_rank = np.where(served, rank_of_option[np.maximum(serving_opt, 0)], 0)
+    serving_bs = np.where(served, best_bs, -1)
+
+    lon_u, lat_u = to_lonlat(b.crs, users["x"], users["y"])
+    bs_ids = b.base_stations["bs_id"].astype(str).to_numpy()
+
+    def bs_name(idx):
+        idx = np.asarray(idx, dtype=np.int64)
+        ok = (idx >= 0) & (idx < len(bs_ids))
+        return np.where(ok, bs_ids[np.clip(idx, 0, max(len(bs_ids) - 1, 0))] if len(bs_ids) else "", "")
+
+    u = pd.DataFrame({
+        "user_id": users["user_id"].to_numpy(np.int64), "x": users["x"].to_numpy(float),
+        "y": users["y"].to_numpy(float), "lon": lon_u, "lat": lat_u, "kind": users["kind"].astype(str).to_numpy(),
+        "weight": weight, "snr_direct_db": snr_direct, "snr_plan_db": snr_plan, "covered_before": before,
+        "covered_after": after, "newly_covered": newly, "direct_bs_id": bs_name(direct_bs),
+        "serving_option_id": serving_opt, "serving_site_id": serving_site, "serving_rank": serving_rank,
+        "serving_bs_idx": serving_bs,
+    })
+
+    # which chosen sites reach which not-yet-covered users at the target (deduplicated pairs)
+    hit = (c_snr >= target) & ~before[c_user]
+    pair = np.unique((c_rank[hit] - 1) * max(n_users, 1) + c_user[hit])
+    p_rank0, p_user = pair // max(n_users, 1), pair % max(n_users, 1)
+    n_cover = np.bincount(p_user, minlength=n_users)
+    excl = np.bincount(p_rank0, weights=np.where(n_cover[p_user] == 1, weight[p_user], 0.0), minlength=k)
+    shared = np.bincount(p_rank0, weights=np.where(n_cover[p_user] > 1, weight[p_user], 0.0), minlength=k)
+    first_rank0 = np.full(n_users, k, dtype=np.int64)
+    np.minimum.at(first_rank0, p_user, p_rank0)
+    marginal = np.bincount(first_rank0[newly], weights=weight[newly], minlength=k + 1)[:k]
+    w_before = float(weight[before].sum())
+    cumulative = w_before + np.cumsum(marginal)
+
+    # per chosen site
+    o = options.iloc[chosen]
+    s = sites.iloc[o["site_id"].to_numpy(np.int64)]
+    z = sizes.drop_duplicates("size_id").set_index("size_id").reindex(o["size_id"].to_numpy())
+    width, height = z["width_m"].to_numpy(float), z["height_m"].to_numpy(float)
+    pitch = element_pitch_m(b.params or {})
+    if "elements" in z.columns and z["elements"].notna().all():
+        elements = z["elements"].to_numpy(np.int64)
+    elif pitch is not None:
+        elements = element_count(width, height, pitch)
+    else:
+        elements = np.full(k, -1, dtype=np.int64)
+        if k:
+            notes.append("element counts unknown: the job gives no surfaces.element_pitch_wavelengths / "
+                         "radio.frequency_ghz and the catalogue has no 'elements' column")
+    lon_s, lat_s = to_lonlat(b.crs, s["x"], s["y"])
+    bld = b.buildings.reset_index(drop=True)
+    bidx = s["building_idx"].to_numpy(np.int64)
+    okb = (bidx >= 0) & (bidx < len(bld))
+    name = np.where(okb, bld["name"].astype(str).to_numpy()[np.clip(bidx, 0, max(len(bld) - 1, 0))], "") if len(bld) else np.full(k, "")
+    addr = np.where(okb, bld["address"].astype(str).to_numpy()[np.clip(bidx, 0, max(len(bld) - 1, 0))], "") if len(bld) else np.full(k, "")
+
+    su = u[u["serving_rank"] > 0]
+    gain = su["snr_plan_db"] - su["snr_direct_db"]
+    gain = gain.where(np.isfinite(gain))
+    med_gain = gain.groupby(su["serving_rank"]).median().reindex(np.arange(1, k + 1)).to_numpy(float)
+    n_served = su.groupby("serving_rank").size().reindex(np.arange(1, k + 1), fill_value=0).to_numpy(np.int64)
+    w_served = su.groupby("serving_rank")["weight"].sum().reindex(np.arange(1, k + 1), fill_value=0.0).to_numpy(float)
+    # feeding base station: most frequent among the served users' rows, else among all rows of the option
+    fb = pd.DataFrame({"rank": su["serving_rank"].to_numpy(), "bs": su["serving_bs_idx"].to_numpy()})
+    all_rows = pd.DataFrame({"rank": c_rank, "bs": c_bs})
+    feed = np.full(k, -1, dtype=np.int64)
+    for frame in (all_rows, fb):  # served users' choice overrides
+        if len(frame):
+            vc = frame.value_counts().reset_index(name="n").sort_values(["rank", "n", "bs"], ascending=[True, False, True])
+            top = vc.drop_duplicates("rank")
+            feed[top["rank"].to_numpy(np.int64) - 1] = top["bs"].to_numpy(np.int64)
+
+    # backups
+    bk = b.backups if b.backups is not None else pd.DataFrame()
+    if len(bk) and {"option", "backup_option"} <= set(bk.columns):
+        bk = bk[bk["option"].isin(chosen)].copy()
+        bk = bk[bk["backup_option"].between(0, len(options) - 1)]
+        if "backup_rank" not in bk.columns:
+            bk["backup_rank"] = bk.groupby("option").cumcount() + 1
+        bk = bk.sort_values(["option", "backup_rank"])
+        bsite = options["site_id"].to_numpy(np.int64)[bk["backup_option"].to_numpy(np.int64)]
+        blon, blat = to_lonlat(b.crs, sites["x"].to_numpy(float)[bsite], sites["y"].to_numpy(float)[bsite])
+        backups = pd.DataFrame({
+            "rank": rank_of_option[bk["option"].to_numpy(np.int64)], "site_id": options["site_id"].to_numpy(np.int64)[bk["option"].to_numpy(np.int64)],
+            "backup_rank": bk["backup_rank"].to_numpy(np.int64), "backup_option_id": bk["backup_option"].to_numpy(np.int64),
+            "backup_site_id": bsite, "backup_lon": blon, "backup_lat": blat,
+            "recovered_weight": bk["recovered_weight"].to_numpy(float) if "recovered_weight" in bk else np.nan,
+        }).sort_values(["rank", "backup_rank"], kind="stable").reset_index(drop=True)
+    else:
+        backups = pd.DataFrame({c: pd.Series(dtype=t) for c, t in (
+            ("rank", "int64"), ("site_id", "int64"), ("backup_rank", "int64"), ("backup_option_id", "int64"),
+            ("backup_site_id", "int64"), ("backup_lon", "float64"), ("backup_lat", "float64"),
+            ("recovered_weight", "float64"))})
+    backup_ids = backups.groupby("rank")["backup_site_id"].agg(lambda v: ";".join(str(i) for i in v))
+    backup_ids = backup_ids.reindex(np.arange(1, k + 1), fill_value="").to_numpy(object)
+
+    wall_free = s["wall_free_m"].to_numpy(float)
+    site_notes = np.where(width > wall_free + 1e-9, "panel wider than the free wall length; check the facade", "")
+    facing = np.mod(s["normal_az_deg"].to_numpy(float), 360.0)
+    sites_out = pd.DataFrame({
+        "rank": np.arange(1, k + 1), "site_id": s["site_id"].to_numpy(np.int64), "option_id": chosen,
+        "lon": lon_s, "lat": lat_s, "x": s["x"].to_numpy(float), "y": s["y"].to_numpy(float),
+        "building_id": s["building_id"].astype(str).to_numpy(), "name": name.astype(object), "address": addr.astype(object),
+        "facing_deg": np.round(facing, 1), "facing": compass_point(facing), "mount_height_m": s["z_m"].to_numpy(float),
+        "size_id": o["size_id"].astype(str).to_numpy(), "width_m": width, "height_m": height,
+        "area_m2": width * height, "elements": elements, "cost": o["cost"].to_numpy(float),
+        "marginal_weight": marginal, "exclusive_weight": excl, "shared_weight": shared,
+        "cumulative_weight": cumulative, "cumulative_share": cumulative / total_w if total_w > 0 else np.zeros(k),
+        "n_users_served": n_served, "served_weight": w_served, "median_snr_gain_db": med_gain,
+        "serving_bs_id": bs_name(feed), "backup_site_ids": backup_ids, "wall_free_m": wall_free,
+        "notes": site_notes.astype(object),
+    }, columns=list(SITE_COLUMNS))
+
+    # per kind
+    g = u.assign(wb=np.where(before, weight, 0.0), wa=np.where(after, weight, 0.0), wn=np.where(newly, weight, 0.0))
+    by_kind = g.groupby("kind", sort=True).agg(
+        n_users=("user_id", "size"), weight=("weight", "sum"), covered_weight_before=("wb", "sum"),
+        covered_weight_after=("wa", "sum"), newly_covered_weight=("wn", "sum")).reset_index()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        by_kind["covered_share_before"] = np.where(by_kind["weight"] > 0, by_kind["covered_weight_before"] / by_kind["weight"], 0.0)
+        by_kind["covered_share_after"] = np.where(by_kind["weight"] > 0, by_kind["covered_weight_after"] / by_kind["weight"], 0.0)
+
+    # links of served users
+    lk = u[u["serving_rank"] > 0]
+    links = pd.DataFrame({
+        "rank": lk["serving_rank"].to_numpy(np.int64), "option_id": lk["serving_option_id"].to_numpy(np.int64),
+        "site_id": lk["serving_site_id"].to_numpy(np.int64), "user_id": lk["user_id"].to_numpy(np.int64),
+        "bs_idx": lk["serving_bs_idx"].to_numpy(np.int64), "bs_id": bs_name(lk["serving_bs_idx"].to_numpy()),
+        "snr_db": lk["snr_plan_db"].to_numpy(float),
+    }).sort_values(["rank", "user_id"], kind="stable").reset_index(drop=True)
+
+    # candidates
+    lon_c, lat_c = to_lonlat(b.crs, sites["x"], sites["y"])
+    chosen_sites = np.zeros(len(sites), dtype=bool)
+    chosen_sites[o["site_id"].to_numpy(np.int64)] = True
+    cand_facing = np.mod(sites["normal_az_deg"].to_numpy(float), 360.0)
+    candidates = pd.DataFrame({
+        "site_id": sites["site_id"].to_numpy(np.int64), "building_id": sites["building_id"].astype(str).to_numpy(),
+        "lon": lon_c, "lat": lat_c, "facing_deg": np.round(cand_facing, 1), "facing": compass_point(cand_facing),
+        "mount_height_m": sites["z_m"].to_numpy(float), "wall_free_m": sites["wall_free_m"].to_numpy(float),
+        "source": sites["source"].astype(str).to_numpy(),
+        "n_options": np.bincount(options["site_id"].to_numpy(np.int64), minlength=len(sites)),
+        "chosen": chosen_sites,
+    })
+
+    summary = _summary(b, u, sites_out, target, total_w, w_before, notes)
+    return PlanFigures(users=u, sites=sites_out, by_kind=by_kind, links=links, backups=backups,
+                       candidates=candidates, summary=summary, notes=notes)
+
+
+def _summary(b, u, sites_out, target, total_w, w_before, notes) -> dict:
+    plan = b.plan
+    w_after = float(u.loc[u["covered_after"], "weight"].sum())
+    w_new = float(u.loc[u["newly_covered"], "weight"].sum())
+    plan_cost = float(sites_out["cost"].sum())
+    opt_cost = b.options["cost"].to_numpy(float)
+    cheapest = float(opt_cost.min()) if opt_cost.size else None
+    budget = _float_or_none(b.budget)
+    objective = _float_or_none(_plan_attr(plan, "objective"))
+    if objective is not None and len(sites_out) and not (
+            np.isclose(objective, w_new, rtol=1e-6, atol=1e-6) or np.isclose(objective, w_after, rtol=1e-6, atol=1e-6)):
+        notes.append(f"the solver's objective ({objective:.6g}) differs from the newly covered weight recomputed "
+                     f"from the coverage relation ({w_new:.6g}); a load cap or a reduced model may explain it")
+    empty_reason = ""
+    if not len(sites_out):
+        if not len(b.options):
+            empty_reason = ("no surface was chosen: there are no candidate options (no facade spot sees both a "
+                            "base station and a demand point within range)")
+        elif budget is not None and cheapest is not None and budget < cheapest:
+            empty_reason = (f"no surface was chosen: the budget ({budget:.2f}) is below the cheapest option's "
+                            f"cost ({cheapest:.2f}); raise the budget to at least {cheapest:.2f} to place one panel")
+        elif b.max_panels is not None and int(b.max_panels) <= 0:
+            empty_reason = "no surface was chosen: the panel count limit is 0"
+        else:
+            msg = _plan_attr(plan, "message", "") or ""
+            empty_reason = ("no surface was chosen: no affordable option brings any uncovered demand point up to "
+                            "the SNR target" + (f" (optimiser: {msg})" if msg else ""))
+    return {
+        "n_users": int(len(u)),
+        "total_weight": total_w,
+        "covered_weight_before": w_before,
+        "covered_share_before": w_before / total_w if total_w > 0 else 0.0,
+        "covered_weight_after": w_after,
+        "covered_share_after": w_after / total_w if total_w > 0 else 0.0,
+        "newly_covered_weight": w_new,
+        "n_users_covered_before": int(u["covered_before"].sum()),
+        "n_users_covered_after": int(u["covered_after"].sum()),
+        "n_users_newly_covered": int(u["newly_covered"].sum()),
+        "n_sites_chosen": int(len(sites_out)),
+        "n_candidate_sites": int(len(b.sites)),
+        "n_options": int(len(b.options)),
+        "n_base_stations": int(len(b.base_stations)),
+        "n_buildings": int(len(b.buildings)),
+        "plan_cost": plan_cost,
+        "budget": budget,
+        "budget_used_share": plan_cost / budget if budget else None,
+        "max_panels": int(b.max_panels) if b.max_panels is not None else None,
+        "cheapest_option_cost": cheapest,
+        "snr_target_db": target,
+        "status": str(_plan_attr(plan, "status", "") or ""),
+        "solver": str(_plan_attr(plan, "solver", "") or ""),
+        "objective": objective,
+        "bound": _float_or_none(_plan_attr(plan, "bound")),
+        "gap": _float_or_none(_plan_attr(plan, "gap")),
+        "greedy_objective": _float_or_none(_plan_attr(plan, "greedy_objective")),
+        "solver_reported_cost": _float_or_none(_plan_attr(plan, "cost")),
+        "solver_message": str(_plan_attr(plan, "message", "") or ""),
+        "empty_plan": not len(sites_out),
+        "empty_plan_reason": empty_reason,
+    }
