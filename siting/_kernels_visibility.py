@@ -246,7 +246,7 @@ def pairs_in_range(
     return offsets, key
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _scan(
     i, fill, offsets, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
     r, r2, px0, py0, pcs, pnx, pny, pstart, porder, key,
@@ -296,14 +296,14 @@ def _scan(
 
 
 @njit(cache=True, parallel=True)
-def pair_metrics(ia, ib, ax, ay, az, a_has, anx, any_, bx, by, bz, b_has, bnx, bny, out_dtype):
+def pair_metrics(ia, ib, ax, ay, az, a_has, anx, any_, bx, by, bz, b_has, bnx, bny):
     """distance_m, d2d_m, angle_a_deg, angle_b_deg, elevation_deg for the pairs (ia[k], ib[k])."""
     n = ia.shape[0]
-    d3 = np.empty(n, out_dtype)
-    d2 = np.empty(n, out_dtype)
-    ang_a = np.empty(n, out_dtype)
-    ang_b = np.empty(n, out_dtype)
-    elev = np.empty(n, out_dtype)
+    d3 = np.empty(n, np.float64)
+    d2 = np.empty(n, np.float64)
+    ang_a = np.empty(n, np.float64)
+    ang_b = np.empty(n, np.float64)
+    elev = np.empty(n, np.float64)
     rad = 180.0 / math.pi
     for k in prange(n):
         i = ia[k]
