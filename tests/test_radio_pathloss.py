@@ -1,0 +1,238 @@
+"""Path loss: free space (ITU-R P.525) and 3GPP TR 38.901 UMi / UMa, against CHECKS.md §1-2 worked values."""
+
+import warnings
+
+import numpy as np
+import pytest
+
+from siting.errors import SitingError
+from siting.radio import (RadioInputError, RadioValidityWarning, breakpoint_distance_m, direct_path_loss_db,
+                          free_space_path_loss_db, los_probability_uma, los_probability_umi, uma_los_db,
+                          uma_nlos_db, umi_street_canyon_los_db, umi_street_canyon_nlos_db)
+
+
+# ------------------------------------------------------------------------------------------- free space
+
+@pytest.mark.parametrize("freq_hz, expected_db", [(28e9, 101.391), (3.5e9, 83.329)])
+def test_fspl_CHECKS_section1(freq_hz, expected_db):
+    # CHECKS §1 worked examples at 100 m, exact 20 log10(4 pi d f / c) (ITU-R P.525)
+    assert free_space_path_loss_db(100.0, freq_hz) == pytest.approx(expected_db, abs=1e-3)
+
+
+def test_fspl_practical_units_form():
+    # ITU-R P.525: L = 32.4 + 20 log10 f[MHz] + 20 log10 d[km]; CHECKS §1: differs from exact by < 0.05 dB
+    rng = np.random.default_rng(1)
+    d = rng.uniform(1, 5000, 50)
+    f = rng.uniform(0.5e9, 100e9, 50)
+    practical = 32.4 + 20 * np.log10(f / 1e6) + 20 * np.log10(d / 1e3)
+    np.testing.assert_allclose(free_space_path_loss_db(d, f), practical, atol=0.05)
+
+
+def test_fspl_6db_per_distance_doubling():
+    # Friis inverse-square law (common practice): doubling distance adds 20 log10 2 = 6.02 dB
+    d = np.array([3.0, 30.0, 300.0])
+    np.testing.assert_allclose(free_space_path_loss_db(2 * d, 28e9) - free_space_path_loss_db(d, 28e9),
+                               20 * np.log10(2), rtol=1e-12)
+
+
+# -------------------------------------------------------------------------------------------------- UMi
+
+# CHECKS §2.1 worked values, UMi, hBS = 10 m, hUT = 1.5 m: (fc GHz, d2D, PL_LOS, PL_NLOS)
+UMI_TABLE = [
+    (28, 10, 84.823, 92.693),
+    (28, 50, 97.151, 113.416),
+    (28, 100, 103.376, 123.880),
+    (28, 200, 109.673, 134.465),
+    (28, 500, 118.023, 148.500),
+    (3.5, 50, 79.090, 94.181),
+    (3.5, 100, 85.314, 104.644),
+    (3.5, 200, 91.611, 115.229),
+    (3.5, 300, 98.244, 121.437),   # PL2 branch
+]
+
+
+@pytest.mark.parametrize("fc, d2d, los, nlos", UMI_TABLE)
+def test_umi_CHECKS_table(fc, d2d, los, nlos):
+    # CHECKS §2.1 (3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMi-Street Canyon)
+    assert umi_street_canyon_los_db(d2d, 10.0, 1.5, fc * 1e9) == pytest.approx(los, abs=1e-3)
+    assert umi_street_canyon_nlos_db(d2d, 10.0, 1.5, fc * 1e9) == pytest.approx(nlos, abs=1e-3)
+
+
+def test_umi_table_vectorised():
+    # vectorisation property: one array call equals the table row by row
+    fc = np.array([r[0] for r in UMI_TABLE]) * 1e9
+    d = np.array([r[1] for r in UMI_TABLE], float)
+    np.testing.assert_allclose(umi_street_canyon_los_db(d, 10.0, 1.5, fc), [r[2] for r in UMI_TABLE], atol=1e-3)
+    np.testing.assert_allclose(umi_street_canyon_nlos_db(d, 10.0, 1.5, fc), [r[3] for r in UMI_TABLE], atol=1e-3)
+
+
+@pytest.mark.parametrize("fc_hz, expected_m", [(28e9, 1680.0), (3.5e9, 210.0)])
+def test_umi_breakpoint_CHECKS(fc_hz, expected_m):
+    # CHECKS §2.1: d'BP = 4 h'BS h'UT fc / c, hE = 1 m, c = 3e8 (TR 38.901 NOTE 1)
+    assert breakpoint_distance_m(10.0, 1.5, fc_hz) == pytest.approx(expected_m, rel=1e-12)
+
+
+def test_umi_breakpoint_continuity_CHECKS():
+    # CHECKS §2.1: PL1 = PL2 = 92.0554 dB at d2D = d'BP = 210 m (3.5 GHz)
+    below = umi_street_canyon_los_db(210.0, 10.0, 1.5, 3.5e9)
+    above = umi_street_canyon_los_db(210.0 * (1 + 1e-9), 10.0, 1.5, 3.5e9)
+    assert below == pytest.approx(92.0554, abs=1e-4)
+    assert above == pytest.approx(below, abs=1e-6)
+
+
+# -------------------------------------------------------------------------------------------------- UMa
+
+# CHECKS §2.2 worked values, UMa, hBS = 25 m, hUT = 1.5 m: (fc GHz, d2D, LOS, NLOS)
+UMA_TABLE = [
+    (28, 50, 95.274, 110.573),
+    (28, 100, 101.200, 121.099),
+    (28, 200, 107.631, 132.524),
+    (3.5, 1000, 109.412, 141.666),  # PL2 branch
+]
+
+
+@pytest.mark.parametrize("fc, d2d, los, nlos", UMA_TABLE)
+def test_uma_CHECKS_table(fc, d2d, los, nlos):
+    # CHECKS §2.2 (3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMa)
+    assert uma_los_db(d2d, 25.0, 1.5, fc * 1e9) == pytest.approx(los, abs=1e-3)
+    assert uma_nlos_db(d2d, 25.0, 1.5, fc * 1e9) == pytest.approx(nlos, abs=1e-3)
+
+
+def test_uma_breakpoint_continuity_CHECKS():
+    # CHECKS §2.2: PL1 = PL2 = 99.3499 dB at d2D = d'BP = 560 m (3.5 GHz)
+    assert breakpoint_distance_m(25.0, 1.5, 3.5e9) == pytest.approx(560.0)
+    below = uma_los_db(560.0, 25.0, 1.5, 3.5e9)
+    above = uma_los_db(560.0 * (1 + 1e-9), 25.0, 1.5, 3.5e9)
+    assert below == pytest.approx(99.3499, abs=1e-4)
+    assert above == pytest.approx(below, abs=1e-6)
+
+
+# ---------------------------------------------------------------------------------------- LOS probability
+
+@pytest.mark.parametrize("d2d, p", [(10, 1.0), (50, 0.51959), (100, 0.23098), (200, 0.09352), (300, 0.06023),
+                                    (500, 0.03600)])
+def test_los_probability_umi_CHECKS(d2d, p):
+    # CHECKS §2.1, TR 38.901 Table 7.4.2-1 (UMi-Street Canyon)
+    assert los_probability_umi(d2d) == pytest.approx(p, abs=1e-5)
+
+
+@pytest.mark.parametrize("d2d, p", [(50, 0.64940), (100, 0.34767), (200, 0.12805), (1000, 0.01800)])
+def test_los_probability_uma_CHECKS(d2d, p):
+    # CHECKS §2.2, TR 38.901 Table 7.4.2-1 (UMa), hUT = 1.5 m
+    assert los_probability_uma(d2d, 1.5) == pytest.approx(p, abs=1e-5)
+
+
+def test_los_probability_uma_tall_terminal_raises_it():
+    # TR 38.901 Table 7.4.2-1: C'(hUT) > 0 above 13 m raises Pr_LOS at mid distances (formula property)
+    assert los_probability_uma(150.0, 20.0) > los_probability_uma(150.0, 1.5)
+    assert los_probability_uma(np.array([5.0, 18.0]), 20.0).tolist() == [1.0, 1.0]
+
+
+# ------------------------------------------------------------------------------------ model properties
+
+def test_nlos_never_below_los_seeded():
+    # TR 38.901 Table 7.4.1-1: PL_NLOS = max(PL_LOS, PL'_NLOS) >= PL_LOS (CHECKS §2.1 property)
+    rng = np.random.default_rng(5)
+    d = rng.uniform(0, 5000, 2000)
+    h = rng.uniform(1.5, 22.5, 2000)
+    f = rng.uniform(0.5e9, 100e9, 2000)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RadioValidityWarning)
+        assert np.all(umi_street_canyon_nlos_db(d, 10.0, h, f) >= umi_street_canyon_los_db(d, 10.0, h, f))
+        assert np.all(uma_nlos_db(d, 25.0, h, f) >= uma_los_db(d, 25.0, h, f))
+
+
+def test_short_range_no_fitted_extrapolation():
+    # design decision (pathloss module notes): below 10 m, model value at 10 m moved with the free-space
+    # slope: continuous at 10 m, monotone in distance, UMi never below the exact free-space loss (Friis)
+    d = np.linspace(0.0, 20.0, 401)
+    with pytest.warns(RadioValidityWarning):
+        los = umi_street_canyon_los_db(d, 10.0, 1.5, 28e9)
+    with pytest.warns(RadioValidityWarning):
+        nlos = umi_street_canyon_nlos_db(d, 10.0, 1.5, 28e9)
+    assert np.all(np.diff(los) >= 0) and np.all(np.diff(nlos) >= 0)
+    i10 = np.searchsorted(d, 10.0)
+    with pytest.warns(RadioValidityWarning):
+        just_below = umi_street_canyon_los_db(10.0 - 1e-9, 10.0, 1.5, 28e9)
+    assert just_below == pytest.approx(los[i10], abs=1e-8)       # continuous at 10 m
+    d3d = np.hypot(d, 8.5)
+    assert np.all(los >= free_space_path_loss_db(d3d, 28e9))
+    # free-space slope below 10 m: PL(0) - PL(10) = 20 log10(d3D(0) / d3D(10))
+    assert los[i10] - los[0] == pytest.approx(20 * np.log10(np.hypot(10, 8.5) / 8.5), abs=1e-9)
+
+
+def test_validity_warnings_once_per_call():
+    # TR 38.901: 0.5-100 GHz and 10 m-5 km; one warning per kind and call, however many elements are outside
+    with warnings.catch_warnings(record=True) as rec:
+        warnings.simplefilter("always")
+        umi_street_canyon_los_db(np.array([1.0, 2.0, 6000.0, 7000.0]), 10.0, 1.5, 28e9)
+    assert len([w for w in rec if issubclass(w.category, RadioValidityWarning)]) == 1
+    with pytest.warns(RadioValidityWarning, match="freq_hz"):
+        uma_los_db(100.0, 25.0, 1.5, 150e9)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        umi_street_canyon_los_db(np.array([10.0, 100.0, 5000.0]), 10.0, 1.5, 28e9)  # in range: silent
+
+
+def test_beyond_5km_extrapolates_pl2():
+    # module decision: beyond 5 km the published PL2 formula is evaluated (40 dB/decade in d3D)
+    with pytest.warns(RadioValidityWarning):
+        a, b = umi_street_canyon_los_db(np.array([6000.0, 12000.0]), 10.0, 1.5, 3.5e9)
+    d3 = np.hypot([6000.0, 12000.0], 8.5)
+    assert b - a == pytest.approx(40 * np.log10(d3[1] / d3[0]), abs=1e-9)
+
+
+# ------------------------------------------------------------------------------------------- dispatcher
+
+def test_direct_path_loss_dispatch():
+    # dispatcher equals the individual TR 38.901 formulas element by element; free space = Friis over d3D
+    d = np.array([20.0, 80.0, 150.0, 400.0])
+    los = np.array([True, False, True, False])
+    got = direct_path_loss_db("umi", los, d, 10.0, 1.5, 28e9)
+    want = np.where(los, umi_street_canyon_los_db(d, 10.0, 1.5, 28e9), umi_street_canyon_nlos_db(d, 10.0, 1.5, 28e9))
+    np.testing.assert_array_equal(got, want)
+    got = direct_path_loss_db("uma", los, d, 25.0, 1.5, 3.5e9)
+    want = np.where(los, uma_los_db(d, 25.0, 1.5, 3.5e9), uma_nlos_db(d, 25.0, 1.5, 3.5e9))
+    np.testing.assert_array_equal(got, want)
+    fs = direct_path_loss_db("free_space", los, d, 10.0, 1.5, 28e9)
+    np.testing.assert_allclose(fs, free_space_path_loss_db(np.hypot(d, 8.5), 28e9), rtol=1e-12)
+    assert isinstance(direct_path_loss_db("umi", True, 100.0, 10.0, 1.5, 28e9), float)
+
+
+def test_broadcast_stations_by_users():
+    # vectorisation: a (n_bs, 1) x (1, n_users) call equals element-wise calls
+    d = np.array([[30.0, 60.0, 90.0], [120.0, 240.0, 480.0]])
+    h_bs = np.array([[8.0], [12.0]])
+    grid = umi_street_canyon_nlos_db(d, h_bs, 1.5, 28e9)
+    assert grid.shape == (2, 3)
+    for i in range(2):
+        for j in range(3):
+            assert grid[i, j] == umi_street_canyon_nlos_db(d[i, j], h_bs[i, 0], 1.5, 28e9)
+
+
+# ------------------------------------------------------------------------------------------- bad input
+
+@pytest.mark.parametrize("func", [umi_street_canyon_los_db, umi_street_canyon_nlos_db, uma_los_db, uma_nlos_db])
+@pytest.mark.parametrize("d2d", [np.nan, -1.0, np.array([10.0, -5.0])])
+def test_bad_distance_raises(func, d2d):
+    with pytest.raises(RadioInputError, match="d2d_m") as info:
+        func(d2d, 10.0, 1.5, 28e9)
+    assert isinstance(info.value, SitingError) and isinstance(info.value, ValueError)
+
+
+@pytest.mark.parametrize("bad", [dict(distance_m=-3.0), dict(distance_m=0.0), dict(distance_m=np.nan),
+                                 dict(freq_hz=0.0), dict(freq_hz=-28e9)])
+def test_fspl_bad_input(bad):
+    args = dict(distance_m=100.0, freq_hz=28e9)
+    args.update(bad)
+    with pytest.raises(RadioInputError):
+        free_space_path_loss_db(**args)
+
+
+def test_dispatcher_bad_model_and_los():
+    with pytest.raises(RadioInputError, match="umi"):
+        direct_path_loss_db("rma", True, 100.0, 10.0, 1.5, 28e9)
+    with pytest.raises(RadioInputError, match="los"):
+        direct_path_loss_db("umi", np.array([1, 0]), 100.0, 10.0, 1.5, 28e9)
+    with pytest.raises(RadioInputError, match="h_ut_m"):
+        direct_path_loss_db("umi", True, 100.0, 10.0, -1.5, 28e9)
