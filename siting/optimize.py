@@ -764,8 +764,7 @@ class _Greedy:
         if self.max_count is not None and len(chosen) >= self.max_count:
             return chosen
         wcov = np.where(covered, 0.0, w)
-        gains = np.add.reduceat(wcov[C.indices], C.indptr[:-1]) if C.nnz else np.zeros(self.n)
-        gains[np.diff(C.indptr) == 0] = 0.0
+        gains = C.astype(np.float64) @ wcov
         cand = np.flatnonzero((gains > 0) & ~site_used[self.sidx] & ~blocked[self.sidx])
         keys = gains[cand] / (c[cand] + self.scale) if self.budget is not None else gains[cand]
         # heap of (-key, cost, index): ties toward lower cost, then lower index (deterministic)
@@ -909,13 +908,10 @@ def _capped_served(inst: _Instance, red: _Reduced, chosen_red: np.ndarray, z: np
     return served
 
 
-def _message(mode, status, objective, bound, gap, cost, n, total, solver, budget, max_count, target=None):
+def _message(mode, status, objective, bound, gap, cost, n, total, solver, target=None, reason=""):
     share = objective / total if total > 0 else 0.0
-    if status == "empty":
-        if budget is not None and n == 0:
-            return ("No surface is placed: no option fits the budget or none covers a user who needs one "
-                    f"(budget {budget:g}).")
-        return "No surface is placed: no candidate option covers any user who still needs coverage."
+    if n == 0 and reason:
+        return f"No surface is placed: {reason}."
     what = (f"{n} surface(s) costing {cost:g} cover weight {objective:g} ({100 * share:.1f} % of the weight "
             f"that no base station covers directly)")
     if mode == "min_cost":
@@ -954,7 +950,7 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     empty = np.zeros(0, np.int64)
     base = dict(solver=solver, timings_s=t, mode="min_cost" if mode == "min" else "max_coverage")
 
-    def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None):
+    def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, reason=""):
         chosen = red.opt[chosen_red] if len(chosen_red) else empty
         if inst.load_cap is not None:
             covered = _capped_served(inst, red, chosen_red, z)
@@ -969,10 +965,10 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
         if len(chosen):
             rk = rank_chosen(chosen, inst.C, inst.w)
             chosen = rk["option"].to_numpy(np.int64)
-        if len(chosen) == 0 and status in ("optimal",):
-            status = "empty" if not (m == "min_cost" and target > 0) else status
-        msg = _message(m, status, objective, bound, gap, cost, len(chosen), total_w, solver_name, inst.budget,
-                       inst.max_count, target)
+        if len(chosen) == 0 and status == "optimal" and not reason:
+            reason = ("the target is already met without surfaces" if m == "min_cost"
+                      else "no affordable option adds covered weight")
+        msg = _message(m, status, objective, bound, gap, cost, len(chosen), total_w, solver_name, target, reason)
         size = {"raw": raw_size, "reduced": milp.size if milp is not None else {"rows": 0, "cols": 0, "nonzeros": 0}}
         size.update(red.stats)
         size["components"] = _components(red) if reduce else None
@@ -982,14 +978,20 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
 
     n, m = red.C.shape
     if mode == "min" and target <= 0:
-        return plan_from(empty, "optimal", 0.0, 0.0, solver)
-    if n == 0 or m == 0 or (mode == "max" and (inst.max_count == 0 or (inst.budget is not None and red.c.min() > inst.budget))):
+        return plan_from(empty, "optimal", 0.0, 0.0, solver, reason="the target weight is already met")
+    if n == 0 or m == 0:
         if mode == "min":
             raise SolverError(
                 f"no plan can cover the target weight {target:g}: no candidate option covers a user who needs "
                 f"coverage; lower the target or add candidate spots"
             )
-        return plan_from(empty, "optimal", 0.0, 0.0, solver)
+        return plan_from(empty, "empty", 0.0, 0.0, solver,
+                         reason="no candidate option covers any user who still needs coverage")
+    if mode == "max" and inst.max_count == 0:
+        return plan_from(empty, "optimal", 0.0, 0.0, solver, reason="the panel count is 0")
+    if mode == "max" and inst.budget is not None and red.c.min() > inst.budget:
+        return plan_from(empty, "optimal", 0.0, 0.0, solver,
+                         reason=f"the budget {inst.budget:g} is below the cheapest useful option ({red.c.min():g})")
 
     # warm start
     t1 = time.perf_counter()

@@ -1,0 +1,478 @@
+"""Tests of siting.optimize against references outside the module.
+
+References used:
+* brute force over all option subsets (or all user assignments, for the load cap) on small random
+  instances: the exact optimum by definition;
+* PySAL spopt's maximal covering location model: S. J. Rey et al., "spopt: a python package for solving
+  spatial optimization problems in PySAL", Journal of Open Source Software 7(74), 3330, 2022,
+  DOI 10.21105/joss.03330 (``spopt.locate.MCLP``);
+* LP duality: the LP relaxation optimum bounds the integer optimum from above, any feasible plan (greedy)
+  from below;
+* HiGHS reading back the LP file written through PuLP;
+* properties of the greedy ranking (the classic marginal-gain order) and of backups.
+All random instances are seeded; hypothesis runs derandomized.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.sparse as sp
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from siting import optimize as opt
+from siting.errors import SitingError, SolverError
+
+HYP = settings(derandomize=True, max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+# ---------------------------------------------------------------------------------------------------
+# instances and brute-force references
+# ---------------------------------------------------------------------------------------------------
+
+
+def make_instance(seed, n_sites=5, max_sizes=3, n_users=9, density=0.3, integer=True):
+    """Random instance: sites with 1..max_sizes sizes; a larger size usually covers a superset, not always."""
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(1, max_sizes + 1, n_sites)
+    site = np.repeat(np.arange(n_sites), sizes)
+    n = len(site)
+    base = rng.random((n_sites, n_users)) < density
+    rows, cost = [], []
+    for s in range(n_sites):
+        cov = base[s].copy()
+        for k in range(sizes[s]):
+            if k:
+                cov = cov | (rng.random(n_users) < density / 2)  # grow
+                if rng.random() < 0.3:  # sometimes a larger size loses a user (not a superset)
+                    on = np.flatnonzero(cov)
+                    if len(on):
+                        cov[rng.choice(on)] = False
+            rows.append(cov.copy())
+            cost.append(float(rng.integers(1, 4) + 2 * k))
+    C = np.array(rows, bool).reshape(n, n_users)
+    w = rng.integers(0, 6, n_users).astype(float) if integer else rng.random(n_users) * 5
+    return sp.csr_array(C), w, np.array(cost), site
+
+
+def all_subsets(n):
+    return ((np.arange(2**n)[:, None] >> np.arange(n)) & 1).astype(bool)
+
+
+def brute_force(C, w, c, site, budget=None, max_count=None, conflicts=None):
+    """Every feasible subset's covered weight and cost (exhaustive, vectorised)."""
+    D = C.toarray().astype(int)
+    X = all_subsets(D.shape[0])
+    ok = np.ones(len(X), bool)
+    if budget is not None:
+        ok &= X @ c <= budget + 1e-9
+    if max_count is not None:
+        ok &= X.sum(1) <= max_count
+    S = (site[None, :] == np.unique(site)[:, None]).astype(int)  # sites x options
+    ok &= (X @ S.T <= 1).all(1)
+    for a, b in conflicts if conflicts is not None else []:
+        ok &= (X[:, site == a].sum(1) + X[:, site == b].sum(1)) <= 1
+    covered = (X.astype(int) @ D) > 0
+    return covered @ w, X @ c, ok
+
+
+def brute_force_capped(C, w, c, site, cap, budget=None, max_count=None):
+    """Best total weight when each user goes to at most one chosen surface, each surface carrying <= cap."""
+    D = C.toarray()
+    n, m = D.shape
+    choices = [[-1] + list(np.flatnonzero(D[:, i])) for i in range(m)]
+    best = 0.0
+    for assign in itertools.product(*choices):
+        a = np.array(assign)
+        used = np.unique(a[a >= 0])
+        load = np.bincount(a[a >= 0], weights=w[a >= 0], minlength=n)
+        if (load > cap + 1e-9).any():
+            continue
+        if budget is not None and c[used].sum() > budget + 1e-9:
+            continue
+        if max_count is not None and len(used) > max_count:
+            continue
+        if len(np.unique(site[used])) < len(used):
+            continue
+        best = max(best, float(w[a >= 0].sum()))
+    return best
+
+
+seeds = st.integers(0, 2**31 - 1)
+
+
+# ---------------------------------------------------------------------------------------------------
+# optimum against brute force (exhaustive reference), for each mode
+# ---------------------------------------------------------------------------------------------------
+
+
+@HYP
+@given(seed=seeds, budget=st.integers(0, 14), n_sites=st.integers(1, 6))
+def test_budget_optimum_matches_brute_force(seed, budget, n_sites):
+    C, w, c, site = make_instance(seed, n_sites=n_sites)
+    if C.shape[0] > 12:
+        C, c, site = C[:12], c[:12], site[:12]
+    val, cost, ok = brute_force(C, w, c, site, budget=budget)
+    best = val[ok].max()
+    for reduce in (True, False):  # reductions never change the optimum
+        p = opt.solve_coverage(C, w, c, site, budget=budget, reduce=reduce)
+        assert p.objective == pytest.approx(best)
+        assert p.cost <= budget + 1e-9
+        assert p.status in ("optimal", "empty")
+        assert p.bound == pytest.approx(best)  # integral weights: the bound closes exactly
+        # ties broken toward lower cost: no optimal subset is cheaper
+        assert p.cost == pytest.approx(cost[ok & (val >= best - 1e-9)].min())
+    # greedy <= optimum <= LP relaxation (weak duality)
+    g = opt.greedy(C, w, c, site, budget=budget)
+    gval = w[(C[g].sum(0) > 0)].sum() if len(g) else 0.0
+    assert gval <= best + 1e-9
+    assert opt.lp_relaxation_bound(C, w, c, site, budget=budget) >= best - 1e-7
+
+
+@HYP
+@given(seed=seeds, count=st.integers(0, 4))
+def test_count_optimum_matches_brute_force(seed, count):
+    C, w, c, site = make_instance(seed, n_sites=5, max_sizes=2)
+    val, _, ok = brute_force(C, w, c, site, max_count=count)
+    for reduce in (True, False):
+        p = opt.solve_coverage(C, w, c, site, max_count=count, reduce=reduce)
+        assert p.objective == pytest.approx(val[ok].max())
+        assert len(p.chosen) <= count
+
+
+@HYP
+@given(seed=seeds, budget=st.integers(2, 12), data=st.data())
+def test_conflicts_optimum_matches_brute_force(seed, budget, data):
+    C, w, c, site = make_instance(seed, n_sites=6, max_sizes=2)
+    pairs = data.draw(st.lists(st.tuples(st.integers(0, 5), st.integers(0, 5)), max_size=5))
+    conflicts = np.array([p for p in pairs if p[0] != p[1]], np.int64).reshape(-1, 2)
+    val, _, ok = brute_force(C, w, c, site, budget=budget, conflicts=conflicts)
+    p = opt.solve_coverage(C, w, c, site, budget=budget, conflicts=conflicts)
+    assert p.objective == pytest.approx(val[ok].max())
+    chosen_sites = set(site[p.chosen].tolist())
+    assert not any(a in chosen_sites and b in chosen_sites for a, b in conflicts)
+    g = opt.greedy(C, w, c, site, budget=budget, conflicts=conflicts)
+    assert not any(a in set(site[g]) and b in set(site[g]) for a, b in conflicts)
+
+
+@settings(derandomize=True, max_examples=20, deadline=None)
+@given(seed=seeds, cap=st.integers(1, 8), count=st.one_of(st.none(), st.integers(1, 3)))
+def test_load_cap_optimum_matches_brute_force(seed, cap, count):
+    # tiny: the reference enumerates every user -> surface assignment
+    C, w, c, site = make_instance(seed, n_sites=3, max_sizes=2, n_users=5, density=0.5)
+    w = np.minimum(w, 4.0)
+    w[:2] = w[0]  # identical weights exercise the merged integer classes
+    best = brute_force_capped(C, w, c, site, cap, budget=7, max_count=count)
+    for reduce in (True, False):
+        p = opt.solve_coverage(C, w, c, site, budget=7, max_count=count, load_cap=float(cap), reduce=reduce)
+        assert p.objective == pytest.approx(best)
+        # served users are covered by a chosen surface
+        assert not (p.covered & (C[p.chosen].sum(0) == 0 if len(p.chosen) else True)).any()
+
+
+@HYP
+@given(seed=seeds, share=st.floats(0.0, 1.0))
+def test_min_cost_matches_brute_force(seed, share):
+    C, w, c, site = make_instance(seed, n_sites=5, max_sizes=2)
+    val, cost, ok = brute_force(C, w, c, site)
+    target = share * val[ok].max()
+    p = opt.min_cost_cover(C, w, c, site, target)
+    assert p.objective >= target - 1e-9
+    assert p.cost == pytest.approx(cost[ok & (val >= target - 1e-9)].min())
+    assert p.mode == "min_cost" and p.bound <= p.cost + 1e-9
+
+
+def test_min_cost_unreachable_target_raises():
+    C, w, c, site = make_instance(3)
+    with pytest.raises(SolverError, match="target"):
+        opt.min_cost_cover(C, w, c, site, w.sum() + 1)
+
+
+def test_real_valued_weights_optimum():
+    # non-integral weights: bound is not rounded, objective still exact (brute force)
+    C, w, c, site = make_instance(11, n_sites=6, integer=False)
+    C, c, site = C[:12], c[:12], site[:12]
+    val, _, ok = brute_force(C, w, c, site, budget=9)
+    p = opt.solve_coverage(C, w, c, site, budget=9, mip_rel_gap=0)
+    assert p.objective == pytest.approx(val[ok].max())
+    assert p.bound >= p.objective - 1e-12 and p.gap < 1e-6
+
+
+# ---------------------------------------------------------------------------------------------------
+# reductions
+# ---------------------------------------------------------------------------------------------------
+
+
+def test_dominance_is_checked_not_assumed():
+    # site 0: the large panel (option 1) misses user 0 that the small one covers: both must stay
+    C = sp.csr_array(np.array([[1, 1, 0], [0, 1, 1], [1, 1, 1], [0, 0, 1]], bool))
+    c = np.array([1.0, 2.0, 5.0, 1.0])
+    site = np.array([0, 0, 1, 1])
+    w = np.array([3.0, 1.0, 2.0])
+    inst = opt._validate(C, w, c, site)
+    red = opt._reduce(inst, True)
+    # option 3 (site 1) covers a subset of option 2 but is cheaper: kept; nothing at site 0 dominated
+    assert set(red.opt.tolist()) == {0, 1, 2, 3}
+    # a cheaper superset at the same site removes the costlier subset
+    c2 = np.array([1.0, 2.0, 1.0, 1.0])
+    red2 = opt._reduce(opt._validate(C, w, c2, site), True)
+    assert 3 not in red2.opt.tolist() and 2 in red2.opt.tolist()
+    # budget 1 -> best is option 0 (weight 4): the reduced model agrees with brute force
+    val, _, ok = brute_force(C, w, c, site, budget=1)
+    assert opt.solve_coverage(C, w, c, site, budget=1).objective == val[ok].max() == 4.0
+
+
+def test_merge_and_drop_users_reduce_the_model():
+    C, w, c, site = make_instance(5, n_sites=6, n_users=40, density=0.2)
+    p_raw = opt.solve_coverage(C, w, c, site, budget=10, reduce=False)
+    p = opt.solve_coverage(C, w, c, site, budget=10)
+    assert p.objective == p_raw.objective
+    assert p.model_size["reduced"]["rows"] < p_raw.model_size["reduced"]["rows"]
+    assert p.model_size["users_merged"] + p.model_size["users_dropped"] > 0
+
+
+def test_load_cap_merge_keeps_identical_users_splittable():
+    # two users of weight 1 with identical covering sets, cap 1: each surface serves one of them
+    C = sp.csr_array(np.array([[1, 1], [1, 1]], bool))
+    p = opt.solve_coverage(C, np.ones(2), np.ones(2), np.array([0, 1]), load_cap=1.0)
+    assert p.objective == 2.0 == brute_force_capped(C, np.ones(2), np.ones(2), np.array([0, 1]), 1.0)
+
+
+# ---------------------------------------------------------------------------------------------------
+# external model (spopt MCLP) and solver agreement
+# ---------------------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_matches_spopt_mclp(seed):
+    import pulp
+    from spopt.locate import MCLP
+
+    rng = np.random.default_rng(seed)
+    n_sites, n_users, p_fac = 10, 30, 3
+    D = rng.random((n_sites, n_users)) < 0.2
+    w = rng.integers(1, 10, n_users).astype(float)
+    # spopt (Rey et al., JOSS 2022, DOI 10.21105/joss.03330): users x sites "distance" 0 (covered) / 1
+    dist = np.where(D.T, 0.0, 1.0)
+    mclp = MCLP.from_cost_matrix(dist, w, service_radius=0.5, p_facilities=p_fac)
+    mclp = mclp.solve(pulp.HiGHS(msg=False))
+    ref = float(pulp.value(mclp.problem.objective))
+    p = opt.solve_coverage(sp.csr_array(D), w, np.ones(n_sites), np.arange(n_sites), max_count=p_fac)
+    assert p.objective == pytest.approx(ref)
+
+
+@pytest.mark.parametrize("seed", [0, 7])
+def test_highs_and_cbc_agree(seed):
+    C, w, c, site = make_instance(seed, n_sites=8, n_users=30)
+    for kw in (dict(budget=9), dict(max_count=3, conflicts=[[0, 1], [2, 3]]), dict(budget=9, load_cap=6.0)):
+        a = opt.solve_coverage(C, w, c, site, solver="highs", **kw)
+        b = opt.solve_coverage(C, w, c, site, solver="cbc", time_limit_s=30, **kw)
+        assert a.objective == pytest.approx(b.objective)
+        assert b.status == "optimal" and b.solver == "cbc"
+    a = opt.min_cost_cover(C, w, c, site, 0.5 * w.sum(), solver="highs")
+    b = opt.min_cost_cover(C, w, c, site, 0.5 * w.sum(), solver="cbc")
+    assert a.cost == pytest.approx(b.cost)
+
+
+def test_lp_file_round_trip_through_highs(tmp_path):
+    import highspy
+
+    C, w, c, site = make_instance(4, n_sites=6, n_users=20)
+    path = opt.write_lp(tmp_path / "m.lp", C, w, c, site, budget=8)
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    h.readModel(str(path))
+    h.run()
+    p = opt.solve_coverage(C, w, c, site, budget=8)
+    # the file's objective carries the tiny tie-break cost term
+    assert -h.getInfo().objective_function_value == pytest.approx(p.objective, abs=1e-3)
+
+
+# ---------------------------------------------------------------------------------------------------
+# edge cases, status handling, determinism
+# ---------------------------------------------------------------------------------------------------
+
+
+def test_budget_below_cheapest_option_is_an_optimal_empty_plan():
+    C, w, c, site = make_instance(1)
+    p = opt.solve_coverage(C, w, c, site, budget=0.5 * c.min())
+    assert p.status == "optimal" and len(p.chosen) == 0 and p.objective == 0 and p.cost == 0
+    assert "budget" in p.message and not p.covered.any()
+
+
+def test_no_options_and_zero_weights_and_single_user():
+    p = opt.solve_coverage(sp.csr_array((0, 4), dtype=bool), np.ones(4), np.zeros(0), np.zeros(0, int), budget=3)
+    assert p.status == "empty" and len(p.chosen) == 0 and p.covered.shape == (4,)
+    C, w, c, site = make_instance(2)
+    p = opt.solve_coverage(C, np.zeros_like(w), c, site, budget=5)
+    assert p.status == "empty" and p.objective == 0 and len(p.chosen) == 0
+    one = sp.csr_array(np.array([[1], [1], [0]], bool))
+    p = opt.solve_coverage(one, np.array([2.0]), np.array([3.0, 1.0, 1.0]), np.array([0, 1, 2]), budget=5)
+    assert p.objective == 2.0 and p.chosen.tolist() == [1]  # the cheaper of the two covering options
+
+
+def test_everything_already_covered_via_tables():
+    C, w, c, site = make_instance(3)
+    options, coverage, users, direct = to_tables(C, w, c, site)
+    direct["covered"] = True
+    p = opt.solve_tables(options, coverage, users, direct, budget=10)
+    assert p.status == "empty" and len(p.chosen) == 0 and p.objective == 0
+    assert p.model_size["direct_weight"] == pytest.approx(w.sum())
+
+
+def test_deterministic():
+    C, w, c, site = make_instance(9, n_sites=30, n_users=200, density=0.1)
+    a = opt.solve_coverage(C, w, c, site, budget=20)
+    b = opt.solve_coverage(C, w, c, site, budget=20)
+    assert a.chosen.tolist() == b.chosen.tolist() and a.objective == b.objective
+    assert opt.greedy(C, w, c, site, budget=20).tolist() == opt.greedy(C, w, c, site, budget=20).tolist()
+
+
+def test_time_limited_plan_is_usable_and_never_below_greedy():
+    # adversarial: uniform random coverage, far too short a limit to prove optimality
+    rng = np.random.default_rng(5)
+    n, m = 600, 3000
+    C = sp.random_array((n, m), density=0.02, random_state=rng).astype(bool)
+    w = rng.integers(1, 10, m).astype(float)
+    c = rng.integers(1, 5, n).astype(float)
+    p = opt.solve_coverage(C, w, c, np.arange(n), budget=40, time_limit_s=0.3)
+    assert p.status in ("time_limit", "greedy_only", "optimal")
+    assert p.objective >= p.greedy_objective - 1e-9
+    assert p.bound >= p.objective and 0 <= p.gap < 1
+    assert p.cost <= 40 + 1e-9
+    assert str(round(100 * p.gap, 1))[:1] in p.message or p.status == "optimal"
+
+
+def test_budget_sweep_matches_single_solves():
+    C, w, c, site = make_instance(8, n_sites=8, n_users=30)
+    budgets = [12, 0, 3, 6]
+    df = opt.budget_sweep(C, w, c, site, budgets)
+    assert list(df.columns) == ["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"]
+    assert df["budget"].tolist() == budgets
+    for b, v in zip(df["budget"], df["covered_weight"]):
+        assert v == pytest.approx(opt.solve_coverage(C, w, c, site, budget=b).objective)
+    s = df.sort_values("budget")["covered_weight"].to_numpy()
+    assert np.all(np.diff(s) >= 0)  # coverage never falls as the budget grows (feasible sets nest)
+
+
+# ---------------------------------------------------------------------------------------------------
+# ranking and backups (properties)
+# ---------------------------------------------------------------------------------------------------
+
+
+def test_ranking_properties():
+    C, w, c, site = make_instance(12, n_sites=12, n_users=60, density=0.15)
+    p = opt.solve_coverage(C, w, c, site, budget=15)
+    r = opt.rank_chosen(p.chosen, C, w)
+    assert r["option"].tolist() == p.chosen.tolist()  # plan comes in rank order
+    assert r["rank"].tolist() == list(range(1, len(r) + 1))
+    assert r["cumulative_weight"].iloc[-1] == pytest.approx(p.objective)
+    assert np.all(np.diff(r["marginal_weight"]) <= 1e-9)  # greedy order: gains never rise (submodularity)
+    D = C.toarray()
+    sub = D[p.chosen]
+    cnt = sub.sum(0)
+    for j, e, s_ in zip(r["option"], r["exclusive_weight"], r["shared_weight"]):
+        assert e == pytest.approx(w[D[j] & (cnt == 1)].sum())
+        assert e + s_ == pytest.approx(w[D[j]].sum())
+    # first row = the chosen option with the largest covered weight
+    assert r["marginal_weight"].iloc[0] == pytest.approx(max(w[D[j]].sum() for j in p.chosen))
+
+
+def test_backup_properties():
+    C, w, c, site = make_instance(13, n_sites=15, n_users=60, density=0.15)
+    p = opt.solve_coverage(C, w, c, site, budget=12)
+    b = opt.backups_for(p.chosen, C, w, c, site, k=3)
+    assert list(b.columns) == ["option", "backup_rank", "backup_option", "recovered_weight"]
+    assert len(b) > 0
+    D = C.toarray()
+    cnt = D[p.chosen].sum(0)
+    for opt_j, grp in b.groupby("option"):
+        assert len(grp) <= 3 and grp["backup_rank"].tolist() == list(range(1, len(grp) + 1))
+        assert np.all(np.diff(grp["recovered_weight"]) <= 1e-12)
+        excl = D[opt_j] & (cnt == 1)
+        for a, v in zip(grp["backup_option"], grp["recovered_weight"]):
+            assert a not in p.chosen and site[a] not in set(site[p.chosen])
+            assert c[a] <= c[opt_j]
+            assert v == pytest.approx(w[excl & D[a]].sum()) and v > 0
+        assert grp["backup_option"].map(lambda a: site[a]).is_unique  # one size per backup spot
+
+
+# ---------------------------------------------------------------------------------------------------
+# table adapter and bad input
+# ---------------------------------------------------------------------------------------------------
+
+
+def to_tables(C, w, c, site):
+    coo = sp.coo_array(C)
+    options = pd.DataFrame({"option_id": np.arange(C.shape[0]), "site_id": site.astype(np.int64),
+                            "size_id": ["s"] * C.shape[0], "cost": c})
+    coverage = pd.DataFrame({"option_id": coo.row.astype(np.int64), "user_id": coo.col.astype(np.int64),
+                             "snr_db": np.full(coo.nnz, 10.0), "bs_idx": np.zeros(coo.nnz, np.int64)})
+    m = C.shape[1]
+    users = pd.DataFrame({"user_id": np.arange(m), "x": np.zeros(m), "y": np.zeros(m), "z_m": np.full(m, 1.5),
+                          "weight": w, "kind": ["street"] * m, "building_idx": np.full(m, -1),
+                          "normal_az_deg": np.full(m, np.nan)})
+    direct = pd.DataFrame({"user_id": np.arange(m), "snr_db": np.full(m, -5.0), "bs_idx": np.zeros(m, np.int64),
+                           "los": np.zeros(m, bool), "covered": np.zeros(m, bool)})
+    return options, coverage, users, direct
+
+
+def test_solve_tables_treats_directly_covered_users_as_constants():
+    C, w, c, site = make_instance(6, n_sites=6, n_users=20)
+    options, coverage, users, direct = to_tables(C, w, c, site)
+    direct.loc[direct["user_id"] < 5, "covered"] = True
+    p = opt.solve_tables(options, coverage, users, direct, budget=8)
+    D = C.toarray().copy()
+    D[:, :5] = False
+    val, _, ok = brute_force(sp.csr_array(D), w, c, site, budget=8)
+    assert p.objective == pytest.approx(val[ok].max())
+    assert not p.covered[:5].any()
+    q = opt.solve_tables(options, coverage, users, direct, target_share=0.6)
+    assert q.objective + w[:5].sum() >= 0.6 * w.sum() - 1e-9
+
+
+@pytest.mark.parametrize(
+    "change, match",
+    [
+        (dict(weight=np.ones(3)), "weight"),  # wrong length
+        (dict(cost=-np.ones(4)), "cost"),  # negative cost
+        (dict(weight=np.array([1.0, np.nan, 1.0, 1.0, 1.0])), "NaN"),
+        (dict(weight=np.array([1.0, -1.0, 1.0, 1.0, 1.0])), "weight"),
+        (dict(option_site=np.array([0, 1, 2])), "option_site"),
+        (dict(budget=-1.0), "budget"),
+        (dict(max_count=1.5), "max_count"),
+        (dict(conflicts=np.array([1, 2, 3])), "conflicts"),
+        (dict(solver="gurobi"), "solver"),
+        (dict(load_cap=np.nan), "load_cap"),
+        (dict(cover=np.ones((2, 2, 2))), "cover"),
+    ],
+)
+def test_bad_input_is_rejected_with_a_clear_message(change, match):
+    args = dict(cover=sp.csr_array(np.eye(4, 5, dtype=bool)), weight=np.ones(5), cost=np.ones(4),
+                option_site=np.arange(4))
+    kw = {k: v for k, v in change.items() if k not in args}
+    args.update({k: v for k, v in change.items() if k in args})
+    with pytest.raises(SitingError, match=match):
+        opt.solve_coverage(args["cover"], args["weight"], args["cost"], args["option_site"], **kw)
+
+
+def test_conflicts_across_walls_are_rejected():
+    C = sp.csr_array(np.eye(3, dtype=bool))
+    with pytest.raises(SitingError, match="different walls"):
+        opt.solve_coverage(C, np.ones(3), np.ones(3), np.arange(3), conflicts=[[0, 1]],
+                           option_wall=np.array([7, 8, 8]))
+
+
+def test_bad_tables_are_rejected():
+    C, w, c, site = make_instance(3)
+    options, coverage, users, direct = to_tables(C, w, c, site)
+    with pytest.raises(SitingError, match="options"):
+        opt.solve_tables(options.drop(columns="cost"), coverage, users, direct)
+    bad = coverage.copy()
+    bad.loc[0, "user_id"] = 999
+    with pytest.raises(SitingError, match="out of range"):
+        opt.solve_tables(options, bad, users, direct)
