@@ -24,8 +24,9 @@ A usable piece of length ``L`` carries ``n = max(1, floor(L / spacing_m))`` posi
 from its start for ``k = 0..n-1``: evenly spaced, each in the middle of an equal share of the piece, so the
 set is centred on the piece.  Spots sit ``offset_m`` outward from the wall at every mounting height that is at
 most ``height_m - roof_margin_m`` of the carrying building.  A spot is dropped when the segment from its wall
-point to ``front_clear_m`` in front of it touches another building, or when simplification put it inside its
-own footprint.
+point to ``front_clear_m`` in front of it touches another building, when its own building lies within
+``front_clear_m`` in front of it (a notch or courtyard narrower than that), or when simplification put it inside
+its own footprint.
 
 Demand points
 -------------
@@ -154,9 +155,11 @@ def _party_cuts(p0, p1, seg_b, length, unit, geoms, party_gap_m):
     seg_lines = shapely.linestrings(np.stack([p0, p1], axis=1))
     zone = shapely.buffer(geoms, party_gap_m) if party_gap_m > 0 else geoms
     tree = shapely.STRtree(zone)
-    si, bj = tree.query(seg_lines, predicate="intersects")
+    si, bj = tree.query(seg_lines)  # bounding boxes only; the own building (always a hit) is dropped first
     other = bj != seg_b[si]
     si, bj = si[other], bj[other]
+    hit = shapely.intersects(seg_lines[si], zone[bj])
+    si, bj = si[hit], bj[hit]
     if len(si) == 0:
         return np.zeros(0, np.int64), np.zeros(0), np.zeros(0)
     inter = shapely.intersection(seg_lines[si], zone[bj])
@@ -296,7 +299,7 @@ def facade_spots(buildings, *, spacing_m: float = 5.0, mount_heights_m=(4.0, 8.0
     roof_margin_m : least distance between a spot and the roof [m].
     offset_m : outward offset of a spot from its wall [m].
     party_gap_m : wall parts within this distance of another building get no spot [m].
-    front_clear_m : the first ``front_clear_m`` in front of a spot must not touch another building [m].
+    front_clear_m : the first ``front_clear_m`` in front of a spot must not touch any building [m].
     min_wall_m : usable pieces shorter than this (the narrowest panel) get no spot [m].
     simplify_m : tolerance [m] removing near-collinear vertices (``shapely.simplify``).
 
@@ -331,29 +334,39 @@ def facade_spots(buildings, *, spacing_m: float = 5.0, mount_heights_m=(4.0, 8.0
                              "check that coordinates are in metres, or lower min_wall_m / candidates.party_gap_m")
 
     piece, t = _positions(w["length"], spacing_m)
-    # every position at every mounting height that fits below the roof of its building
     fits = hts[None, :] <= (height[w["b"][piece]] - roof_margin_m)[:, None] + 1e-9
-    pos_i, h_i = np.nonzero(fits)
-    if len(pos_i) == 0:
+    if not fits.any():
         raise InputDataError(f"{where}: no building is tall enough for a spot: the lowest mounting height "
                              f"{hts.min():g} m plus roof_margin_m {roof_margin_m:g} m exceeds every height_m "
                              f"(max {height.max():g} m); lower candidates.mount_heights_m or roof_margin_m")
-    piece, t, z = piece[pos_i], t[pos_i], hts[h_i]
+    keep = fits.any(axis=1)  # positions (all heights) on buildings tall enough for at least one height
+    piece, t, fits = piece[keep], t[keep], fits[keep]
     b = w["b"][piece]
     nrm = w["normal"][piece]
     wall_pt = w["q0"][piece] + t[:, None] * w["unit"][piece]
     spot = wall_pt + offset_m * nrm
 
     keep = np.ones(len(piece), bool)
-    if len(geoms) > 1 and (front_clear_m > 0 or offset_m > 0):
-        front = shapely.linestrings(np.stack([wall_pt, spot + front_clear_m * nrm], axis=1))
-        si, bj = shapely.STRtree(geoms).query(front, predicate="intersects")
-        hit = bj != b[si]
-        keep[si[hit]] = False
+    if front_clear_m > 0 or offset_m > 0:
+        end = spot + front_clear_m * nrm
+        front = shapely.linestrings(np.stack([wall_pt, end], axis=1))
+        si, bj = shapely.STRtree(geoms).query(front)  # bounding boxes; the own building is handled below
+        other = bj != b[si]
+        si, bj = si[other], bj[other]
+        keep[si[shapely.intersects(front[si], geoms[bj])]] = False
+        # the own building can only lie in front of its own wall where it is not convex (notch, courtyard)
+        area = shapely.area(geoms)
+        concave = shapely.area(shapely.convex_hull(geoms)) - area > 1e-9 * np.maximum(area, 1.0)
+        own = np.flatnonzero(keep & concave[b])
+        if len(own):
+            ahead = shapely.linestrings(np.stack([spot[own], end[own]], axis=1))
+            keep[own[shapely.intersects(ahead, geoms[b[own]])]] = False
     # simplification can move a wall inward by up to simplify_m: never leave a spot inside its own footprint
     keep &= ~shapely.intersects_xy(geoms[b], spot[:, 0], spot[:, 1])
 
-    piece, b, nrm, spot, z = piece[keep], b[keep], nrm[keep], spot[keep], z[keep]
+    # every kept position at every mounting height that fits below the roof of its building
+    pos_i, h_i = np.nonzero(fits & keep[:, None])
+    piece, b, nrm, spot, z = piece[pos_i], b[pos_i], nrm[pos_i], spot[pos_i], hts[h_i]
     n = len(piece)
     out = pd.DataFrame({
         "site_id": np.arange(n, dtype=np.int64),
@@ -498,19 +511,37 @@ def street_grid(buildings, area=None, *, grid_m: float = 5.0, height_m: float = 
         raise InputDataError(f"{where}: the area of interest holds {len(ix) * len(iy):,} grid points at grid_m = "
                              f"{grid_m:g} m; expected at most 50,000,000. Tile the city or raise demand.grid_m")
     gx, gy = np.meshgrid(ix * grid_m, iy * grid_m)
-    gx, gy = gx.ravel(), gy.ravel()
     shapely.prepare(area)
     inside = shapely.contains_xy(area, gx, gy)
-    gx, gy = gx[inside], gy[inside]
-    pts = shapely.points(gx, gy)
+    # grid cells under some building's bounding box grown by the clearance (2-D difference array, no loop):
+    # only those points need an exact distance test, the rest are free
+    if len(ix) and len(iy):
+        c = clearance_m
+        bx0, by0, bx1, by1 = shapely.bounds(geoms).T
+        jx0 = np.clip(np.ceil((bx0 - c) / grid_m) - ix[0], 0, len(ix)).astype(np.int64)
+        jx1 = np.clip(np.floor((bx1 + c) / grid_m) - ix[0] + 1, 0, len(ix)).astype(np.int64)
+        jy0 = np.clip(np.ceil((by0 - c) / grid_m) - iy[0], 0, len(iy)).astype(np.int64)
+        jy1 = np.clip(np.floor((by1 + c) / grid_m) - iy[0] + 1, 0, len(iy)).astype(np.int64)
+        ok = (jx1 > jx0) & (jy1 > jy0)
+        diff = np.zeros((len(iy) + 1, len(ix) + 1), np.int32)
+        for r, cc, v in ((jy0, jx0, 1), (jy0, jx1, -1), (jy1, jx0, -1), (jy1, jx1, 1)):
+            np.add.at(diff, (r[ok], cc[ok]), v)
+        near = diff.cumsum(0).cumsum(1)[:-1, :-1] > 0
+    else:
+        near = np.zeros(gx.shape, bool)
+    free = inside & ~near
+    cand_i = np.flatnonzero(inside & near)
+    pts = shapely.points(gx.ravel()[cand_i], gy.ravel()[cand_i])
     tree = shapely.STRtree(geoms)
     if clearance_m > 0:
         pi, _ = tree.query(pts, predicate="dwithin", distance=clearance_m)
     else:
         pi, _ = tree.query(pts, predicate="intersects")
-    free = np.ones(len(pts), bool)
-    free[pi] = False
-    return _users(gx[free], gy[free], height_m, weight_per_point, "street", where=where)
+    ok_c = np.ones(len(cand_i), bool)
+    ok_c[pi] = False
+    free.ravel()[cand_i[ok_c]] = True
+    sel = np.flatnonzero(free.ravel())  # row-major: sorted by y, then x, as before
+    return _users(gx.ravel()[sel], gy.ravel()[sel], height_m, weight_per_point, "street", where=where)
 
 
 def facade_homes(buildings, *, storey_height_m: float = 3.0, window_height_m: float = 1.5,

@@ -160,9 +160,11 @@ def box_districts(draw):
         ang = draw(st.floats(0, 180))
         p = shapely.affinity.rotate(box(-w / 2, -d / 2, w / 2, d / 2), ang, origin=(0, 0))
         polys.append(shapely.affinity.translate(p, X0 + cx, Y0 + cy))
-    if draw(st.booleans()):  # an L: union of the first box with an overlapping arm
-        arm = shapely.affinity.translate(box(0, 0, 3, 15), X0 + draw(st.floats(0, 60)), Y0 + draw(st.floats(0, 60)))
-        u = shapely.union(polys[0], arm)
+    if draw(st.booleans()):  # a non-convex building: the first box plus an arm from its centre at any angle
+        c = polys[0].centroid
+        arm = shapely.affinity.rotate(box(0, -1.5, draw(st.floats(8, 20)), 1.5), draw(st.floats(0, 360)),
+                                      origin=(0, 0))
+        u = shapely.union(polys[0], shapely.affinity.translate(arm, c.x, c.y))
         if u.geom_type == "Polygon":
             polys[0] = shapely.set_precision(u, 1e-6)
     return canonical._frame(polys, [20.0] * len(polys))
@@ -186,10 +188,10 @@ def test_property_spots_outside_all_footprints_facing_away(b):
     d = shapely.distance(own, pts)
     assert _allclose(d, 0.05)  # offset from its own wall
     n = _unit(s.normal_az_deg)
-    # the normal points away from the own building: stepping along it increases the distance, stepping back
-    # by the offset plus 1 cm lands inside the material
-    ahead = shapely.distance(own, shapely.points(s.x + 0.5 * n[:, 0], s.y + 0.5 * n[:, 1]))
-    assert (ahead > d + 0.4).all()
+    # the normal points away from the own building: a 2 cm step along it increases the distance by 2 cm (the
+    # nearest point stays on the same wall), stepping back by the offset plus 1 cm lands inside the material
+    ahead = shapely.distance(own, shapely.points(s.x + 0.02 * n[:, 0], s.y + 0.02 * n[:, 1]))
+    assert _allclose(ahead, d + 0.02)
     assert shapely.contains_xy(own, s.x - 0.06 * n[:, 0], s.y - 0.06 * n[:, 1]).all()
 
 
