@@ -1,0 +1,395 @@
+"""The plan report (self-contained HTML and Markdown) and the machine-readable ``run.json`` record.
+
+Every number the report prints comes from :class:`~siting.outputs.derive.PlanFigures` and is formatted by
+:func:`fmt`, so a reader can compare the report, ``run.json``, the survey list and the layers line by line.
+In the HTML each key figure carries ``data-key="<run.json summary key>"``.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import importlib.metadata
+import math
+import platform
+
+import numpy as np
+import pandas as pd
+
+from .derive import PlanFigures
+
+# (summary key, label, kind); kinds: weight, share, cost, int, db, num, text
+KEY_FIGURES = (
+    ("total_weight", "Total demand weight", "weight"),
+    ("n_users", "Demand points", "int"),
+    ("covered_weight_before", "Covered weight without surfaces", "weight"),
+    ("covered_share_before", "Covered share without surfaces", "share"),
+    ("covered_weight_after", "Covered weight with the plan", "weight"),
+    ("covered_share_after", "Covered share with the plan", "share"),
+    ("newly_covered_weight", "Newly covered weight", "weight"),
+    ("n_users_newly_covered", "Newly covered demand points", "int"),
+    ("n_sites_chosen", "Surfaces chosen", "int"),
+    ("plan_cost", "Cost of the plan", "cost"),
+    ("budget", "Budget", "cost"),
+    ("budget_used_share", "Share of the budget used", "share"),
+    ("max_panels", "Panel count limit", "int"),
+    ("snr_target_db", "SNR target [dB]", "db"),
+    ("status", "Solver status", "text"),
+    ("solver", "Solver", "text"),
+    ("objective", "Objective (weight the solver maximised)", "num"),
+    ("bound", "Proven upper bound on the objective", "num"),
+    ("gap", "Optimality gap (as reported by the solver)", "num"),
+    ("greedy_objective", "Greedy baseline objective", "num"),
+)
+
+DECIMALS = {"weight": 2, "share": 1, "cost": 2, "db": 2, "num": 4}
+
+VERSIONED_PACKAGES = ("numpy", "scipy", "pandas", "shapely", "geopandas", "pyproj", "pyogrio", "pulp", "highspy",
+                      "numba", "matplotlib", "siting")
+
+ASSUMPTIONS = (
+    "Coordinates are metres in the job's projected CRS; heights are metres above flat ground.",
+    "Line of sight is 2.5-D: a straight 3-D segment is blocked where it crosses a building footprint below "
+    "the roof height. Vegetation, vehicles and street furniture are not modelled unless the job adds losses.",
+    "The direct path uses the path-loss model named in the parameters (3GPP TR 38.901 UMi-Street Canyon, LOS "
+    "or NLOS decided by the line-of-sight rule rather than drawn at random, or free space), with no shadow "
+    "fading; any planning margin is taken from the parameters.",
+    "A surface contributes only when both of its hops are in line of sight and both angles from the wall "
+    "normal are within the steering limit. Its far-field gain grows with the square of the panel area and "
+    "with cos(incidence) x cos(reflection); inside the Fraunhofer distance 2D\u00b2/\u03bb (D the panel "
+    "diagonal) the panel is split into tiles whose contributions are summed.",
+    "The surface signal is co-phased with the direct signal, so their amplitudes add.",
+    "Noise is -174 dBm/Hz + 10 log10(bandwidth) + noise figure. A point counts as covered when its SNR "
+    "reaches the target.",
+    "A surface is steered to one demand point at a time (time sharing): coverage counts every point that "
+    "reaches the target when served; the time each point gets is not modelled.",
+    "Element counts are given for information at the configured element pitch; the model's gain depends on "
+    "the panel area, its reflection efficiency and the phase quantisation loss.",
+)
+
+CAUTIONS = (
+    "RF exposure: a surface focuses energy on the points it serves. Check field strength near the focus "
+    "points and near the panel against the exposure limits of the local regulation before switching on.",
+    "Work at height: mounting on facades is work at height and must be planned and done by trained, "
+    "licensed installers with the right access equipment.",
+    "Structure: wind and dead loads on the wall and the fixings need a structural / mounting assessment "
+    "for each site.",
+    "Permits: owner consent, building, heritage and telecom permits follow local codes; the survey confirms "
+    "what applies.",
+    "This tool plans; it does not replace local codes or licensed professional practice, which decide.",
+)
+
+
+def fmt(v, kind: str) -> str:
+    """Format a figure for the report; None / NaN / inf print as 'n/a'."""
+    if kind == "text":
+        return str(v) if v not in (None, "") else "n/a"
+    if v is None or (isinstance(v, (float, np.floating)) and not math.isfinite(float(v))):
+        return "n/a"
+    if kind == "int":
+        return str(int(v))
+    if kind == "share":
+        return f"{100 * float(v):.{DECIMALS['share']}f} %"
+    return f"{float(v):.{DECIMALS[kind]}f}"
+
+
+def package_versions() -> dict:
+    """Installed versions of the packages the results depend on (None when not installed)."""
+    out = {"python": platform.python_version()}
+    for name in VERSIONED_PACKAGES:
+        try:
+            out[name] = importlib.metadata.version(name)
+        except importlib.metadata.PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+def flatten(d, prefix: str = "") -> list[tuple[str, object]]:
+    """Nested dict -> [('a.b.c', value)] sorted by key; lists are kept as values."""
+    out = []
+    for k in sorted(d or {}, key=str):
+        v = d[k]
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.extend(flatten(v, key + "."))
+        else:
+            out.append((key, v))
+    return out
+
+
+def jsonable(obj):
+    """Recursively convert to JSON-safe values: numpy scalars and arrays, NaN / inf -> None, keys -> str."""
+    if isinstance(obj, dict):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple, set)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, pd.DataFrame):
+        return [jsonable(r) for r in obj.to_dict("records")]
+    if obj is None or obj is pd.NA:
+        return None
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return float(obj) if math.isfinite(float(obj)) else None
+    if isinstance(obj, str):
+        return obj
+    try:
+        if pd.isna(obj):
+            return None
+    except (TypeError, ValueError):
+        pass
+    return str(obj)
+
+
+# ---------------------------------------------------------------------------------------------- tables
+
+SITE_TABLE = (
+    ("rank", "Rank", "int"), ("site_id", "Site", "int"), ("building_id", "Building", "text"),
+    ("facing", "Facing", "text"), ("facing_deg", "Facing [deg]", "num1"), ("mount_height_m", "Height [m]", "num1"),
+    ("size_id", "Panel", "text"), ("elements", "Elements", "int"), ("cost", "Cost", "cost"),
+    ("marginal_weight", "Weight gained", "weight"), ("exclusive_weight", "Exclusive", "weight"),
+    ("shared_weight", "Shared", "weight"), ("cumulative_weight", "Cumulative weight", "weight"),
+    ("cumulative_share", "Cumulative share", "share"), ("median_snr_gain_db", "Median SNR gain [dB]", "db"),
+    ("serving_bs_id", "Base station", "text"), ("backup_site_ids", "Backups", "text"),
+)
+
+
+def _cell(v, kind):
+    if kind == "num1":
+        return "n/a" if v is None or not np.isfinite(v) else f"{float(v):.1f}"
+    if kind == "int" and (v is None or int(v) < 0):
+        return "n/a"
+    return fmt(v, kind)
+
+
+def _site_rows(fig: PlanFigures) -> list[list[str]]:
+    return [[_cell(r[c], k) for c, _, k in SITE_TABLE] for _, r in fig.sites.iterrows()]
+
+
+def _kind_rows(fig: PlanFigures) -> tuple[list[str], list[list[str]]]:
+    head = ["Demand kind", "Points", "Weight", "Covered before", "Share before", "Covered after", "Share after",
+            "Newly covered"]
+    rows = [[str(r["kind"]), fmt(r["n_users"], "int"), fmt(r["weight"], "weight"),
+             fmt(r["covered_weight_before"], "weight"), fmt(r["covered_share_before"], "share"),
+             fmt(r["covered_weight_after"], "weight"), fmt(r["covered_share_after"], "share"),
+             fmt(r["newly_covered_weight"], "weight")] for _, r in fig.by_kind.iterrows()]
+    return head, rows
+
+
+def _summary_sentences(s: dict) -> list[str]:
+    if s["empty_plan"]:
+        out = [s["empty_plan_reason"].capitalize() + "."]
+    else:
+        budget = f" within a budget of {fmt(s['budget'], 'cost')}" if s["budget"] is not None else ""
+        out = [f"The plan places {s['n_sites_chosen']} surface(s) at a cost of {fmt(s['plan_cost'], 'cost')}{budget}."]
+    out.append(f"Covered demand weight goes from {fmt(s['covered_weight_before'], 'weight')} "
+               f"({fmt(s['covered_share_before'], 'share')}) without surfaces to "
+               f"{fmt(s['covered_weight_after'], 'weight')} ({fmt(s['covered_share_after'], 'share')}) with the plan, "
+               f"at an SNR target of {fmt(s['snr_target_db'], 'db')} dB.")
+    if s["gap"] is not None and not s["empty_plan"]:
+        out.append(f"The solver ({s['solver'] or 'n/a'}) ended with status '{s['status'] or 'n/a'}' and a gap of "
+                   f"{fmt(s['gap'], 'num')} to its proven bound.")
+    return out
+
+
+def _input_rows(bundle, s: dict) -> list[tuple[str, str]]:
+    import pyproj
+
+    crs = pyproj.CRS(bundle.crs)
+    return [("Projected CRS", f"{crs.name} ({crs.to_string()})"), ("Buildings", str(s["n_buildings"])),
+            ("Base stations", str(s["n_base_stations"])), ("Demand points", str(s["n_users"])),
+            ("Candidate spots", str(s["n_candidate_sites"])), ("Options (spot x size)", str(s["n_options"])),
+            ("Panel sizes", ", ".join(f"{r.size_id} ({r.width_m:.2f} x {r.height_m:.2f} m)"
+                                      for r in bundle.sizes.itertuples()) or "none")]
+
+
+# ---------------------------------------------------------------------------------------------- HTML
+
+_CSS = """
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-serif; color: #111;
+       max-width: 70em; margin: 1.5em auto; padding: 0 1em; line-height: 1.4; }
+h1 { font-size: 1.6em; } h2 { font-size: 1.25em; border-bottom: 1px solid #999; margin-top: 1.6em; }
+table { border-collapse: collapse; font-size: .88em; margin: .5em 0; }
+td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-align: top; }
+td.n { text-align: right; font-variant-numeric: tabular-nums; }
+img { max-width: 100%; height: auto; border: 1px solid #ddd; }
+.lead { font-size: 1.05em; background: #f2f2f2; padding: .6em .9em; border-left: 4px solid #0072B2; }
+.caution { border-left: 4px solid #D55E00; padding-left: .8em; }
+"""
+
+
+def _html_table(head, rows, numeric_from: int = 1) -> str:
+    esc = html.escape
+    h = "".join(f"<th>{esc(c)}</th>" for c in head)
+    num = ' class="n"'
+    body = "".join("<tr>" + "".join(f"<td{num if i >= numeric_from else ''}>{esc(str(v))}</td>"
+                                    for i, v in enumerate(r)) + "</tr>" for r in rows)
+    return f"<table><thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
+    """Self-contained HTML report: CSS inline, figures as base64 PNG, no scripts, no network."""
+    esc = html.escape
+    s = fig.summary
+    title = esc(bundle.title)
+    p = [f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+         f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{title}</title>"
+         f"<style>{_CSS}</style></head><body>", f"<h1>{title}</h1>"]
+    p.append("<p class=\"lead\" id=\"summary\">" + " ".join(esc(x) for x in _summary_sentences(s)) + "</p>")
+    if s["empty_plan"]:
+        p.append(f"<p id=\"empty-plan\"><strong>{esc(s['empty_plan_reason'].capitalize())}.</strong></p>")
+    p.append("<h2>Key figures</h2><table><tbody>")
+    for key, label, kind in KEY_FIGURES:
+        p.append(f"<tr><th>{esc(label)}</th><td class=\"n\" data-key=\"{key}\">{esc(fmt(s.get(key), kind))}</td></tr>")
+    p.append("</tbody></table>")
+
+    p.append("<h2>Inputs and parameters</h2>")
+    p.append(_html_table(["Input", "Value"], _input_rows(bundle, s), numeric_from=9))
+    hashes = record.get("input_hashes") or {}
+    if hashes:
+        p.append("<h3>Input files</h3>" + _html_table(["File", "SHA-256"], sorted(hashes.items()), numeric_from=9))
+    params = flatten(bundle.params)
+    if params:
+        p.append("<h3>Parameters</h3>" + _html_table(["Key", "Value"], [(k, str(v)) for k, v in params], numeric_from=9))
+
+    p.append("<h2>Coverage before and after</h2>")
+    head, rows = _kind_rows(fig)
+    p.append(_html_table(head, rows))
+
+    p.append("<h2>Budget and solver</h2>")
+    p.append(_html_table(["Item", "Value"], [
+        ("Budget", fmt(s["budget"], "cost")), ("Panel count limit", fmt(s["max_panels"], "int")),
+        ("Cost of the plan", fmt(s["plan_cost"], "cost")), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost")),
+        ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
+        ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
+        ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text")),
+    ], numeric_from=1))
+
+    p.append("<h2>Map</h2>")
+    p.append(_img_html(pngs["district_map"], "Map of the district with buildings, base stations, chosen surfaces "
+                                             "and demand points by coverage state"))
+    p.append("<h2>Coverage against budget</h2>")
+    if pngs.get("coverage_curve"):
+        p.append(_img_html(pngs["coverage_curve"], "Covered demand weight against budget"))
+    else:
+        p.append("<p>No budget sweep was run for this job.</p>")
+    p.append("<h2>SNR distribution</h2>")
+    p.append(_img_html(pngs["snr_cdf"], "Cumulative distribution of demand-point SNR without and with the plan"))
+
+    p.append("<h2>Ranked sites</h2>")
+    if len(fig.sites):
+        p.append(_html_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)).replace("<table>", "<table id=\"sites\">", 1))
+        p.append("<p>Weight gained is what a site adds in rank order; exclusive weight is reached by no other "
+                 "chosen site, shared weight also by another. The survey list gives coordinates and backups.</p>")
+    else:
+        p.append("<p>No site was chosen.</p>")
+
+    p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in ASSUMPTIONS) + "</ul>")
+    p.append("<h2>Cautions</h2><ul class=\"caution\">" + "".join(f"<li>{esc(c)}</li>" for c in CAUTIONS) + "</ul>")
+    p.append("<h2>Run details</h2>")
+    timings = record.get("timings_s") or {}
+    if timings:
+        p.append(_html_table(["Stage", "Time [s]"], [(k, f"{float(v):.2f}") for k, v in timings.items()
+                                                    if isinstance(v, (int, float))]))
+    p.append(_html_table(["Package", "Version"], [(k, str(v)) for k, v in record["versions"].items()], numeric_from=9))
+    if fig.notes:
+        p.append("<h3>Notes</h3><ul>" + "".join(f"<li>{esc(str(n))}</li>" for n in fig.notes) + "</ul>")
+    p.append("</body></html>\n")
+    return "\n".join(p)
+
+
+def _img_html(png: bytes, alt: str) -> str:
+    return f"<p><img alt=\"{html.escape(alt)}\" src=\"data:image/png;base64,{base64.b64encode(png).decode('ascii')}\"></p>"
+
+
+# ---------------------------------------------------------------------------------------------- Markdown
+
+def _md_escape(v: str) -> str:
+    return str(v).replace("|", "\\|").replace("\n", " ")
+
+
+def _md_table(head, rows) -> str:
+    lines = ["| " + " | ".join(_md_escape(h) for h in head) + " |", "|" + "---|" * len(head)]
+    lines += ["| " + " | ".join(_md_escape(c) for c in r) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str:
+    """The same report in Markdown; figures are referenced as files relative to the report."""
+    s = fig.summary
+    p = [f"# {bundle.title}", "", " ".join(_summary_sentences(s)), ""]
+    if s["empty_plan"]:
+        p += [f"**{s['empty_plan_reason'].capitalize()}.**", ""]
+    p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, fmt(s.get(k), kind)) for k, lbl, kind in KEY_FIGURES]), ""]
+    p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
+    hashes = record.get("input_hashes") or {}
+    if hashes:
+        p += ["### Input files", "", _md_table(["File", "SHA-256"], sorted(hashes.items())), ""]
+    params = flatten(bundle.params)
+    if params:
+        p += ["### Parameters", "", _md_table(["Key", "Value"], [(k, str(v)) for k, v in params]), ""]
+    head, rows = _kind_rows(fig)
+    p += ["## Coverage before and after", "", _md_table(head, rows), ""]
+    p += ["## Budget and solver", "", _md_table(["Item", "Value"], [
+        ("Budget", fmt(s["budget"], "cost")), ("Panel count limit", fmt(s["max_panels"], "int")),
+        ("Cost of the plan", fmt(s["plan_cost"], "cost")), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost")),
+        ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
+        ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
+        ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text"))]), ""]
+    p += ["## Map", "", f"![Map of the district with buildings, base stations, chosen surfaces and demand]({figure_files['district_map']})", ""]
+    p += ["## Coverage against budget", ""]
+    p += [f"![Covered demand weight against budget]({figure_files['coverage_curve']})" if figure_files.get("coverage_curve")
+          else "No budget sweep was run for this job.", ""]
+    p += ["## SNR distribution", "", f"![SNR distribution without and with the plan]({figure_files['snr_cdf']})", ""]
+    p += ["## Ranked sites", ""]
+    p += [_md_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)) if len(fig.sites) else "No site was chosen.", ""]
+    p += ["## Model assumptions", ""] + [f"- {a}" for a in ASSUMPTIONS] + [""]
+    p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
+    p += ["## Run details", ""]
+    timings = record.get("timings_s") or {}
+    if timings:
+        p += [_md_table(["Stage", "Time [s]"], [(k, f"{float(v):.2f}") for k, v in timings.items()
+                                                if isinstance(v, (int, float))]), ""]
+    p += [_md_table(["Package", "Version"], [(k, str(v)) for k, v in record["versions"].items()]), ""]
+    if fig.notes:
+        p += ["### Notes", ""] + [f"- {n}" for n in fig.notes] + [""]
+    return "\n".join(p)
+
+
+# ---------------------------------------------------------------------------------------------- run.json
+
+def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) -> dict:
+    """Everything the report shows, in machine-readable form (written as ``run.json``)."""
+    import pyproj
+
+    plan = bundle.plan
+    get = (lambda n: plan.get(n)) if isinstance(plan, dict) else (lambda n: getattr(plan, n, None))
+    ri = dict(bundle.run_info or {})
+    ri.pop("notes", None)  # already merged into fig.notes
+    timings = dict(ri.pop("timings_s", {}) or {})
+    timings.update({f"outputs.{k}": v for k, v in output_timings_s.items()})
+    return jsonable({
+        "format": "siting-run", "format_version": 1, "title": bundle.title,
+        "crs": pyproj.CRS(bundle.crs).to_string(),
+        "summary": fig.summary,
+        "coverage_by_kind": fig.by_kind,
+        "plan": {"chosen_option_ids": fig.sites["option_id"].tolist(), "status": get("status"),
+                 "solver": get("solver"), "objective": get("objective"), "bound": get("bound"), "gap": get("gap"),
+                 "cost": get("cost"), "message": get("message"), "greedy_objective": get("greedy_objective"),
+                 "timings_s": get("timings_s"), "model_size": get("model_size")},
+        "sites": fig.sites,
+        "backups": fig.backups,
+        "sweep": bundle.sweep if bundle.sweep is not None else None,
+        "parameters": bundle.params,
+        "input_hashes": ri.pop("input_hashes", {}),
+        "timings_s": timings,
+        "versions": {**package_versions(), **(ri.pop("versions", {}) or {})},
+        "visibility": ri.pop("visibility", None),
+        "notes": fig.notes,
+        "run_info": ri,
+        "files": files,
+    })

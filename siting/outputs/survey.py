@@ -1,0 +1,141 @@
+"""Survey list for field teams: one row per chosen site in rank order (CSV) and a printable HTML version.
+
+CSV columns (UTF-8, comma-separated, header row):
+
+rank, site_id, lon, lat, building_id, name, address, <any further name / address tags of the input>,
+facing_deg (outward wall normal, clockwise from north), facing (16-point name), mount_height_m, size_id,
+width_m, height_m, area_m2, elements, cost, weight_gained (added in rank order), exclusive_weight,
+shared_weight, cumulative_weight, cumulative_share, serving_bs_id, backup_<k>_site_id / _lon / _lat for each
+backup k, notes.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .. import tables as T
+from . import atomic, figures
+from .derive import PlanFigures
+
+BASE_COLUMNS = ["rank", "site_id", "lon", "lat", "building_id", "name", "address"]
+AFTER_TAGS = ["facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
+              "cost", "weight_gained", "exclusive_weight", "shared_weight", "cumulative_weight",
+              "cumulative_share", "serving_bs_id"]
+
+
+def tag_columns(buildings) -> list[str]:
+    """Input name / address tags beyond the contract's 'name' and 'address' (e.g. 'addr:street')."""
+    known = set(T.SCHEMAS["buildings"]) | {"geometry"}
+    return [c for c in buildings.columns if c not in known and ("addr" in c.lower() or "name" in c.lower())]
+
+
+def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
+    """The survey list as a DataFrame (the CSV's rows and columns)."""
+    s = fig.sites.rename(columns={"marginal_weight": "weight_gained"})
+    out = s[BASE_COLUMNS].copy()
+    tags = tag_columns(bundle.buildings)
+    if tags:
+        bidx = bundle.sites["building_idx"].to_numpy(np.int64)[s["site_id"].to_numpy(np.int64)]
+        bld = bundle.buildings.reset_index(drop=True)
+        for c in tags:
+            vals = bld[c].astype(object).where(bld[c].notna(), "").astype(str).to_numpy()
+            out[c] = np.where((bidx >= 0) & (bidx < len(bld)), vals[np.clip(bidx, 0, max(len(bld) - 1, 0))], "")
+    for c in AFTER_TAGS:
+        out[c] = s[c].to_numpy()
+    bk = fig.backups
+    n_bk = int(bk["backup_rank"].max()) if len(bk) else 0
+    for j in range(1, n_bk + 1):
+        sub = bk[bk["backup_rank"] == j].set_index("rank")
+        out[f"backup_{j}_site_id"] = sub["backup_site_id"].reindex(s["rank"].to_numpy()).astype("Int64").to_numpy()
+        out[f"backup_{j}_lon"] = sub["backup_lon"].reindex(s["rank"].to_numpy()).to_numpy(float)
+        out[f"backup_{j}_lat"] = sub["backup_lat"].reindex(s["rank"].to_numpy()).to_numpy(float)
+    out["notes"] = s["notes"].to_numpy()
+    return out.reset_index(drop=True)
+
+
+def write_survey_csv(path, frame: pd.DataFrame) -> Path:
+    """Write the survey list atomically (UTF-8, '.' decimal point, lon/lat with 7 decimals)."""
+    return atomic.write_with(path, lambda fh: frame.to_csv(fh, index=False, lineterminator="\n"))
+
+
+_CSS = """
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-serif; color: #111; margin: 1.5em; }
+h1 { font-size: 1.4em; } h2 { font-size: 1.15em; margin: 0 0 .4em 0; }
+table { border-collapse: collapse; font-size: .85em; }
+td, th { border: 1px solid #999; padding: 2px 6px; text-align: left; vertical-align: top; }
+.site { display: flex; gap: 1em; border-top: 2px solid #000; padding: .8em 0; page-break-inside: avoid;
+        break-inside: avoid; }
+.site img { width: 300px; height: auto; border: 1px solid #ccc; }
+.check { margin-top: .4em; font-size: .85em; } .check span { display: inline-block; width: 1em; height: 1em;
+        border: 1px solid #000; margin-right: .4em; vertical-align: middle; }
+.notes { height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
+@media print { body { margin: 0; } .site { page-break-inside: avoid; } }
+"""
+
+FIELD_CHECKS = (
+    "wall and mounting position accessible; facing confirmed with a compass",
+    "nothing blocks the view to the base station and to the served area",
+    "structural fixing assessed; work at height planned by licensed installers",
+    "owner consent and permits checked against local codes",
+    "RF exposure near the focus area to be checked against local limits",
+)
+
+
+def _fmt(v, nd=2) -> str:
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return "-"
+    if isinstance(v, (float, np.floating)):
+        return f"{v:.{nd}f}"
+    return html.escape(str(v))
+
+
+def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> str:
+    """Printable HTML: one block per site with a small map (PNG embedded as base64) and the survey fields."""
+    esc = html.escape
+    parts = [f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{esc(title)} - survey list"
+             f"</title><style>{_CSS}</style></head><body>",
+             f"<h1>{esc(title)}: survey list</h1>",
+             f"<p>{len(frame)} site(s) in rank order. Coordinates are WGS84 longitude / latitude; facing is the "
+             "outward wall normal, clockwise from north. Backup spots can replace a site that fails the survey.</p>"]
+    if not len(frame):
+        parts.append(f"<p><strong>{esc(fig.summary.get('empty_plan_reason') or 'No site was chosen.')}</strong></p>")
+    tags = tag_columns(bundle.buildings)
+    for _, r in frame.iterrows():
+        rank = int(r["rank"])
+        png = base64.b64encode(figures.site_map(bundle, fig, rank)).decode("ascii")
+        backups = []
+        j = 1
+        while f"backup_{j}_site_id" in frame.columns:
+            if pd.notna(r[f"backup_{j}_site_id"]):
+                backups.append(f"{int(r[f'backup_{j}_site_id'])} ({r[f'backup_{j}_lon']:.7f}, "
+                               f"{r[f'backup_{j}_lat']:.7f})")
+            j += 1
+        rows = [
+            ("site id", int(r["site_id"])), ("lon, lat", f"{r['lon']:.7f}, {r['lat']:.7f}"),
+            ("building", r["building_id"]), ("name", r["name"]), ("address", r["address"]),
+            *[(t, r[t]) for t in tags],
+            ("wall facing", f"{r['facing_deg']:.1f}\u00b0 ({r['facing']})"),
+            ("mount height", f"{r['mount_height_m']:.2f} m"),
+            ("panel", f"{r['size_id']}: {r['width_m']:.2f} m x {r['height_m']:.2f} m"
+                      + (f", {int(r['elements'])} elements" if r["elements"] >= 0 else "")),
+            ("cost", _fmt(r["cost"])), ("weight gained", _fmt(r["weight_gained"])),
+            ("cumulative weight", f"{_fmt(r['cumulative_weight'])} ({100 * r['cumulative_share']:.1f} %)"),
+            ("serving base station", r["serving_bs_id"] or "-"),
+            ("backup spots", "; ".join(backups) or "none"),
+        ]
+        table = "".join(f"<tr><th>{esc(str(k))}</th><td>{v if isinstance(v, str) and v.startswith('<') else esc(str(v))}"
+                        "</td></tr>" for k, v in rows)
+        checks = "".join(f"<div><span></span>{esc(c)}</div>" for c in FIELD_CHECKS)
+        note = esc(str(r["notes"])) if r["notes"] else ""
+        parts.append(
+            f"<section class=\"site\" id=\"site-{rank}\"><div><img alt=\"map around site {int(r['site_id'])}\" "
+            f"src=\"data:image/png;base64,{png}\"></div><div><h2>Rank {rank}: site {int(r['site_id'])}</h2>"
+            f"<table>{table}</table><div class=\"check\">{checks}</div>"
+            f"<div class=\"notes\">notes: {note}</div></div></section>")
+    parts.append("</body></html>\n")
+    return "\n".join(parts)

@@ -1,0 +1,68 @@
+"""Open an HTML file in headless Chromium and report decoded images and errors (no selenium needed).
+
+The page is copied beside itself with two small scripts added: one at the top of <head> that records every
+error event (script errors, and resources such as images that fail to load or decode: their 'error' events
+are caught in the capture phase), and one that, on 'load', writes the natural size of every <img> into a
+<pre id="__check"> element.  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
+``--enable-logging=stderr`` prints the console messages, which are scanned for errors.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import subprocess
+import tempfile
+from pathlib import Path
+
+CANDIDATES = ("/usr/bin/chromium", "chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
+
+_HEAD = """<script>window.__errors=[];window.addEventListener('error',function(e){var t=e.target;
+window.__errors.push(t&&t.tagName?('failed to load '+t.tagName+' '+String(t.src||t.href||'').slice(0,60)):
+String(e.message));},true);</script>"""
+_TAIL = """<script>window.addEventListener('load',function(){var imgs=Array.prototype.map.call(document.images,
+function(i){return {w:i.naturalWidth,h:i.naturalHeight,complete:i.complete,alt:i.alt};});
+var p=document.createElement('pre');p.id='__check';p.textContent=JSON.stringify({images:imgs,errors:window.__errors});
+document.body.appendChild(p);});</script>"""
+
+
+def find_chromium() -> str | None:
+    """Path of a Chromium binary, or None."""
+    for c in CANDIDATES:
+        p = c if os.path.isabs(c) and os.access(c, os.X_OK) else shutil.which(c)
+        if p:
+            return p
+    return None
+
+
+def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
+    """Load ``html_path`` in headless Chromium; return {'images': [...], 'errors': [...], 'console_errors': [...]}."""
+    exe = find_chromium()
+    if exe is None:
+        raise RuntimeError("no Chromium binary found")
+    html_path = Path(html_path)
+    text = html_path.read_text(encoding="utf-8")
+    text = re.sub(r"<head>", "<head>" + _HEAD, text, count=1)
+    text = text.replace("</body>", _TAIL + "</body>", 1)
+    with tempfile.TemporaryDirectory() as tmp:
+        probe = html_path.with_name(".browser-check-" + html_path.name)  # same folder: relative links still work
+        probe.write_text(text, encoding="utf-8")
+        try:
+            cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                   "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                   "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
+                   "--run-all-compositor-stages-before-draw", "--virtual-time-budget=5000", "--dump-dom",
+                   probe.resolve().as_uri()]
+            proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+        finally:
+            probe.unlink(missing_ok=True)
+    m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
+    if m is None:
+        raise RuntimeError(f"Chromium gave no check result (exit {proc.returncode}); stderr tail:\n{proc.stderr[-2000:]}")
+    result = json.loads(m.group(1).replace("&quot;", '"').replace("&lt;", "<").replace("&gt;", ">").replace("&amp;", "&"))
+    console = [ln for ln in proc.stderr.splitlines() if "CONSOLE" in ln]
+    result["console_errors"] = [ln for ln in console if re.search(r"ERROR|Uncaught|Failed to load|net::ERR", ln)]
+    result["console"] = console
+    return result

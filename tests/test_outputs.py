@@ -1,0 +1,586 @@
+"""Tests of siting.outputs: layers, survey list, report, run.json, atomic writes.
+
+The bundle is synthetic (a street canyon from tests/canonical.py in EPSG:32633, seeded random SNRs), built
+here without the other stages.  Expected values come from outside the module under test: pyproj transforms,
+geopandas / pyogrio / pandas readers, a plain-Python brute-force of the coverage rules stated in the issue,
+the 16-point compass rose (common practice), the element-count rule floor(w/p) x floor(h/p) and the 28 GHz
+wavelength of CHECKS.md section 1, and a real headless Chromium for the HTML.
+"""
+
+from __future__ import annotations
+
+import base64
+import importlib.metadata
+import io
+import json
+import math
+import re
+from pathlib import Path
+from types import SimpleNamespace
+
+import geopandas as gpd
+import matplotlib.image
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import pytest
+
+from siting.errors import SitingError
+from siting.outputs import OutputBundle, atomic, compass_point, derive, element_count, element_pitch_m, layers, write_outputs
+from siting.outputs import report as report_mod
+from tests import canonical
+from tests.browser import check_page, find_chromium
+
+X0, Y0 = canonical.X0, canonical.Y0
+TARGET_DB = 10.0
+
+
+# ------------------------------------------------------------------------------------------ bundle builder
+
+def _greedy(options, cov_sets, weight, budget, max_panels):
+    """Plain greedy by marginal weight (test-side plan maker; the real optimiser lives elsewhere)."""
+    chosen, covered, used_sites, spent = [], set(), set(), 0.0
+    while max_panels is None or len(chosen) < max_panels:
+        best, best_gain = None, 0.0
+        for o in options.itertuples():
+            if o.site_id in used_sites or (budget is not None and spent + o.cost > budget):
+                continue
+            gain = sum(weight[u] for u in cov_sets.get(o.option_id, set()) - covered)
+            if gain > best_gain + 1e-12:
+                best, best_gain = o, gain
+        if best is None:
+            break
+        chosen.append(best.option_id)
+        covered |= cov_sets.get(best.option_id, set())
+        used_sites.add(best.site_id)
+        spent += best.cost
+    return chosen, covered, spent
+
+
+def make_bundle(seed: int = 7, budget: float | None = 1300.0, max_panels: int | None = None, **kw) -> OutputBundle:
+    rng = np.random.default_rng(seed)
+    buildings = canonical.street_canyon()  # south row y0..y0+15, north row y0+35..y0+50, x0..x0+100
+    buildings["name"] = ["South Row", ""]
+    buildings["address"] = ["1 Canyon Street", "2 Canyon Street"]
+    buildings["addr:postcode"] = ["10115", "10117"]
+    xs = X0 + np.array([10.0, 30, 50, 70, 90])
+    sites = pd.DataFrame({
+        "site_id": np.arange(11),
+        "building_idx": np.r_[np.zeros(5, int), np.ones(5, int), 0],
+        "building_id": ["b0"] * 5 + ["b1"] * 5 + ["b0"],
+        "wall_id": np.r_[np.zeros(5, int), np.ones(5, int), 2],
+        "x": np.r_[xs, xs, X0 + 100.05], "y": np.r_[np.full(5, Y0 + 15.05), np.full(5, Y0 + 34.95), Y0 + 7.5],
+        "z_m": np.r_[np.full(10, 6.0), 4.5], "normal_az_deg": np.r_[np.zeros(5), np.full(5, 180.0), 90.0],
+        "wall_free_m": np.r_[np.full(10, 8.0), 0.4], "source": ["generated"] * 10 + ["given"],
+    })
+    sizes = pd.DataFrame({"size_id": ["S", "L"], "width_m": [0.3, 0.6], "height_m": [0.3, 0.6],
+                          "cost": [100.0, 300.0], "install_cost": [50.0, 100.0]})
+    opt_site = np.repeat(np.arange(11), 2)
+    opt_size = np.tile(["S", "L"], 11)
+    options = pd.DataFrame({"option_id": np.arange(22), "site_id": opt_site, "size_id": opt_size,
+                            "cost": np.tile([150.0, 400.0], 11)})
+    ux, uy = np.meshgrid(X0 + np.arange(5.0, 100.0, 10.0), [Y0 + 20.0, Y0 + 30.0])
+    n_street = ux.size
+    hx = X0 + np.arange(10.0, 100.0, 20.0)
+    users = pd.DataFrame({
+        "user_id": np.arange(n_street + 5 + 3),
+        "x": np.r_[ux.ravel(), hx, X0 + 110.0, X0 + 115.0, X0 + 120.0],
+        "y": np.r_[uy.ravel(), np.full(5, Y0 - 0.5), Y0 + 5.0, Y0 + 10.0, Y0 + 15.0],
+        "z_m": np.r_[np.full(n_street, 1.5), np.full(5, 4.0), np.full(3, 1.5)],
+        "weight": np.r_[rng.integers(1, 5, n_street).astype(float), np.full(5, 3.0), np.full(3, 2.0)],
+        "kind": ["street"] * n_street + ["home"] * 5 + ["given"] * 3,
+        "building_idx": np.r_[np.full(n_street, -1), np.zeros(5, int), np.full(3, -1)],
+        "normal_az_deg": np.r_[np.full(n_street, np.nan), np.full(5, 180.0), np.full(3, np.nan)],
+    })
+    n_users = len(users)
+    base_stations = pd.DataFrame({
+        "bs_id": ["BS-west", "BS-north"], "x": [X0 - 30.0, X0 + 50.0], "y": [Y0 + 25.0, Y0 + 80.0],
+        "z_m": [10.0, 12.0], "tx_power_dbm": [30.0, 30.0], "max_gain_dbi": [20.0, 20.0],
+        "azimuth_deg": [90.0, 180.0], "downtilt_deg": [5.0, 5.0], "pattern": ["sector", "sector"]})
+    snr_direct = rng.uniform(-15.0, 25.0, n_users)
+    snr_direct[rng.random(n_users) < 0.15] = -np.inf
+    direct = pd.DataFrame({"user_id": np.arange(n_users), "snr_db": snr_direct,
+                           "bs_idx": np.where(np.isfinite(snr_direct), rng.integers(0, 2, n_users), -1),
+                           "los": rng.random(n_users) < 0.5, "covered": snr_direct >= TARGET_DB})
+    rows = []
+    for site in range(11):
+        reach = np.flatnonzero(rng.random(n_users) < 0.35)
+        base = np.where(np.isfinite(snr_direct[reach]), snr_direct[reach], -20.0) + rng.uniform(0.5, 18.0, reach.size)
+        for k, extra in ((0, 0.0), (1, 6.0)):  # the large panel: 4x area -> +12 dB far field (CHECKS section 8)
+            rows.append(pd.DataFrame({"option_id": 2 * site + k, "user_id": reach, "snr_db": base + extra,
+                                      "bs_idx": site % 2}))
+    coverage = pd.concat(rows, ignore_index=True)
+    weight = users["weight"].to_numpy()
+    cov_sets = {}
+    for o, g in coverage[coverage["snr_db"] >= TARGET_DB].groupby("option_id"):
+        cov_sets[int(o)] = {int(u) for u in g["user_id"] if not direct["covered"][u]}
+    chosen, _, spent = _greedy(options, cov_sets, weight, budget, max_panels)
+    covered, cum, rank_rows = set(), 0.0, []
+    for r, o in enumerate(chosen, start=1):
+        gain = sum(weight[u] for u in cov_sets[o] - covered)
+        covered |= cov_sets[o]
+        cum += gain
+        rank_rows.append({"option": o, "rank": r, "marginal_weight": gain, "cumulative_weight": cum,
+                          "exclusive_weight": 0.0, "shared_weight": 0.0})
+    ranking = pd.DataFrame(rank_rows, columns=["option", "rank", "marginal_weight", "cumulative_weight",
+                                               "exclusive_weight", "shared_weight"])
+    chosen_sites = set(options["site_id"][chosen])
+    spare = [int(o) for o in options["option_id"] if options["site_id"][o] not in chosen_sites and o % 2 == 0]
+    backups = pd.DataFrame([{"option": o, "backup_rank": j + 1, "backup_option": spare[(i + j) % len(spare)],
+                             "recovered_weight": 1.5 * (2 - j)}
+                            for i, o in enumerate(chosen) for j in range(2)],
+                           columns=["option", "backup_rank", "backup_option", "recovered_weight"])
+    new_w = sum(weight[u] for u in covered)
+    plan = SimpleNamespace(chosen=list(chosen), objective=new_w, bound=new_w * 1.02, gap=0.0196, status="Optimal",
+                           solver="HiGHS", cost=spent, message="", greedy_objective=new_w,
+                           timings_s={"solve": 0.01}, model_size={"variables": 40, "constraints": 30})
+    sweep = pd.DataFrame({"budget": [0.0, 150.0, 400.0, 900.0, 1500.0]})
+    cw, bw = [], []
+    for bgt in sweep["budget"]:
+        _, cv, _ = _greedy(options, cov_sets, weight, bgt, None)
+        cw.append(weight[direct["covered"].to_numpy()].sum() + sum(weight[u] for u in cv))
+        bw.append(cw[-1] * 1.03)
+    sweep = sweep.assign(covered_weight=cw, bound=bw, gap=0.03, cost=sweep["budget"], n_sites=0, status="Optimal")
+    fields = dict(
+        crs=pyproj.CRS(canonical.CRS), buildings=buildings, base_stations=base_stations, sites=sites, sizes=sizes,
+        users=users, options=options, coverage=coverage, direct=direct, plan=plan, ranking=ranking,
+        backups=backups, sweep=sweep, snr_target_db=TARGET_DB, budget=budget, max_panels=max_panels,
+        params={"radio": {"frequency_ghz": 28.0, "snr_target_db": TARGET_DB, "bandwidth_hz": 4e8},
+                "surfaces": {"element_pitch_wavelengths": 0.5}, "optimize": {"budget": budget}},
+        run_info={"input_hashes": {"buildings.geojson": "9f" * 32}, "timings_s": {"visibility": 1.25, "gains": 0.5},
+                  "visibility": {"mean_degree": 3.5}, "notes": ["synthetic test district"]},
+    )
+    fields.update(kw)
+    return OutputBundle(**fields)
+
+
+@pytest.fixture(scope="module")
+def bundle():
+    return make_bundle()
+
+
+@pytest.fixture(scope="module")
+def out(tmp_path_factory, bundle):
+    d = tmp_path_factory.mktemp("plan")
+    bundle.formats = ("geojson", "gpkg")
+    bundle.include_candidates = True
+    files = write_outputs(d, bundle)
+    return d, files
+
+
+def _brute_force(b):
+    """Per-user state after the plan, straight from the rules in the issue, one user at a time."""
+    chosen = list(b.plan.chosen)
+    rank = {o: i + 1 for i, o in enumerate(chosen)}
+    direct = {int(r.user_id): r for r in b.direct.itertuples()}
+    res = {}
+    for u in b.users.itertuples():
+        rows = [r for r in b.coverage.itertuples() if r.user_id == u.user_id and r.option_id in rank]
+        d = direct[u.user_id]
+        best = max(rows, key=lambda r: (r.snr_db, -rank[r.option_id])) if rows else None
+        served = best is not None and best.snr_db >= d.snr_db
+        after = bool(d.covered) or (best is not None and best.snr_db >= b.snr_target_db)
+        res[u.user_id] = {
+            "snr_plan_db": best.snr_db if served else d.snr_db,
+            "covered_after": after, "newly_covered": after and not d.covered,
+            "serving_site_id": int(b.options.site_id[best.option_id]) if served else -1,
+            "covers": {o for o in chosen for r in rows if r.option_id == o and r.snr_db >= b.snr_target_db}
+            if not d.covered else set(),
+        }
+    return res
+
+
+# ------------------------------------------------------------------------------------------ derived figures
+
+def test_per_user_state_matches_brute_force(bundle):
+    fig = derive(bundle)
+    ref = _brute_force(bundle)
+    u = fig.users.set_index("user_id")
+    for uid, r in ref.items():
+        assert u.at[uid, "covered_after"] == r["covered_after"], uid
+        assert u.at[uid, "newly_covered"] == r["newly_covered"], uid
+        assert u.at[uid, "serving_site_id"] == r["serving_site_id"], uid
+        assert u.at[uid, "snr_plan_db"] == pytest.approx(r["snr_plan_db"]) or (
+            math.isinf(r["snr_plan_db"]) and math.isinf(u.at[uid, "snr_plan_db"]))
+    assert fig.summary["n_users_newly_covered"] == sum(r["newly_covered"] for r in ref.values())
+    assert fig.summary["n_sites_chosen"] > 1  # the synthetic plan is not trivial
+
+
+def test_site_weights_match_brute_force(bundle):
+    fig = derive(bundle)
+    ref = _brute_force(bundle)
+    w = bundle.users.set_index("user_id")["weight"]
+    direct_w = sum(w[u] for u in w.index if bundle.direct.covered[u])
+    seen, cum = set(), direct_w
+    for s in fig.sites.itertuples():
+        mine = {u for u, r in ref.items() if s.option_id in r["covers"]}
+        others = {u for u, r in ref.items() if r["covers"] - {s.option_id}}
+        assert s.exclusive_weight == pytest.approx(sum(w[u] for u in mine - others))
+        assert s.shared_weight == pytest.approx(sum(w[u] for u in mine & others))
+        assert s.marginal_weight == pytest.approx(sum(w[u] for u in mine - seen))
+        seen |= mine
+        cum += s.marginal_weight
+        assert s.cumulative_weight == pytest.approx(cum)
+    # the last cumulative weight is the covered weight after the plan
+    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    # the test plan's own ranking (built by set arithmetic in make_bundle) agrees on the marginal weights
+    np.testing.assert_allclose(fig.sites["marginal_weight"], bundle.ranking["marginal_weight"])
+
+
+@pytest.mark.parametrize("az, name", [
+    # the 16-point compass rose: points every 22.5 deg, each spanning +-11.25 deg (common practice)
+    (0.0, "N"), (11.2, "N"), (11.25, "NNE"), (22.5, "NNE"), (45.0, "NE"), (67.5, "ENE"), (90.0, "E"),
+    (112.5, "ESE"), (135.0, "SE"), (157.5, "SSE"), (180.0, "S"), (202.5, "SSW"), (225.0, "SW"), (247.5, "WSW"),
+    (270.0, "W"), (292.5, "WNW"), (315.0, "NW"), (337.5, "NNW"), (348.74, "NNW"), (348.75, "N"), (359.9, "N"),
+    (-90.0, "W"), (450.0, "E"),
+])
+def test_compass_points(az, name):
+    assert compass_point(az) == name
+
+
+def test_element_count_at_configured_pitch():
+    # 28 GHz: lambda = c / f = 0.0107069 m (CHECKS.md section 1); pitch 0.5 lambda = 5.35345 mm
+    pitch = element_pitch_m({"surfaces": {"element_pitch_wavelengths": 0.5}, "radio": {"frequency_ghz": 28.0}})
+    assert pitch == pytest.approx(0.0107069 / 2, rel=1e-5)
+    # floor(0.3 / 0.00535345) = floor(56.04) = 56 per side; floor(0.6 / p) = floor(112.08) = 112
+    assert element_count(0.3, 0.3, pitch) == 56 * 56
+    assert element_count(0.6, 0.3, pitch) == 112 * 56
+    # exact multiples must not lose a row to rounding: 0.3 m at 0.01 m pitch is 30 elements
+    assert element_count(0.3, 0.7, 0.01) == 30 * 70
+    assert element_pitch_m({"radio": {"frequency_ghz": 28.0}}) is None
+
+
+# ------------------------------------------------------------------------------------------ layers
+
+def _all_coords(geom):
+    c = geom["coordinates"]
+    return [c] if geom["type"] == "Point" else list(c)
+
+
+def test_geojson_is_rfc7946(out, bundle):
+    d, files = out
+    to_ll = pyproj.Transformer.from_crs(bundle.crs, "EPSG:4326", always_xy=True)
+    for name in ("surfaces", "surface_walls", "demand", "links", "candidates"):
+        raw = json.loads((d / f"{name}.geojson").read_text(encoding="utf-8"))
+        assert raw["type"] == "FeatureCollection" and "crs" not in raw  # RFC 7946 section 4: WGS84 implied
+        for f in raw["features"]:
+            for lon, lat in _all_coords(f["geometry"]):
+                assert -180 <= lon <= 180 and -90 <= lat <= 90
+                assert round(lon, 7) == lon and round(lat, 7) == lat  # at most 7 decimals
+        g = gpd.read_file(d / f"{name}.geojson")
+        assert g.crs.to_epsg() == 4326
+        assert len(g) == len(raw["features"])
+    # lon/lat order: the surfaces are where pyproj puts the projected spots
+    g = gpd.read_file(d / "surfaces.geojson")
+    fig = derive(bundle)
+    s = bundle.sites.set_index("site_id").loc[g["site_id"]]
+    lon, lat = to_ll.transform(s["x"].to_numpy(), s["y"].to_numpy())
+    np.testing.assert_allclose(g.geometry.x, lon, atol=1e-7)
+    np.testing.assert_allclose(g.geometry.y, lat, atol=1e-7)
+    assert 14.9 < g.geometry.x.min() and g.geometry.y.min() > 52.0  # EPSG:32633 at (500 km, 5800 km): ~15 E, 52.3 N
+    assert list(g["rank"]) == list(range(1, len(fig.sites) + 1))
+    assert len(gpd.read_file(d / "demand.geojson")) == len(bundle.users)
+    assert len(gpd.read_file(d / "candidates.geojson")) == len(bundle.sites)
+
+
+def test_wall_lines_show_panel_width(out, bundle):
+    d, _ = out
+    walls = gpd.read_file(d / "surface_walls.geojson").to_crs(bundle.crs)  # back to metres with pyproj
+    s = bundle.sites.set_index("site_id").loc[walls["site_id"]]
+    np.testing.assert_allclose(walls.length, walls["width_m"], atol=0.02)
+    mid = walls.geometry.interpolate(0.5, normalized=True)
+    np.testing.assert_allclose(mid.x, s["x"], atol=0.02)
+    np.testing.assert_allclose(mid.y, s["y"], atol=0.02)
+    # the line runs along the wall: perpendicular to the outward normal
+    for geom, az in zip(walls.geometry, s["normal_az_deg"]):
+        (x1, y1), (x2, y2) = geom.coords
+        normal = np.array([math.sin(math.radians(az)), math.cos(math.radians(az))])
+        assert abs(np.dot([x2 - x1, y2 - y1], normal)) < 0.01
+
+
+def test_links_run_bs_surface_user(out, bundle):
+    d, _ = out
+    links = gpd.read_file(d / "links.geojson").to_crs(bundle.crs)
+    assert len(links)
+    bs = bundle.base_stations.set_index("bs_id")
+    for r in links.itertuples():
+        pts = list(r.geometry.coords)
+        assert len(pts) == 3
+        np.testing.assert_allclose(pts[0], bs.loc[r.bs_id, ["x", "y"]].to_numpy(float), atol=0.02)
+        np.testing.assert_allclose(pts[1], bundle.sites.loc[r.site_id, ["x", "y"]].to_numpy(float), atol=0.02)
+        np.testing.assert_allclose(pts[2], bundle.users.loc[r.user_id, ["x", "y"]].to_numpy(float), atol=0.02)
+
+
+def test_geopackage_layers(out, bundle):
+    d, _ = out
+    listed = {name: gtype for name, gtype in pyogrio.list_layers(d / "plan.gpkg")}
+    assert listed == {"surfaces": "Point", "surface_walls": "LineString", "demand": "Point",
+                      "links": "LineString", "candidates": "Point"}
+    g = pyogrio.read_dataframe(d / "plan.gpkg", layer="surfaces")
+    gj = gpd.read_file(d / "surfaces.geojson")
+    assert list(g["site_id"]) == list(gj["site_id"])
+    np.testing.assert_allclose(g.geometry.x, gj.geometry.x, atol=1e-9)
+
+
+# ------------------------------------------------------------------------------------------ survey
+
+def test_survey_csv_round_trip(out, bundle):
+    d, _ = out
+    csv = pd.read_csv(d / "survey.csv", encoding="utf-8", keep_default_na=False, na_values=[""])
+    gj = gpd.read_file(d / "surfaces.geojson")
+    chosen = list(bundle.plan.chosen)
+    assert list(csv["rank"]) == list(range(1, len(chosen) + 1))
+    assert list(csv["site_id"]) == [int(bundle.options.site_id[o]) for o in chosen]
+    np.testing.assert_allclose(csv["lon"], gj.geometry.x, atol=1e-7)
+    np.testing.assert_allclose(csv["lat"], gj.geometry.y, atol=1e-7)
+    assert "addr:postcode" in csv.columns and set(csv["addr:postcode"].astype(str)) <= {"10115", "10117"}
+    for c in ("building_id", "facing", "facing_deg", "mount_height_m", "size_id", "elements", "cost",
+              "weight_gained", "cumulative_weight", "serving_bs_id", "backup_1_site_id", "backup_1_lon",
+              "backup_2_lat", "notes"):
+        assert c in csv.columns, c
+    # backups: the spots named in the bundle, with the lon/lat pyproj gives them
+    to_ll = pyproj.Transformer.from_crs(bundle.crs, "EPSG:4326", always_xy=True)
+    for r in csv.itertuples():
+        opt = chosen[r.rank - 1]
+        b1 = bundle.backups[(bundle.backups.option == opt) & (bundle.backups.backup_rank == 1)].backup_option.iloc[0]
+        site = bundle.options.site_id[b1]
+        assert r.backup_1_site_id == site
+        lon, lat = to_ll.transform(bundle.sites.x[site], bundle.sites.y[site])
+        assert r.backup_1_lon == pytest.approx(lon, abs=1e-7) and r.backup_1_lat == pytest.approx(lat, abs=1e-7)
+    # cost column equals the options' cost, total equals the plan's cost in run.json
+    run = json.loads((d / "run.json").read_text())
+    assert csv["cost"].sum() == pytest.approx(run["summary"]["plan_cost"])
+
+
+# ------------------------------------------------------------------------------------------ report
+
+def _html_key_figures(text):
+    return dict(re.findall(r'data-key="([a-z_]+)">([^<]*)<', text))
+
+
+def _number(s):
+    m = re.search(r"-?\d+(?:\.\d+)?", s)
+    return float(m.group()) if m else None
+
+
+def _close(shown: str, value, kind):
+    """A shown figure equals the value up to the rounding its format implies."""
+    if kind == "text":
+        return shown == (value or "n/a")
+    if value is None:
+        return shown == "n/a"
+    x = _number(shown)
+    if kind == "share":
+        return abs(x - 100 * value) <= 0.05 + 1e-9
+    if kind == "int":
+        return x == value
+    return abs(x - value) <= 0.5 * 10.0 ** -report_mod.DECIMALS[kind] + 1e-9
+
+
+def test_report_numbers_equal_run_json_and_layers(out):
+    d, _ = out
+    run = json.loads((d / "run.json").read_text())
+    s = run["summary"]
+    html_figs = _html_key_figures((d / "report.html").read_text(encoding="utf-8"))
+    md = (d / "report.md").read_text(encoding="utf-8")
+    for key, label, kind in report_mod.KEY_FIGURES:
+        assert _close(html_figs[key], s[key], kind), (key, html_figs[key], s[key])
+        m = re.search(r"^\| " + re.escape(label) + r" \| ([^|]*) \|$", md, re.M)
+        assert m and m.group(1).strip() == html_figs[key], key
+    # layers: covered weight and counts straight from the GeoJSON
+    dem = gpd.read_file(d / "demand.geojson")
+    assert dem.loc[dem["covered_after"], "weight"].sum() == pytest.approx(s["covered_weight_after"])
+    assert dem.loc[dem["covered_before"], "weight"].sum() == pytest.approx(s["covered_weight_before"])
+    assert dem.loc[dem["newly_covered"], "weight"].sum() == pytest.approx(s["newly_covered_weight"])
+    surf = gpd.read_file(d / "surfaces.geojson")
+    assert len(surf) == s["n_sites_chosen"] == len(run["sites"])
+    assert surf["cost"].sum() == pytest.approx(s["plan_cost"])
+    # the ranked-site table of the report lists the same sites as the survey list, in the same order
+    table = re.search(r'<table id="sites">(.*?)</table>', (d / "report.html").read_text(encoding="utf-8"), re.S).group(1)
+    shown_sites = [int(m) for m in re.findall(r"<tr><td[^>]*>\d+</td><td[^>]*>(\d+)</td>", table)]
+    csv = pd.read_csv(d / "survey.csv")
+    assert shown_sites == list(csv["site_id"])
+    # coverage by kind: rows add up to the totals
+    kinds = pd.DataFrame(run["coverage_by_kind"])
+    assert kinds["covered_weight_after"].sum() == pytest.approx(s["covered_weight_after"])
+    assert set(kinds["kind"]) == {"street", "home", "given"}
+
+
+def test_report_is_self_contained(out):
+    d, _ = out
+    for name in ("report.html", "survey.html"):
+        text = (d / name).read_text(encoding="utf-8")
+        assert not re.search(r"(src|href)\s*=\s*\"(?!data:|#)", text), name  # nothing fetched, not even locally
+        assert "<script" not in text and "<link" not in text and "@import" not in text
+        srcs = re.findall(r'<img [^>]*src="data:image/png;base64,([^"]+)"', text)
+        assert srcs and len(srcs) == text.count("<img ")
+        for b64 in srcs:  # every image is a PNG matplotlib can decode
+            img = matplotlib.image.imread(io.BytesIO(base64.b64decode(b64)), format="png")
+            assert img.shape[0] > 50 and img.shape[1] > 50
+    text = (d / "report.html").read_text(encoding="utf-8")
+    for phrase in ("exposure", "height", "structural", "permit", "local codes"):
+        assert phrase in text.lower(), phrase
+
+
+def test_markdown_figures_exist(out):
+    d, _ = out
+    md = (d / "report.md").read_text(encoding="utf-8")
+    paths = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md)
+    assert {"figures/district_map.png", "figures/coverage_curve.png", "figures/snr_cdf.png"} == set(paths)
+    for p in paths:
+        assert (d / p).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+@pytest.mark.parametrize("page", ["report.html", "survey.html"])
+def test_pages_open_in_headless_chromium(out, page):
+    d, _ = out
+    res = check_page(d / page)
+    assert res["images"], "no images found"
+    for img in res["images"]:
+        assert img["complete"] and img["w"] > 0 and img["h"] > 0, img
+    assert res["errors"] == [] and res["console_errors"] == []
+
+
+def test_run_json_contents(out, bundle):
+    d, files = out
+    run = json.loads((d / "run.json").read_text())
+    for pkg in ("numpy", "scipy", "shapely", "geopandas", "pyproj", "pulp", "highspy", "numba", "siting"):
+        assert run["versions"][pkg] == importlib.metadata.version(pkg)
+    assert run["input_hashes"] == bundle.run_info["input_hashes"]
+    assert run["timings_s"]["visibility"] == 1.25 and "outputs.layers" in run["timings_s"]
+    assert run["parameters"]["surfaces"]["element_pitch_wavelengths"] == 0.5
+    assert run["plan"]["chosen_option_ids"] == list(bundle.plan.chosen)
+    assert "synthetic test district" in run["notes"]
+    assert len(run["sweep"]) == len(bundle.sweep)
+    # every file listed exists, and run.json is the newest (written last)
+    paths = [d / p for p in run["files"].values()]
+    assert all(p.exists() for p in paths)
+    assert max(p.stat().st_mtime_ns for p in paths) == (d / "run.json").stat().st_mtime_ns
+    assert set(files) >= {"surfaces_geojson", "gpkg", "survey_csv", "survey_html", "report_html", "report_md", "run_json"}
+    assert atomic.leftover_temp_files(d) == []
+
+
+# ------------------------------------------------------------------------------------------ empty plan
+
+def test_budget_below_cheapest_gives_empty_plan_and_says_so(tmp_path):
+    b = make_bundle(budget=120.0)  # cheapest option costs 150
+    assert b.plan.chosen == []
+    write_outputs(tmp_path, b)
+    run = json.loads((tmp_path / "run.json").read_text())
+    s = run["summary"]
+    assert s["empty_plan"] and s["n_sites_chosen"] == 0 and s["plan_cost"] == 0.0
+    assert s["covered_weight_after"] == pytest.approx(s["covered_weight_before"])
+    assert "below the cheapest option" in s["empty_plan_reason"] and "150.00" in s["empty_plan_reason"]
+    for name in ("report.html", "report.md", "survey.html"):
+        assert "below the cheapest option" in (tmp_path / name).read_text(encoding="utf-8"), name
+    assert len(gpd.read_file(tmp_path / "surfaces.geojson")) == 0
+    csv = pd.read_csv(tmp_path / "survey.csv")
+    assert len(csv) == 0 and "site_id" in csv.columns
+
+
+# ------------------------------------------------------------------------------------------ atomic writes
+
+def _half_then_fail(real):
+    def broken(fc, fh):
+        buf = io.StringIO()
+        real(fc, buf)
+        fh.write(buf.getvalue()[: len(buf.getvalue()) // 2])
+        fh.flush()
+        raise OSError("disk full (injected)")
+    return broken
+
+
+def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
+    write_outputs(tmp_path, make_bundle(seed=3))
+    before = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
+    monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
+    with pytest.raises(OSError, match="injected"):
+        write_outputs(tmp_path, make_bundle(seed=4))
+    after = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
+    assert after == before  # previous complete files, none truncated
+    for p in tmp_path.glob("*.geojson"):
+        json.loads(p.read_text())
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+def test_failed_first_write_leaves_no_file(tmp_path, monkeypatch):
+    monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
+    with pytest.raises(OSError, match="injected"):
+        write_outputs(tmp_path, make_bundle())
+    assert list(tmp_path.glob("*.geojson")) == [] and not (tmp_path / "run.json").exists()
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+def test_failed_geopackage_write_keeps_previous(tmp_path, monkeypatch):
+    b = make_bundle(formats=("gpkg",))
+    write_outputs(tmp_path, b)
+    before = (tmp_path / "plan.gpkg").read_bytes()
+    real = pyogrio.write_dataframe
+    calls = []
+
+    def broken(df, path, **kw):
+        real(df, path, **kw)  # first layer lands in the temporary file, then the "disk" fails
+        calls.append(path)
+        if len(calls) == 2:
+            raise OSError("disk full (injected)")
+
+    monkeypatch.setattr(pyogrio, "write_dataframe", broken)
+    with pytest.raises(OSError, match="injected"):
+        write_outputs(tmp_path, make_bundle(seed=11, formats=("gpkg",)))
+    assert (tmp_path / "plan.gpkg").read_bytes() == before
+    assert Path(calls[0]).parent == tmp_path and Path(calls[0]).name != "plan.gpkg"
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+def test_atomic_write_text_failure(tmp_path):
+    target = tmp_path / "a.txt"
+    atomic.write_text(target, "complete\n")
+
+    def writer(fh):
+        fh.write("parti")
+        raise KeyboardInterrupt  # even an interrupt leaves the old file
+    with pytest.raises(KeyboardInterrupt):
+        atomic.write_with(target, writer)
+    assert target.read_text() == "complete\n"
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+# ------------------------------------------------------------------------------------------ bad input
+
+def _bad(**kw):
+    return make_bundle(**kw)
+
+
+@pytest.mark.parametrize("mutate, match", [
+    (lambda b: setattr(b, "crs", pyproj.CRS("EPSG:4326")), "projected CRS"),
+    (lambda b: setattr(b, "crs", "not a crs"), "CRS pyproj understands"),
+    (lambda b: setattr(b.plan, "chosen", [999]), "plan.chosen holds option ids"),
+    (lambda b: setattr(b.plan, "chosen", [0, 0]), "lists an option twice"),
+    (lambda b: setattr(b.plan, "chosen", [0, 1]), "two sizes on one site"),
+    (lambda b: setattr(b, "formats", ("geojson", "shp")), "output formats"),
+    (lambda b: setattr(b, "users", b.users.drop(columns=["weight"])), "missing column 'weight'"),
+    (lambda b: setattr(b, "users", b.users.assign(weight=-1.0)), "negative"),
+    (lambda b: setattr(b, "coverage", b.coverage.assign(user_id=b.coverage.user_id + 1000)), "user ids outside"),
+    (lambda b: setattr(b, "coverage", b.coverage.assign(option_id=b.coverage.option_id + 1000)), "option ids outside"),
+    (lambda b: setattr(b, "options", b.options.assign(site_id=b.options.site_id + 50)), "site ids outside"),
+    (lambda b: setattr(b, "options", b.options.assign(size_id="XL")), "catalogue lacks"),
+    (lambda b: setattr(b, "direct", pd.concat([b.direct, b.direct.iloc[:1]])), "more than one row"),
+    (lambda b: setattr(b, "sites", b.sites.iloc[::-1].reset_index(drop=True)), "row position"),
+    (lambda b: setattr(b, "snr_target_db", float("nan")), "finite snr_target_db"),
+])
+def test_bad_bundle_is_rejected_before_writing(tmp_path, mutate, match):
+    b = make_bundle()
+    mutate(b)
+    out_dir = tmp_path / "out"
+    with pytest.raises(SitingError, match=match):
+        write_outputs(out_dir, b)
+    assert not out_dir.exists()  # nothing written, not even the folder
+
+
+def test_unwritable_output_folder(tmp_path):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    with pytest.raises(SitingError, match="writable folder"):
+        write_outputs(blocker / "out", make_bundle())
