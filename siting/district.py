@@ -20,8 +20,9 @@ Decisions (documented here and in the README)
   ``default``, with a warning giving the count).  Values that cannot be parsed fall through to the next rule
   with a note.  Heights <= 0 m or > 1000 m, negative levels, and buildings left without a height when
   ``default_height_m=None`` are errors naming the ids.
-* CRS: the one named by the caller (must be projected, in metres), else the UTM zone of the mean footprint
-  centroid (``pyproj.database.query_utm_crs_info``).  Every layer is reprojected to it, with a note.
+* CRS: the one named by the caller (must be projected, in metres), else the UTM zone of the data centroid
+  (mean of the footprints' bounding-box centres; ``pyproj.database.query_utm_crs_info``).  Every layer is
+  reprojected to it, with a note.
 * GeoJSON is longitude/latitude by RFC 7946; a GeoJSON whose coordinates leave |x| <= 180, |y| <= 90 is refused.
 * Other layers without a CRS: taken to be in the caller's CRS if one is named, else in EPSG:4326 if their
   coordinates fit longitude/latitude (both with a note), else refused.
@@ -207,7 +208,10 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
                 f"{role} file '{path}' has no layer '{layer}'; its layers are {_listing(names)}"
             )
         try:
-            gdf = pyogrio.read_dataframe(path, layer=layer)
+            with warnings.catch_warnings():
+                # mixed-type properties (e.g. height 12 and "12 m") come back as strings: that is what we parse
+                warnings.filterwarnings("ignore", message="Could not parse column", category=UserWarning)
+                gdf = pyogrio.read_dataframe(path, layer=layer)
         except Exception as exc:  # noqa: BLE001
             raise InputDataError(
                 f"{role} file '{path}' could not be read ({type(exc).__name__}: {exc}); check the file is a "
@@ -347,9 +351,10 @@ def _named_crs(crs) -> pyproj.CRS:
 def _utm_from_centroid(gdf: gpd.GeoDataFrame) -> pyproj.CRS:
     geoms = gdf.geometry.values
     ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    c = shapely.centroid(geoms[ok])
+    # centre of each feature's bounding box: robust to invalid rings (a bow-tie's centroid is undefined)
+    b = shapely.bounds(geoms[ok])
     to_ll = pyproj.Transformer.from_crs(gdf.crs, 4326, always_xy=True)
-    lon, lat = to_ll.transform(shapely.get_x(c), shapely.get_y(c))
+    lon, lat = to_ll.transform((b[:, 0] + b[:, 2]) / 2, (b[:, 1] + b[:, 3]) / 2)
     lon0, lat0 = float(np.nanmean(lon)), float(np.nanmean(lat))
     infos = query_utm_crs_info(datum_name="WGS 84", area_of_interest=AreaOfInterest(lon0, lat0, lon0, lat0))
     if not infos:
@@ -706,7 +711,7 @@ def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | N
             )
         return np.full(len(gdf), float(default))
     raw = gdf[col]
-    val = pd.to_numeric(raw, errors="coerce").to_numpy(float)
+    val = pd.to_numeric(raw, errors="coerce").to_numpy(float, copy=True)
     absent = raw.isna().to_numpy()
     unreadable = ~absent & ~np.isfinite(val)
     if unreadable.any():
