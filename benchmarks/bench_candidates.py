@@ -64,7 +64,7 @@ def synthetic_district(n_buildings: int, seed: int = 1, pitch_m: float = 50.0, s
 
 def loop_spots(buildings, subset, *, spacing_m=5.0, heights=(4.0, 8.0), roof_margin_m=1.0, offset_m=0.05,
                party_gap_m=0.5, front_clear_m=1.0, min_wall_m=0.5):
-    """Reference: per building, per wall, scalar shapely calls (same rules as facade_spots, no simplify)."""
+    """Reference: per building, per wall, scalar shapely calls (same rules as facade_spots, simplify off)."""
     geoms = list(buildings.geometry)
     zone = shapely.buffer(np.asarray(geoms, dtype=object), party_gap_m)
     tree_zone, tree = shapely.STRtree(zone), shapely.STRtree(geoms)
@@ -91,6 +91,9 @@ def loop_spots(buildings, subset, *, spacing_m=5.0, heights=(4.0, 8.0), roof_mar
                         sx, sy = w.x + offset_m * nx, w.y + offset_m * ny
                         front = shapely.LineString([(w.x, w.y), (sx + front_clear_m * nx, sy + front_clear_m * ny)])
                         if any(j != i for j in tree.query(front, predicate="intersects")):
+                            continue
+                        ahead = shapely.LineString([(sx, sy), (sx + front_clear_m * nx, sy + front_clear_m * ny)])
+                        if ahead.intersects(geoms[i]):  # own building in front (notch, narrow courtyard)
                             continue
                         out.extend((i, sx, sy, h) for h in hs)
     return out

@@ -103,6 +103,10 @@ def test_touching_boxes_have_no_spot_on_the_shared_wall():
     w = cand.wall_segments(b)
     assert _allclose(np.sort(w.length_m), [9.5, 9.5, 9.5, 9.5, 10, 10])
     assert len(s) == 2 * 2 * (1 + 1 + 2)
+    # with no gap only the shared wall itself goes: 10 m N/S walls, no E wall on b0, no W wall on b1
+    w0 = cand.wall_segments(b, party_gap_m=0.0)
+    assert len(w0) == 6 and _allclose(w0.length_m, 10.0)
+    assert sorted(w0.normal_az_deg[w0.building_idx == 0]) == [0.0, 180.0, 270.0]
 
 
 def test_l_shape_re_entrant_corner_normals():
@@ -132,6 +136,19 @@ def test_front_clearance_drops_spots_facing_a_close_building():
     s2 = cand.facade_spots(b, front_clear_m=0.5)
     facing2 = ((s2.building_idx == 0) & (s2.normal_az_deg == 90.0))
     assert facing2.sum() == 4
+
+
+def test_front_clearance_applies_to_the_own_building_in_a_narrow_notch():
+    # a 20 x 10 box with a 0.6 m wide, 6 m deep notch cut from the north side at x = 9.7..10.3: the notch's side
+    # walls face each other 0.6 m apart (< front_clear_m = 1 m) and carry no spot; without the clearance they do
+    notch = Polygon([(X0, Y0), (X0 + 20, Y0), (X0 + 20, Y0 + 10), (X0 + 10.3, Y0 + 10), (X0 + 10.3, Y0 + 4),
+                     (X0 + 9.7, Y0 + 4), (X0 + 9.7, Y0 + 10), (X0, Y0 + 10)])
+    b = canonical._frame([notch], [12])
+    in_notch = lambda s: (s.x > X0 + 9.7) & (s.x < X0 + 10.3) & (s.y > Y0 + 4) & (s.y < Y0 + 10)  # noqa: E731
+    s = cand.facade_spots(b, mount_heights_m=[4.0])
+    assert set(s[in_notch(s)].normal_az_deg) == {0.0}  # only the notch's end wall, facing out of the notch
+    s0 = cand.facade_spots(b, mount_heights_m=[4.0], front_clear_m=0.0)
+    assert set(s0[in_notch(s0)].normal_az_deg) == {0.0, 90.0, 270.0}
 
 
 def test_near_collinear_vertices_are_simplified_away():
