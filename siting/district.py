@@ -42,7 +42,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import re
 import warnings
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -488,7 +487,7 @@ def _resolve_heights(
             f"{float(default_height_m):g} m was used."
         )
         notes.append(msg)
-        warnings.warn(msg, UserWarning, stacklevel=3)
+        warnings.warn(msg, UserWarning, stacklevel=4)  # points at the caller of load_district
     _check_range(height, ids, "the resolved height", path)
     return height, rule
 
@@ -512,14 +511,16 @@ def _check_range(val: np.ndarray, ids: np.ndarray, what: str, path: Path) -> Non
 
 
 def _ids_to_str(s: pd.Series) -> np.ndarray:
+    """Ids as strings (integral floats without '.0'); None where the value is missing."""
+    isna = s.isna().to_numpy()
     if pd.api.types.is_float_dtype(s):
         v = s.to_numpy(float)
         fin = np.isfinite(v)
         if np.all(v[fin] == np.round(v[fin])):
-            out = np.array([str(int(x)) if f else None for x, f in zip(v, fin)], dtype=object)
-            return out
-    out = s.astype(object).to_numpy()
-    return np.array([None if (x is None or (isinstance(x, float) and np.isnan(x))) else str(x) for x in out], dtype=object)
+            s = s.astype("Int64")
+    out = s.astype(str).to_numpy(dtype=object, copy=True)
+    out[isna] = None
+    return out
 
 
 def _text_column(df: pd.DataFrame, col: str) -> pd.Series:
@@ -734,7 +735,7 @@ def _refs(gdf: gpd.GeoDataFrame, candidates: tuple[str, ...]) -> np.ndarray:
     if col is None:
         return index
     ids = _ids_to_str(gdf[col])
-    return np.array([i if i is not None else j for i, j in zip(ids, index)], dtype=object)
+    return np.where(pd.isna(ids), index, ids).astype(object)
 
 
 def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations") -> pd.DataFrame:

@@ -557,3 +557,20 @@ def test_demo_job_file_parses():
     assert job["radio"]["frequency_ghz"] == 28.0 and len(job["surfaces"]["panels"]) == 3
     cost = sorted(p["cost"] + p["install_cost"] for p in job["surfaces"]["panels"])
     assert 8 <= job["budget"]["max_cost"] / np.mean(cost) <= 15  # roughly 8-15 panels of a mixed catalogue
+
+
+def test_osm_area_bbox_passed_to_reader(tmp_path):
+    pyrosm = pytest.importorskip("pyrosm")
+    path = _pkg_file("pyrosm", "data", "test.osm.pbf")
+    bbox = [26.940, 60.525, 26.950, 60.530]
+    raw = pyrosm.OSM(str(path), bounding_box=bbox).get_buildings()  # pyrosm's own clip as the reference
+    bs = tmp_path / "bs.geojson"
+    bs.write_text(json.dumps({"type": "FeatureCollection", "features": [{"type": "Feature", "geometry": mapping(
+        Point(26.90, 60.50)), "properties": {"bs_id": "far", "z_m": 20, "tx_power_dbm": 40}}]}))
+    d = _load(tmp_path, path, bs, area_bbox_lonlat=bbox)
+    area_ll = shapely.box(*bbox)
+    hits = raw.intersects(area_ll) & raw.is_valid  # whole buildings that touch the box are kept
+    expected = set(raw["osm_type"].astype(str)[hits] + "/" + raw["id"].astype(str)[hits])
+    loaded = set(d.buildings["building_id"])
+    assert expected and expected <= loaded
+    assert len(loaded - expected) <= (~raw.is_valid).sum()  # at most the repaired ones differ
