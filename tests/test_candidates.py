@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import shapely
+import shapely.affinity
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapely.geometry import Polygon, box
@@ -185,9 +186,6 @@ def box_districts(draw):
         if u.geom_type == "Polygon":
             polys[0] = shapely.set_precision(u, 1e-6)
     return canonical._frame(polys, [20.0] * len(polys))
-
-
-import shapely.affinity  # noqa: E402  (used by the strategy above)
 
 
 @HYP
