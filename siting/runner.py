@@ -40,6 +40,7 @@ from .district import District, load_district
 from .errors import SitingError
 from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
 from .job import load_job
+from .tables import empty
 from .visibility import Obstacles, degree_stats
 
 log = logging.getLogger("siting")
@@ -106,13 +107,13 @@ def candidates_stage(district: District, job: dict, sizes: pd.DataFrame) -> tupl
     if district.given_sites is not None and len(district.given_sites):
         given, dropped = cand.snap_given_spots(
             district.buildings, district.given_sites, snap_tolerance_m=c["snap_tolerance_m"],
-            default_z_m=float(c["mount_heights_m"][0]), offset_m=c["offset_m"],
-            start_id=sum(len(p) for p in parts))
+            default_z_m=float(c["mount_heights_m"][0]), offset_m=c["offset_m"], party_gap_m=c["party_gap_m"],
+            min_wall_m=float(sizes["width_m"].min()), start_id=sum(len(p) for p in parts))
         parts.append(given)
         if dropped:
             notes.append(f"{len(dropped)} given spot(s) farther than {c['snap_tolerance_m']} m from any wall were "
                          f"dropped: {', '.join(map(str, dropped[:20]))}")
-    sites = pd.concat(parts, ignore_index=True) if parts else cand.facade_spots(district.buildings.iloc[:0])
+    sites = pd.concat(parts, ignore_index=True) if parts else empty("sites")
     sites["site_id"] = np.arange(len(sites), dtype=np.int64)
 
     demand = []
