@@ -574,3 +574,27 @@ def test_osm_area_bbox_passed_to_reader(tmp_path):
     loaded = set(d.buildings["building_id"])
     assert expected and expected <= loaded
     assert len(loaded - expected) <= (~raw.is_valid).sum()  # at most the repaired ones differ
+
+
+def test_layer_without_crs(tmp_path):
+    metres = gpd.GeoDataFrame({"id": ["a"], "height": [10.0]}, geometry=[box(E0, N0, E0 + 10, N0 + 10)])
+    p = tmp_path / "nocrs.shp"
+    pyogrio.write_dataframe(metres, p)
+    assert not p.with_suffix(".prj").exists()
+    with pytest.raises(InputDataError, match=r"no CRS.*\.prj"):
+        _load(tmp_path, p)
+    d = _load(tmp_path, p, crs="EPSG:32631")  # a named CRS is taken as the layer's, with a note
+    np.testing.assert_allclose(d.buildings.area, [100.0])
+    assert any("no CRS" in n for n in d.notes)
+    lonlat = gpd.GeoDataFrame({"id": ["a"]}, geometry=[_ll(box(0, 0, 10, 10))])
+    q = tmp_path / "ll.shp"
+    pyogrio.write_dataframe(lonlat, q)
+    d = _load(tmp_path, q)
+    assert d.crs.equals(UTM) and any("EPSG:4326" in n and "no CRS" in n for n in d.notes)
+    np.testing.assert_allclose(d.buildings.area, [100.0], rtol=1e-3)
+
+
+def test_feature_without_geometry_dropped_with_note(tmp_path):
+    d = _load(tmp_path, _write_fc(tmp_path / "b.geojson", _two_boxes() + [(None, {"id": "ghost"})]))
+    assert sorted(d.buildings.building_id) == ["a", "b"]
+    assert any("without geometry" in n and "ghost" in n for n in d.notes)
