@@ -276,24 +276,29 @@ def _prepare(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, width_m, height_m, freq_
     sa, ca = _frame(az)
     lu_i, lv_i, ln_i = (np.broadcast_to(x, shape).ravel() for x in _local(tx, c, sa, ca))
     lu_o, lv_o, ln_o = (np.broadcast_to(x, shape).ravel() for x in _local(rx, c, sa, ca))
-    w, h, f, eta, lq = (np.broadcast_to(x, shape).ravel() for x in (w, h, f, eta, lq))
-    return shape, (lu_i, lv_i, ln_i, lu_o, lv_o, ln_o), w, h, f, eta * lq
+    # per-triple parameters stay 0-d when they are scalars (cheaper element-wise work); see _at
+    w, h, f, scale = (x.reshape(()) if x.size == 1 else np.broadcast_to(x, shape).ravel()
+                      for x in (w, h, f, eta * lq))
+    return shape, (lu_i, lv_i, ln_i, lu_o, lv_o, ln_o), w, h, f, scale
 
 
-def _grouped_tile_sum(idx, loc, w, h, nx, ny, out_amp):
-    """Fill out_amp[idx] with the tile amplitude sums, one vectorised call per distinct (nx, ny)."""
-    if idx.size == 0:
-        return
-    key = nx[idx] * (1 << 32) + ny[idx]
+def _at(x, idx):
+    """x[idx] for a flat per-triple array or a 0-d parameter shared by all triples."""
+    return x[idx] if x.ndim else np.full(idx.shape, float(x))
+
+
+def _grouped_tile_sum(loc, w, h, nx, ny):
+    """Tile amplitude sums for 1-D arrays of triples, one vectorised call per distinct (nx, ny) group."""
+    amp = np.zeros(w.shape)
+    key = nx * (1 << 32) + ny
     order = np.argsort(key, kind="stable")
-    idx_sorted = idx[order]
     keys_sorted = key[order]
     starts = np.flatnonzero(np.r_[True, keys_sorted[1:] != keys_sorted[:-1]])
     ends = np.r_[starts[1:], keys_sorted.size]
-    for s, e in zip(starts, ends):  # one iteration per tile-count group
-        sel = idx_sorted[s:e]
-        gx, gy = int(nx[sel[0]]), int(ny[sel[0]])
-        out_amp[sel] = _tile_amplitude_sum(*(x[sel] for x in loc), w[sel], h[sel], gx, gy)
+    for s, e in zip(starts, ends):  # one iteration per tile-count group, not per triple
+        sel = order[s:e]
+        amp[sel] = _tile_amplitude_sum(*(x[sel] for x in loc), w[sel], h[sel], int(nx[sel[0]]), int(ny[sel[0]]))
+    return amp
 
 
 def surface_gain(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, width_m, height_m, freq_hz, efficiency=1.0,
@@ -354,22 +359,23 @@ def surface_gain(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, width_m, height_m, f
     d_f = 2.0 * (w * w + h * h) / lam
     far = front & (d1 >= d_f) & (d2 >= d_f)
 
-    beta = np.zeros(d1.shape)
-    s = w[far] * h[far]
-    # [2], Eq. 48 with cos = ln / d
-    beta[far] = s * s * ln_i[far] * ln_o[far] / (d1[far] * d2[far]) / (4.0 * np.pi * d1[far] * d2[far]) ** 2
+    s = w * h
+    p = d1 * d2
+    # [2], Eq. 48 with cos = ln / d: S^2 ln_i ln_o / (d1 d2)^3 / (4 pi)^2, computed for all, kept where far
+    with np.errstate(divide="ignore", invalid="ignore"):  # d = 0 only where `far` is False
+        beta = (s * s / (4.0 * np.pi) ** 2) * (ln_i * ln_o) / (p * p * p)
+    beta = np.where(far, beta, 0.0)
 
     near = np.flatnonzero(front & ~far)
     if near.size:
-        r_min = np.minimum(_min_distance_to_panel(lu_i[near], lv_i[near], ln_i[near], w[near], h[near]),
-                           _min_distance_to_panel(lu_o[near], lv_o[near], ln_o[near], w[near], h[near]))
-        nx = np.zeros(d1.shape, np.int64)
-        ny = np.zeros(d1.shape, np.int64)
-        nx[near], ny[near] = tile_counts(w[near], h[near], lam[near], r_min)
-        amp = np.zeros(d1.shape)
-        _grouped_tile_sum(near, loc, w, h, nx, ny, amp)
-        beta[near] = amp[near] ** 2  # [2], Eq. 42
-    beta *= scale
+        loc_n = tuple(x[near] for x in loc)
+        w_n, h_n, lam_n = _at(w, near), _at(h, near), _at(lam, near)
+        r_min = np.minimum(_min_distance_to_panel(*loc_n[:3], w_n, h_n),
+                           _min_distance_to_panel(*loc_n[3:], w_n, h_n))
+        nx, ny = tile_counts(w_n, h_n, lam_n, r_min)
+        beta[near] = _grouped_tile_sum(loc_n, w_n, h_n, nx, ny) ** 2  # [2], Eq. 42
+    if scale.ndim or float(scale) != 1.0:
+        beta *= scale
     return scalar_or_array(beta.reshape(shape))
 
 
@@ -419,8 +425,8 @@ def element_sum_gain(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, n_x, n_y, elemen
     shape, loc, w, h, f, scale = _prepare(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, n_x * dx, n_y * dy,
                                           1.0, efficiency, phase_bits)
     front = (loc[2] > 0) & (loc[5] > 0)
-    amp = np.zeros(w.shape)
+    amp = np.zeros(front.shape)
     idx = np.flatnonzero(front)
     if idx.size:
-        amp[idx] = _tile_amplitude_sum(*(x[idx] for x in loc), w[idx], h[idx], n_x, n_y)
+        amp[idx] = _tile_amplitude_sum(*(x[idx] for x in loc), _at(w, idx), _at(h, idx), n_x, n_y)
     return scalar_or_array((scale * amp**2).reshape(shape))
