@@ -26,6 +26,7 @@ from __future__ import annotations
 import logging
 import math
 import time
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -396,6 +397,9 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
     timings: dict[str, float] = {}
     recomputed: list[str] = []
     executor = None
+    caught_ctx = warnings.catch_warnings(record=True)
+    caught = caught_ctx.__enter__()
+    warnings.simplefilter("always")
     try:
         t0 = time.perf_counter()
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
@@ -460,6 +464,10 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
                  len(plan.chosen), plan.objective, plan.bound, plan.gap)
 
+        for message in dict.fromkeys(str(w.message) for w in caught):  # unique, in order
+            log.warning(message)
+            if message not in district.notes:
+                district.notes.append(message)
         result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
                            timings_s=timings, recomputed=recomputed)
         if write:
@@ -469,6 +477,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         log.info("finished; recomputed stages: %s", ", ".join(recomputed) or "none")
         return result
     finally:
+        caught_ctx.__exit__(None, None, None)
         if executor is not None:
             executor.close()
         log.removeHandler(handler)
