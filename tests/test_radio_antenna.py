@@ -47,7 +47,7 @@ def _reference_local_angles(dx, dy, dz, az_deg, tilt_deg):
     return np.degrees(np.arctan2(local[0], local[1])), np.degrees(np.arcsin(local[2]))
 
 
-def test_local_angles_match_scipy_rotation_seeded():
+def test_local_angles_match_scipy_rotation_random_sample():
     # reference: scipy.spatial.transform.Rotation (TR 38.901 section 7.1 rotation with slant 0)
     rng = np.random.default_rng(42)
     n = 60

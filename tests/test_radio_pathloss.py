@@ -130,7 +130,7 @@ def test_los_probability_uma_tall_terminal_raises_it():
 
 # ------------------------------------------------------------------------------------ model properties
 
-def test_nlos_never_below_los_seeded():
+def test_nlos_never_below_los_random_sample():
     # TR 38.901 Table 7.4.1-1: PL_NLOS = max(PL_LOS, PL'_NLOS) >= PL_LOS (CHECKS §2.1 property)
     rng = np.random.default_rng(5)
     d = rng.uniform(0, 5000, 2000)

@@ -117,7 +117,7 @@ def test_far_field_behind_panel_is_zero():
 
 # ------------------------------------------------------------------ tile sum against the exact element sum
 
-def test_tile_sum_matches_element_sum_seeded():
+def test_tile_sum_matches_element_sum_random_sample():
     # Reference: exact element-by-element co-phased sum (Tang general model / [NF] Eq. 42, CHECKS §3(b));
     # requirement: within 0.1 dB for panels up to 100 x 100 lambda/2 elements at 28 GHz, 2-200 m, oblique
     rng = np.random.default_rng(20240611)
