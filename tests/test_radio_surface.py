@@ -121,7 +121,7 @@ def test_tile_sum_matches_element_sum_random_sample():
     # Reference: exact element-by-element co-phased sum (Tang general model / [NF] Eq. 42, CHECKS §3(b));
     # requirement: within 0.1 dB for panels up to 100 x 100 lambda/2 elements at 28 GHz, 2-200 m, oblique
     rng = np.random.default_rng(20240611)
-    m = 48
+    m = 200
     n_side = rng.integers(8, 101, size=(m, 2))
     d = np.exp(rng.uniform(np.log(2.0), np.log(200.0), size=(m, 2)))
     # directions in front of the panel: azimuth within +-70 deg of the normal, elevation within +-50 deg
