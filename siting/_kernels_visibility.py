@@ -72,8 +72,30 @@ def build_edge_grid(ex0, ey0, ex1, ey1, eh, cs, nx, ny):
 
 
 @njit(cache=True, inline="always")
+def edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
+    """True when the track a + t (dx, dy), t in [0, 1], crosses grid entry k below its building's height.
+
+    Parallel (collinear) edges never block: a track running along a wall stays on the footprint's boundary.
+    """
+    ex = cx1[k] - cx0[k]
+    ey = cy1[k] - cy0[k]
+    den = dx * ey - dy * ex
+    if den == 0.0:
+        return False
+    qx = cx0[k] - ax
+    qy = cy0[k] - ay
+    t = (qx * ey - qy * ex) / den
+    if t < 0.0 or t > 1.0:
+        return False
+    u = (qx * dy - qy * dx) / den
+    if u < 0.0 or u > 1.0:
+        return False
+    return az + t * dz < ch[k]
+
+
+@njit(cache=True, inline="always")
 def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax):
-    """True when the 3-D segment a->b crosses a footprint edge below that building's height.
+    """Grid entry of a blocking edge crossing of the 3-D segment a->b, or -1 when nothing blocks it.
 
     DDA traversal (Amanatides & Woo) of the edge-grid cells along the horizontal track; in each visited cell
     whose tallest building reaches above the ray, every edge is intersected with the track and the ray's
@@ -85,7 +107,7 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
     dy = by - ay
     dz = bz - az
     if dx == 0.0 and dy == 0.0:
-        return False
+        return -1
     # Liang-Barsky clip of the track to the grid box [0, nx*cs] x [0, ny*cs]
     t0 = 0.0
     t1 = 1.0
@@ -99,7 +121,7 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
         t0 = max(t0, ta)
         t1 = min(t1, tb)
     elif ax < 0.0 or ax > xmax:
-        return False
+        return -1
     if dy != 0.0:
         ta = (0.0 - ay) / dy
         tb = (ymax - ay) / dy
@@ -108,9 +130,9 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
         t0 = max(t0, ta)
         t1 = min(t1, tb)
     elif ay < 0.0 or ay > ymax:
-        return False
+        return -1
     if t0 > t1:
-        return False
+        return -1
     px = ax + t0 * dx
     py = ay + t0 * dy
     ix = min(nx - 1, max(0, int(math.floor(px / cs))))
@@ -149,21 +171,8 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
         zmin = za if za < zb else zb
         if zmin < hmax[c] + HMAX_MARGIN_M:
             for k in range(start[c], start[c + 1]):
-                ex = cx1[k] - cx0[k]
-                ey = cy1[k] - cy0[k]
-                den = dx * ey - dy * ex
-                if den == 0.0:
-                    continue
-                qx = cx0[k] - ax
-                qy = cy0[k] - ay
-                t = (qx * ey - qy * ex) / den
-                if t < 0.0 or t > 1.0:
-                    continue
-                u = (qx * dy - qy * dx) / den
-                if u < 0.0 or u > 1.0:
-                    continue
-                if az + t * dz < ch[k]:
-                    return True
+                if edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
+                    return k
         if t_exit >= t1:
             break
         if tmaxx < tmaxy:
@@ -176,7 +185,7 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
             tmaxy += tdy
         if ix < 0 or ix >= nx or iy < 0 or iy >= ny:
             break
-    return False
+    return -1
 
 
 @njit(cache=True, parallel=True)
@@ -188,8 +197,9 @@ def los_elementwise(ax, ay, az, bx, by, bz, buried_a, buried_b, cs, nx, ny, star
         if buried_a[i] or buried_b[i]:
             out[i] = False
         else:
-            out[i] = not segment_blocked(
-                ax[i], ay[i], az[i], bx[i], by[i], bz[i], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax
+            out[i] = (
+                segment_blocked(ax[i], ay[i], az[i], bx[i], by[i], bz[i], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
+                < 0
             )
     return out
 
@@ -261,6 +271,7 @@ def _scan(
     iy1 = min(pny - 1, int(math.floor((y + r - py0) / pcs)))
     pos = offsets[i] if fill else 0
     n = 0
+    last = -1  # grid entry that blocked the previous ray from this point: nearby rays usually share it
     for iy in range(iy0, iy1 + 1):
         # horizontal half-width of the disc over this row of cells
         ylo = py0 + iy * pcs
@@ -285,9 +296,13 @@ def _scan(
             if fill:
                 vis = False
                 if with_los and not (buried_a[i] or buried_b[j]):
-                    vis = not segment_blocked(
-                        x, y, z, bx[j], by[j], bz[j], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax
-                    )
+                    if last >= 0 and edge_blocks(last, x, y, z, bx[j] - x, by[j] - y, bz[j] - z, cx0, cy0, cx1, cy1, ch):
+                        vis = False
+                    else:
+                        k = segment_blocked(x, y, z, bx[j], by[j], bz[j], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
+                        vis = k < 0
+                        if k >= 0:
+                            last = k
                 key[pos + n] = 2 * j + (1 if vis else 0)
             n += 1
     if fill and n > 1:
