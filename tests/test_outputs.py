@@ -584,3 +584,40 @@ def test_unwritable_output_folder(tmp_path):
     blocker.write_text("x")
     with pytest.raises(SitingError, match="writable folder"):
         write_outputs(blocker / "out", make_bundle())
+
+
+# ------------------------------------------------------------------------------------------ smaller cases
+
+def test_files_get_ordinary_permissions(out):
+    d, files = out
+    import os
+    umask = os.umask(0)
+    os.umask(umask)
+    for p in files.values():  # like any file the user creates: 0o666 & ~umask (common practice)
+        assert Path(p).stat().st_mode & 0o777 == 0o666 & ~umask, p
+
+
+def test_no_sweep_numpy_chosen_and_unknown_snr(tmp_path):
+    b = make_bundle(seed=5, sweep=None)
+    b.plan.chosen = np.asarray(b.plan.chosen, dtype=np.int64)  # an array is as good as a list
+    write_outputs(tmp_path, b)
+    html_text = (tmp_path / "report.html").read_text(encoding="utf-8")
+    assert "No budget sweep was run" in html_text
+    assert not (tmp_path / "figures" / "coverage_curve.png").exists()
+    # users with no base station in range (-inf dB) have a null SNR in GeoJSON, which has no infinity
+    raw = json.loads((tmp_path / "demand.geojson").read_text())
+    no_signal = set(np.flatnonzero(~np.isfinite(b.direct["snr_db"].to_numpy())))
+    assert no_signal
+    for f in raw["features"]:
+        if f["properties"]["user_id"] in no_signal:
+            assert f["properties"]["snr_direct_db"] is None
+        if f["properties"]["serving_rank"] == 0:
+            assert f["properties"]["serving_site_id"] is None
+
+
+def test_ranking_order_wins_over_plan_order(tmp_path):
+    b = make_bundle()
+    assert len(b.plan.chosen) >= 2
+    b.plan.chosen = list(reversed(b.plan.chosen))  # the ranking table still holds the real order
+    fig = derive(b)
+    assert list(fig.sites["option_id"]) == list(b.ranking.sort_values("rank")["option"])

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import os
-import tempfile
+import secrets
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -39,9 +39,18 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
             f"expected an existing output folder for '{path.name}', found none at '{folder}'; "
             "create the folder first (write_outputs does this for its own output folder)"
         )
-    fd, tmp = tempfile.mkstemp(prefix=TMP_PREFIX + path.name + ".", suffix=suffix or path.suffix, dir=folder)
+    # like mkstemp (exclusive create, unguessable name) but with the usual 0o666 & ~umask permissions,
+    # so the renamed file is as readable as any file the user creates
+    for _ in range(100):
+        tmp_path = folder / f"{TMP_PREFIX}{path.name}.{secrets.token_hex(6)}{suffix or path.suffix}"
+        try:
+            fd = os.open(tmp_path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+            break
+        except FileExistsError:
+            continue
+    else:  # pragma: no cover - 100 collisions of 48 random bits
+        raise SitingError(f"could not create a temporary file beside '{path}'")
     os.close(fd)
-    tmp_path = Path(tmp)
     try:
         yield tmp_path
         _fsync_file(tmp_path)

@@ -77,6 +77,12 @@ def _plan_attr(plan, name, default=None):
     return getattr(plan, name, default)
 
 
+def chosen_ids(plan) -> np.ndarray:
+    """The plan's chosen option ids as an int64 array (accepts a list, a tuple, an array or None)."""
+    chosen = _plan_attr(plan, "chosen", None)
+    return np.asarray([] if chosen is None else list(chosen))
+
+
 def _float_or_none(v):
     try:
         f = float(v)
@@ -160,7 +166,7 @@ def _check_bundle(b) -> None:
                           "the coverage and options tables come from different runs")
     if b.direct["user_id"].duplicated().any():
         raise SitingError("output bundle: 'direct' has more than one row for some user ids; expected one per user")
-    chosen = np.asarray(list(_plan_attr(b.plan, "chosen", []) or []))
+    chosen = chosen_ids(b.plan)
     if chosen.size:
         if not np.issubdtype(chosen.dtype, np.integer):
             raise SitingError(f"output bundle: expected plan.chosen to hold integer option ids, got "
@@ -195,7 +201,7 @@ def derive(b) -> PlanFigures:
     target = float(b.snr_target_db)
     users, sites, options, sizes = b.users, b.sites, b.options, b.sizes
     n_users = len(users)
-    chosen = _rank_order(np.asarray(list(_plan_attr(b.plan, "chosen", []) or []), dtype=np.int64), b.ranking)
+    chosen = _rank_order(chosen_ids(b.plan).astype(np.int64), b.ranking)
     k = len(chosen)
     rank_of_option = np.zeros(len(options), dtype=np.int64)  # 0 = not chosen, else 1-based rank
     rank_of_option[chosen] = np.arange(1, k + 1)
@@ -341,8 +347,9 @@ def derive(b) -> PlanFigures:
         "size_id": o["size_id"].astype(str).to_numpy(), "width_m": width, "height_m": height,
         "area_m2": width * height, "elements": elements, "cost": o["cost"].to_numpy(float),
         "marginal_weight": marginal, "exclusive_weight": excl, "shared_weight": shared,
-        "cumulative_weight": cumulative, "cumulative_share": cumulative / total_w if total_w > 0 else np.zeros(k),
-        "n_users_served": n_served, "served_weight": w_served, "median_snr_gain_db": med_gain,
+        "cumulative_weight": cumulative,
+        "cumulative_share": np.round(cumulative / total_w, 6) if total_w > 0 else np.zeros(k),
+        "n_users_served": n_served, "served_weight": w_served, "median_snr_gain_db": np.round(med_gain, 2),
         "serving_bs_id": bs_name(feed), "backup_site_ids": backup_ids, "wall_free_m": wall_free,
         "notes": site_notes.astype(object),
     }, columns=list(SITE_COLUMNS))

@@ -24,10 +24,11 @@ BUILDING_EDGE = "#8C8C8C"
 DPI = 110
 
 
-def _png(fig: Figure) -> bytes:
+def _png(fig: Figure, tight: bool = True) -> bytes:
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
+    extra = {"bbox_inches": "tight", "pad_inches": 0.08} if tight else {}
+    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None}, **extra)
     return buf.getvalue()
 
 
@@ -192,5 +193,5 @@ def site_map(bundle, fig_data: PlanFigures, rank: int, radius_m: float = 60.0) -
     ax.tick_params(labelsize=7)
     ax.set_title(f"site {int(s['site_id'])} (rank {rank}), facing {s['facing']}", fontsize=9)
     ax.legend(fontsize=6, loc="lower left", frameon=True, framealpha=0.8)
-    fig.tight_layout()
-    return _png(fig)
+    fig.subplots_adjust(left=0.17, right=0.97, bottom=0.13, top=0.91)  # fixed layout: one draw per map
+    return _png(fig, tight=False)

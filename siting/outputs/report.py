@@ -218,6 +218,7 @@ td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-al
 td.n { text-align: right; font-variant-numeric: tabular-nums; }
 img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 .lead { font-size: 1.05em; background: #f2f2f2; padding: .6em .9em; border-left: 4px solid #0072B2; }
+.wide { overflow-x: auto; max-width: 100%; }
 .caution { border-left: 4px solid #D55E00; padding-left: .8em; }
 """
 
@@ -228,7 +229,7 @@ def _html_table(head, rows, numeric_from: int = 1) -> str:
     num = ' class="n"'
     body = "".join("<tr>" + "".join(f"<td{num if i >= numeric_from else ''}>{esc(str(v))}</td>"
                                     for i, v in enumerate(r)) + "</tr>" for r in rows)
-    return f"<table><thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>"
+    return f"<div class=\"wide\"><table><thead><tr>{h}</tr></thead><tbody>{body}</tbody></table></div>"
 
 
 def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
