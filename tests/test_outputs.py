@@ -621,3 +621,24 @@ def test_ranking_order_wins_over_plan_order(tmp_path):
     b.plan.chosen = list(reversed(b.plan.chosen))  # the ranking table still holds the real order
     fig = derive(b)
     assert list(fig.sites["option_id"]) == list(b.ranking.sort_values("rank")["option"])
+
+
+def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
+    b = make_bundle()
+    fig0 = derive(b)
+    newly = fig0.users["newly_covered"].to_numpy()
+    drop = np.flatnonzero(newly)[:3]  # pretend the cap left three reachable users out
+    covered = newly.copy()
+    covered[drop] = False
+    b.plan.covered = covered
+    b.params = {**b.params, "surfaces": {**b.params["surfaces"], "load_cap_weight": 10.0}}
+    fig = derive(b)
+    w = b.users["weight"].to_numpy()
+    assert fig.summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"] - w[drop].sum())
+    assert not fig.users["covered_after"].to_numpy()[drop].any()
+    assert (fig.users["serving_site_id"].to_numpy()[drop] == -1).all()
+    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    assert any("load cap" in n for n in fig.notes)
+    # without a cap in the parameters, plan.covered is not consulted
+    b.params["surfaces"]["load_cap_weight"] = 0.0
+    assert derive(b).summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"])

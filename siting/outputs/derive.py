@@ -11,7 +11,9 @@ Rules (from the plan's coverage relation, DESIGN.md sections 5 and 6)
 * The serving surface of a user is the chosen option giving that best SNR (ties: the better-ranked site);
   users whose direct path is at least as good have no serving surface.
 * Covered after = covered directly, or best chosen SNR >= target.  Newly covered = covered after and not
-  covered directly; this is the quantity the optimiser maximises.
+  covered directly; this is the quantity the optimiser maximises.  With a per-surface load cap
+  (``surfaces.load_cap_weight`` > 0) only the users the plan marks as covered (``plan.covered``) count and
+  are served; the others keep their direct SNR, and a note says how many were left out.
 * For a chosen site: *exclusive weight* is the newly covered weight that no other chosen site reaches at
   the target, *shared weight* the newly covered weight it reaches together with other chosen sites;
   *marginal weight* is what it adds in rank order, and *cumulative weight* the covered weight (direct
@@ -81,6 +83,13 @@ def chosen_ids(plan) -> np.ndarray:
     """The plan's chosen option ids as an int64 array (accepts a list, a tuple, an array or None)."""
     chosen = _plan_attr(plan, "chosen", None)
     return np.asarray([] if chosen is None else list(chosen))
+
+
+def _load_cap(params) -> float:
+    try:
+        return float((params or {}).get("surfaces", {}).get("load_cap_weight") or 0.0)
+    except (TypeError, ValueError, AttributeError):
+        return 0.0
 
 
 def _float_or_none(v):
@@ -236,8 +245,21 @@ def derive(b) -> PlanFigures:
     best_bs[c_user[best]] = c_bs[best]
 
     served = (best_opt >= 0) & (best_snr >= snr_direct)
+    reach = best_snr >= target
+    # with a per-surface load cap the optimiser assigns users to surfaces; only its 'covered' users are served
+    assigned = np.ones(n_users, dtype=bool)
+    plan_cov = _plan_attr(b.plan, "covered", None)
+    if _load_cap(b.params) and plan_cov is not None and len(plan_cov) == n_users:
+        assigned = np.asarray(plan_cov, dtype=bool)
+        left_out = reach & ~before & ~assigned
+        if left_out.any():
+            notes.append(f"{int(left_out.sum())} demand point(s) (weight {weight[left_out].sum():.2f}) reach the "
+                         "SNR target through a chosen surface but are not counted: the per-surface load cap "
+                         "leaves no capacity for them")
+        served &= assigned
+        reach &= assigned | before
     snr_plan = np.where(served, best_snr, snr_direct)
-    after = before | (best_snr >= target)
+    after = before | reach
     newly = after & ~before
     serving_opt = np.where(served, best_opt, -1)
     serving_site = np.where(served, options["site_id"].to_numpy(np.int64)[np.maximum(serving_opt, 0)], -1)
@@ -262,7 +284,7 @@ def derive(b) -> PlanFigures:
     })
 
     # which chosen sites reach which not-yet-covered users at the target (deduplicated pairs)
-    hit = (c_snr >= target) & ~before[c_user]
+    hit = (c_snr >= target) & ~before[c_user] & assigned[c_user]
     pair = np.unique((c_rank[hit] - 1) * max(n_users, 1) + c_user[hit])
     p_rank0, p_user = pair // max(n_users, 1), pair % max(n_users, 1)
     n_cover = np.bincount(p_user, minlength=n_users)
