@@ -50,9 +50,9 @@ Reductions (``reduce=True``; each keeps the optimum, see tests/test_optimize.py)
    are merged and the class becomes an integer count ``m_i``.
 
 Independent components (connected components of the option-user graph, joined through sites and
-conflicts) are counted and reported; with a global budget or count they are kept in one model: HiGHS
-exploits the block structure itself and measurement (benchmarks/bench_optimize.py) showed no gain from
-splitting them and combining their coverage-versus-budget curves by a knapsack.
+conflicts) are counted and reported in ``Plan.model_size``; with a global budget or count they are kept
+in one model rather than solved apart and combined by a knapsack over their coverage-versus-budget
+curves: HiGHS detects the block structure in presolve, and one model keeps a single proven bound.
 
 Solving
 -------
@@ -274,6 +274,7 @@ class _Reduced:
     cap: np.ndarray | None
     conflicts: np.ndarray
     stats: dict
+    reduced: bool = True
 
 
 def _dominated(C, c, site, cap):
@@ -319,7 +320,7 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     stats = {"options_in": n_opt, "users_in": n_user}
     if not reduce:
         return _Reduced(np.arange(n_opt), np.arange(n_user), C, w.copy(), np.ones(n_user, np.int64), inst.c,
-                        inst.site, inst.load_cap, inst.conflicts, stats)
+                        inst.site, inst.load_cap, inst.conflicts, stats, reduced=False)
     col_cnt = np.bincount(C.indices, minlength=n_user)
     users = np.flatnonzero((col_cnt > 0) & (w > 0))
     Cu = C[:, users]
@@ -420,6 +421,7 @@ class _Milp:
     target_row: int = -1
     delta: float = 0.0  # max value of the tie-break term (added to the bound)
     obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective (+ tie-break)
+    eps: float = 0.0  # tie-break weight per unit cost
 
     @property
     def size(self):
@@ -467,16 +469,25 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
     blocks = []
     lo, hi = [], []
     if not capped:
-        nv = n + m
-        obj = np.r_[eps * c, -w] if mode == "max" else np.r_[c, np.zeros(m)]
+        # users whose covering options all sit at one site: y_i = sum_j x_j exactly (at most one option per
+        # site, and maximising pushes y_i up to it), so their weight moves onto the x_j and the cover row
+        # and y_i go away.  Same LP relaxation, fewer rows.
+        loc = _site_local(red) if red.reduced else np.zeros(m, bool)
+        keep = np.flatnonzero(~loc)
+        xw = C.astype(float) @ np.where(loc, w, 0.0)  # weight each option brings through local users
+        Ck = C[:, keep]
+        wk = w[keep]
+        mk = len(keep)
+        nv = n + mk
+        obj = np.r_[eps * c - xw, -wk] if mode == "max" else np.r_[c, np.zeros(mk)]
         col_lo = np.zeros(nv)
         col_hi = np.ones(nv)
-        integer = np.r_[np.ones(n, bool), np.zeros(m, bool)]
-        cov = sp.hstack([-C.T.astype(float), sp.eye_array(m, format="csr")], format="csr")
+        integer = np.r_[np.ones(n, bool), np.zeros(mk, bool)]
+        cov = sp.hstack([-Ck.T.astype(float), sp.eye_array(mk, format="csr")], format="csr")
         blocks.append(cov)
-        lo.append(np.full(m, -_INF))
-        hi.append(np.zeros(m))
-        val_row = np.r_[np.zeros(n), w]
+        lo.append(np.full(mk, -_INF))
+        hi.append(np.zeros(mk))
+        val_row = np.r_[xw, wk]
     else:
         nnz = C.nnz
         rowj = np.repeat(np.arange(n), np.diff(C.indptr))
@@ -532,7 +543,22 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
     return _Milp(obj, A, np.concatenate([np.asarray(v, float) for v in lo]) if lo else np.zeros(0),
                  np.concatenate([np.asarray(v, float) for v in hi]) if hi else np.zeros(0),
                  col_lo, col_hi, integer, n, budget_row, target_row, eps * cost_cap,
-                 -1.0 if mode == "max" else 1.0)
+                 -1.0 if mode == "max" else 1.0, eps)
+
+
+def _site_local(red: _Reduced) -> np.ndarray:
+    """Bool per user class: every option covering it sits at one and the same site."""
+    Cc = sp.csc_array(red.C)
+    if Cc.nnz == 0:
+        return np.zeros(red.C.shape[1], bool)
+    s = red.site[Cc.indices].astype(float)
+    starts = Cc.indptr[:-1]
+    nz = np.diff(Cc.indptr) > 0
+    smax = np.full(red.C.shape[1], -np.inf)
+    smin = np.full(red.C.shape[1], np.inf)
+    smax[nz] = np.maximum.reduceat(s, starts[nz])
+    smin[nz] = np.minimum.reduceat(s, starts[nz])
+    return nz & (smax == smin)
 
 
 def _start_vector(red: _Reduced, milp: _Milp, chosen_red: np.ndarray):
@@ -543,6 +569,8 @@ def _start_vector(red: _Reduced, milp: _Milp, chosen_red: np.ndarray):
     if red.cap is not None:
         return np.arange(n), x
     y = np.minimum(1.0, red.C.T.astype(float) @ x)
+    if red.reduced:
+        y = y[~_site_local(red)]
     return np.arange(len(milp.obj)), np.r_[x, y]
 
 
@@ -1387,7 +1415,7 @@ def lp_relaxation_bound(cover, weight, cost, option_site, *, budget=None, max_co
     if red.C.shape[0] == 0 or red.C.shape[1] == 0:
         return 0.0
     milp = _build(red, inst.budget, inst.max_count)
-    milp.obj[: milp.n_x] = 0.0  # drop the tie-break term: pure covered weight
+    milp.obj[: milp.n_x] -= milp.eps * red.c  # drop the tie-break term: pure covered weight
     h = _highs_new(milp, 1e-9, None, relax=True)
     h.run()
     return float(-h.getInfo().objective_function_value)

@@ -325,7 +325,7 @@ def test_everything_already_covered_via_tables():
 
 
 def test_deterministic():
-    C, w, c, site = make_instance(9, n_sites=30, n_users=200, density=0.1)
+    C, w, c, site = make_instance(9, n_sites=20, n_users=120, density=0.1)
     a = opt.solve_coverage(C, w, c, site, budget=20)
     b = opt.solve_coverage(C, w, c, site, budget=20)
     assert a.chosen.tolist() == b.chosen.tolist() and a.objective == b.objective
