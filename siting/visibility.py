@@ -126,8 +126,9 @@ class Obstacles:
         heights_m : array_like
             Roof height above ground of each footprint [m], finite and >= 0.
         cell_m : float, optional
-            Grid cell side [m].  Default: twice the mean edge spacing, ``2 sqrt(area / n_edges)``, clipped
-            to [2, 50] m, which keeps a few edges per occupied cell.
+            Grid cell side [m].  Default: half the mean edge spacing, ``0.5 sqrt(area / n_edges)`` over the
+            footprints' bounding box, clipped to [2, 50] m (about 10 m in a dense European district; run
+            times vary little between 4 and 20 m there, see benchmarks/bench_visibility.py).
 
         Raises
         ------
@@ -197,7 +198,7 @@ class Obstacles:
             xmax = ymax = 1.0
         if cell_m is None:
             area = max((xmax - xmin) * (ymax - ymin), 1.0)
-            cell_m = float(np.clip(2.0 * math.sqrt(area / max(n_edges, 1)), 2.0, 50.0))
+            cell_m = float(np.clip(0.5 * math.sqrt(area / max(n_edges, 1)), 2.0, 50.0))
         elif not (np.isfinite(cell_m) and cell_m > 0):
             raise JobError(f"cell_m must be a positive number of metres, got {cell_m!r}", source="visibility")
         # grid must stay a sane size: enlarge cells when the extent is huge
@@ -225,23 +226,28 @@ class Obstacles:
             self._tree = shapely.STRtree(self.polygons)
         return self._tree
 
+    def roof_above(self, x, y) -> np.ndarray:
+        """Tallest roof [m] among the footprints strictly containing each point (x, y); -inf outside all.
+
+        Repeated positions are looked up once (``line_of_sight`` on pair lists repeats them a lot).
+        """
+        xy = np.ascontiguousarray(np.c_[np.asarray(x, float), np.asarray(y, float)])
+        out = np.full(len(xy), -np.inf)
+        if len(xy) == 0 or len(self.polygons) == 0:
+            return out
+        uniq, inv = np.unique(xy.view(np.complex128).ravel(), return_inverse=True)
+        ip, ib = self.tree.query(shapely.points(uniq.real, uniq.imag), predicate="within")
+        top = np.full(len(uniq), -np.inf)
+        np.maximum.at(top, ip, self.heights_m[ib])
+        return top[inv.ravel()]
+
     def buried(self, x, y, z_m) -> np.ndarray:
         """True where a point lies strictly inside a footprint and below that building's roof.
 
         Such an endpoint blocks every segment from it (DESIGN.md section 4).  A rooftop point at or above
         its roof is not buried.
         """
-        x = np.asarray(x, float)
-        y = np.asarray(y, float)
-        z = np.asarray(z_m, float)
-        out = np.zeros(len(x), bool)
-        if len(x) == 0 or len(self.polygons) == 0:
-            return out
-        pts = shapely.points(x, y)
-        ip, ib = self.tree.query(pts, predicate="within")
-        below = z[ip] < self.heights_m[ib]
-        out[ip[below]] = True
-        return out
+        return np.asarray(z_m, float) < self.roof_above(x, y)
 
     def _kernel_args(self):
         return (self.cell_m, self.nx, self.ny) + tuple(self._grid)

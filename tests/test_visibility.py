@@ -459,3 +459,19 @@ def test_bad_parameters_and_points():
         line_of_sight(ob, np.zeros((2, 3)), np.zeros((3, 3)))
     with pytest.raises(InputDataError, match="non-finite"):
         line_of_sight(ob, np.full((1, 3), np.nan), np.zeros((1, 3)))
+
+
+def test_buried_endpoints_use_tallest_containing_footprint():
+    # two overlapping parts (as OSM building:part outlines often are): the taller roof decides
+    polys = [box(0, 0, 20, 20), box(10, 0, 30, 20)]
+    ob = Obstacles.from_buildings(polys, [8.0, 14.0])
+    x = np.array([5.0, 15.0, 15.0, 25.0, 40.0, 15.0])
+    y = np.array([5.0, 5.0, 5.0, 5.0, 5.0, 5.0])
+    z = np.array([9.0, 9.0, 14.5, 13.0, 0.0, 9.0])
+    # reference: shapely contains_properly per footprint, buried iff some containing roof is above z
+    inside = np.array([[shapely.contains_properly(p, shapely.Point(xi, yi)) for p in polys] for xi, yi in zip(x, y)])
+    expect = (inside & (z[:, None] < np.array([8.0, 14.0]))).any(1)
+    np.testing.assert_array_equal(ob.buried(x, y, z), expect)
+    np.testing.assert_array_equal(expect, [False, True, False, True, False, True])
+    # a buried endpoint blocks even a segment that never crosses an edge below the roof
+    assert not line_of_sight(ob, [[15.0, 5.0, 9.0]], [[15.0, 15.0, 9.0]])[0]
