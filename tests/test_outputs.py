@@ -135,11 +135,11 @@ def make_bundle(seed: int = 7, budget: float | None = 1300.0, max_panels: int | 
     plan = SimpleNamespace(chosen=list(chosen), objective=new_w, bound=new_w * 1.02, gap=0.0196, status="Optimal",
                            solver="HiGHS", cost=spent, message="", greedy_objective=new_w,
                            timings_s={"solve": 0.01}, model_size={"variables": 40, "constraints": 30})
-    sweep = pd.DataFrame({"budget": [0.0, 150.0, 400.0, 900.0, 1500.0]})
+    sweep = pd.DataFrame({"budget": sorted({0.0, 150.0, 400.0, 900.0, 1500.0} | ({budget} if budget else set()))})
     cw, bw = [], []
     for bgt in sweep["budget"]:
         _, cv, _ = _greedy(options, cov_sets, weight, bgt, None)
-        cw.append(weight[direct["covered"].to_numpy()].sum() + sum(weight[u] for u in cv))
+        cw.append(sum(weight[u] for u in cv))  # the optimiser's convention: surface-covered weight only
         bw.append(cw[-1] * 1.03)
     sweep = sweep.assign(covered_weight=cw, bound=bw, gap=0.03, cost=sweep["budget"], n_sites=0, status="Optimal")
     fields = dict(
@@ -642,3 +642,21 @@ def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
     # without a cap in the parameters, plan.covered is not consulted
     b.params["surfaces"]["load_cap_weight"] = 0.0
     assert derive(b).summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"])
+
+
+def test_sweep_table_adds_direct_coverage(out, bundle):
+    d, _ = out
+    run = json.loads((d / "run.json").read_text())
+    s = run["summary"]
+    table = re.search(r'<table id="sweep">(.*?)</table>', (d / "report.html").read_text(encoding="utf-8"), re.S).group(1)
+    rows = re.findall(r"<tr>(.*?)</tr>", table)[1:]
+    assert len(rows) == len(bundle.sweep)
+    for r, sw in zip(rows, bundle.sweep.sort_values("budget").itertuples()):
+        cells = re.findall(r"<td[^>]*>([^<]*)</td>", r)
+        assert float(cells[0]) == pytest.approx(sw.budget)
+        # optimiser's sweep weight counts surface-covered demand only; the share adds the direct coverage
+        assert _close(cells[2], (s["covered_weight_before"] + sw.covered_weight) / s["total_weight"], "share")
+    # the plan's own budget appears in the sweep with the plan's coverage (same greedy in make_bundle)
+    at_budget = bundle.sweep[bundle.sweep.budget == bundle.budget]
+    assert len(at_budget) == 1
+    assert at_budget.covered_weight.iloc[0] == pytest.approx(s["newly_covered_weight"])

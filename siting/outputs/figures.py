@@ -105,19 +105,20 @@ def coverage_curve(sweep: pd.DataFrame | None, summary: dict) -> bytes | None:
     """Covered weight against budget from the sweep (None when there is no sweep)."""
     if sweep is None or not len(sweep) or not {"budget", "covered_weight"} <= set(sweep.columns):
         return None
-    sw = sweep.sort_values("budget")
+    sw = sweep_table(sweep, summary)
     fig = Figure(figsize=(7.0, 4.2))
     ax = fig.add_subplot()
-    total = summary["total_weight"] or 1.0
-    ax.plot(sw["budget"], 100 * sw["covered_weight"] / total, color=OKABE_ITO["blue"], marker="o",
-            label="covered weight (plan)")
-    if "bound" in sw.columns and sw["bound"].notna().any():
-        ax.plot(sw["budget"], 100 * sw["bound"] / total, color=OKABE_ITO["vermillion"], linestyle="--",
+    ax.plot(sw["budget"], 100 * sw["covered_share"], color=OKABE_ITO["blue"], marker="o",
+            label="covered with the best plan per budget")
+    if sw["bound_share"].notna().any():
+        ax.plot(sw["budget"], 100 * sw["bound_share"], color=OKABE_ITO["vermillion"], linestyle="--",
                 marker="v", label="proven upper bound")
     ax.axhline(100 * summary["covered_share_before"], color=OKABE_ITO["black"], linestyle=":",
                label="covered without surfaces")
     if summary.get("budget") is not None:
         ax.axvline(summary["budget"], color=OKABE_ITO["bluish_green"], linestyle="-.", label="this plan's budget")
+        ax.plot([summary["plan_cost"]], [100 * summary["covered_share_after"]], linestyle="none", marker="*",
+                markersize=12, color=OKABE_ITO["bluish_green"], label="this plan")
     ax.set_xlabel("budget [currency units]")
     ax.set_ylabel("covered demand weight [% of total]")
     ax.set_title("Coverage against budget")
@@ -125,6 +126,24 @@ def coverage_curve(sweep: pd.DataFrame | None, summary: dict) -> bytes | None:
     ax.legend(fontsize=8, frameon=False)
     fig.tight_layout()
     return _png(fig)
+
+
+def sweep_table(sweep: pd.DataFrame, summary: dict) -> pd.DataFrame:
+    """The sweep with total coverage: the optimiser's covered weight and bound count only demand the
+    surfaces add (users covered directly carry no weight in the model), so the directly covered weight is
+    added back for the shares."""
+    sw = sweep.sort_values("budget", kind="stable").reset_index(drop=True)
+    total = summary["total_weight"] or 1.0
+    before = summary["covered_weight_before"]
+    bound = sw["bound"].astype(float) if "bound" in sw.columns else pd.Series(np.nan, index=sw.index)
+    return pd.DataFrame({
+        "budget": sw["budget"].astype(float), "newly_covered_weight": sw["covered_weight"].astype(float),
+        "covered_share": (before + sw["covered_weight"].astype(float)) / total,
+        "bound_share": (before + bound) / total,
+        "gap": sw["gap"].astype(float) if "gap" in sw.columns else np.nan,
+        "n_sites": sw["n_sites"] if "n_sites" in sw.columns else -1,
+        "status": sw["status"].astype(str) if "status" in sw.columns else "",
+    })
 
 
 def _weighted_cdf(values: np.ndarray, weights: np.ndarray):
@@ -141,7 +160,8 @@ def snr_cdf(fig_data: PlanFigures, snr_target_db: float) -> bytes:
     ax = fig.add_subplot()
     finite = np.r_[u["snr_direct_db"].to_numpy(float), u["snr_plan_db"].to_numpy(float)]
     finite = finite[np.isfinite(finite)]
-    lo = (np.floor(finite.min() / 10) * 10 - 10) if finite.size else snr_target_db - 30
+    has_none = not np.isfinite(u["snr_direct_db"].to_numpy(float)).all()
+    lo = (np.floor(finite.min() / 10) * 10 - (10 if has_none else 0)) if finite.size else snr_target_db - 30
     w = u["weight"].to_numpy(float)
     for col, label, color, ls in (("snr_direct_db", "without surfaces", OKABE_ITO["orange"], "--"),
                                   ("snr_plan_db", "with the plan", OKABE_ITO["blue"], "-")):
@@ -150,7 +170,7 @@ def snr_cdf(fig_data: PlanFigures, snr_target_db: float) -> bytes:
             x, p = _weighted_cdf(v, w)
             ax.step(x, 100 * p, where="post", color=color, linestyle=ls, label=label)
     ax.axvline(snr_target_db, color=OKABE_ITO["black"], linestyle=":", label=f"target {snr_target_db:g} dB")
-    ax.set_xlabel(f"SNR [dB] (no signal drawn at {lo:g} dB)")
+    ax.set_xlabel(f"SNR [dB] (no signal drawn at {lo:g} dB)" if has_none else "SNR [dB]")
     ax.set_ylabel("demand weight at or below [%]")
     ax.set_title("SNR distribution of demand points")
     ax.grid(True, linewidth=0.3, alpha=0.5)

@@ -180,6 +180,17 @@ def _kind_rows(fig: PlanFigures) -> tuple[list[str], list[list[str]]]:
     return head, rows
 
 
+def _sweep_rows(bundle, s: dict):
+    from .figures import sweep_table
+
+    sw = sweep_table(bundle.sweep, s)
+    head = ["Budget", "Newly covered weight", "Covered share", "Upper bound on share", "Gap", "Sites", "Status"]
+    rows = [[fmt(r.budget, "cost"), fmt(r.newly_covered_weight, "weight"), fmt(r.covered_share, "share"),
+             fmt(r.bound_share, "share"), fmt(r.gap, "num"), fmt(r.n_sites, "int"), fmt(r.status, "text")]
+            for r in sw.itertuples()]
+    return head, rows
+
+
 def _summary_sentences(s: dict) -> list[str]:
     if s["empty_plan"]:
         out = [s["empty_plan_reason"].capitalize() + "."]
@@ -268,7 +279,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
         ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
         ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
         ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text")),
-    ], numeric_from=1))
+    ], numeric_from=9))
 
     p.append("<h2>Map</h2>")
     p.append(_img_html(pngs["district_map"], "Map of the district with buildings, base stations, chosen surfaces "
@@ -276,6 +287,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     p.append("<h2>Coverage against budget</h2>")
     if pngs.get("coverage_curve"):
         p.append(_img_html(pngs["coverage_curve"], "Covered demand weight against budget"))
+        p.append(_html_table(*_sweep_rows(bundle, s)).replace("<table>", "<table id=\"sweep\">", 1))
     else:
         p.append("<p>No budget sweep was run for this job.</p>")
     p.append("<h2>SNR distribution</h2>")
@@ -343,8 +355,11 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
         ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text"))]), ""]
     p += ["## Map", "", f"![Map of the district with buildings, base stations, chosen surfaces and demand]({figure_files['district_map']})", ""]
     p += ["## Coverage against budget", ""]
-    p += [f"![Covered demand weight against budget]({figure_files['coverage_curve']})" if figure_files.get("coverage_curve")
-          else "No budget sweep was run for this job.", ""]
+    if figure_files.get("coverage_curve"):
+        p += [f"![Covered demand weight against budget]({figure_files['coverage_curve']})", "",
+              _md_table(*_sweep_rows(bundle, s)), ""]
+    else:
+        p += ["No budget sweep was run for this job.", ""]
     p += ["## SNR distribution", "", f"![SNR distribution without and with the plan]({figure_files['snr_cdf']})", ""]
     p += ["## Ranked sites", ""]
     p += [_md_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)) if len(fig.sites) else "No site was chosen.", ""]
