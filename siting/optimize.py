@@ -73,6 +73,7 @@ import os
 import subprocess
 import tempfile
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -287,14 +288,12 @@ def _dominated(C, c, site, cap):
     # all ordered pairs (j, k), j != k, within a site group
     grp = np.repeat(np.arange(len(starts)), sizes)
     gs = sizes[grp]
-    pos = np.arange(n) - starts[grp]
     rep = np.repeat(np.arange(n), gs)  # position in sorted order, repeated group-size times
     offs = np.arange(len(rep)) - np.repeat(np.cumsum(gs) - gs, gs)
     j = order[rep]
     k = order[starts[grp[rep]] + offs]
     keep = j != k
     j, k = j[keep], k[keep]
-    del pos
     if len(j) == 0:
         return np.zeros(n, bool)
     Cf = C.astype(np.float64)
@@ -655,11 +654,13 @@ def _pulp_problem(milp: _Milp, name="siting"):
 
     prob = pulp.LpProblem(name, pulp.LpMinimize)
     nv = len(milp.obj)
-    vs = [
-        pulp.LpVariable(f"x{j}" if j < milp.n_x else f"v{j}", lowBound=milp.col_lo[j], upBound=milp.col_hi[j],
-                        cat=pulp.LpInteger if milp.integer[j] else pulp.LpContinuous)
-        for j in range(nv)
-    ]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)  # PuLP 3.3 announces a 4.0 variable API
+        vs = [
+            pulp.LpVariable(f"x{j}" if j < milp.n_x else f"v{j}", lowBound=milp.col_lo[j], upBound=milp.col_hi[j],
+                            cat=pulp.LpInteger if milp.integer[j] else pulp.LpContinuous)
+            for j in range(nv)
+        ]
     nz = np.flatnonzero(milp.obj)
     prob += pulp.LpAffineExpression([(vs[j], float(milp.obj[j])) for j in nz])
     A = milp.A
@@ -681,7 +682,9 @@ def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads) -> _Result:
     import pulp
 
     prob, vs = _pulp_problem(milp)
-    solver = pulp.PULP_CBC_CMD(msg=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)  # the bundled-binary class is kept for its path
+        solver = pulp.PULP_CBC_CMD(msg=False)
     with tempfile.TemporaryDirectory(prefix="siting_cbc_") as tmp:
         mps, sol, mst = (os.path.join(tmp, f) for f in ("m.mps", "m.sol", "m.mst"))
         vs_, vnames, cnames, _ = prob.writeMPS(mps, rename=1)
@@ -1023,7 +1026,6 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
 
     # warm start
     t1 = time.perf_counter()
-    gmode_budget = inst.budget if mode == "max" else inst.budget
     greedy_red = np.zeros(0, np.int64)
     greedy_obj = 0.0
     if warm_start:
@@ -1039,7 +1041,6 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
         if mode == "min" and greedy_obj < target * (1 - 1e-12):
             greedy_red = None  # greedy could not reach the target: no usable start
     t["greedy"] = time.perf_counter() - t1
-    del gmode_budget
 
     t2 = time.perf_counter()
     milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min", target=target)
@@ -1071,7 +1072,10 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
                           f"check the budget and count arguments")
     # bound on the plan's objective (covered weight, or cost for min-cost)
     if mode == "max":
-        bound_raw = -res.dual + milp.delta if np.isfinite(res.dual) else _INF
+        # without a solver bound (stopped before the root LP), the weight of every coverable user is one
+        bound_raw = -res.dual + milp.delta if np.isfinite(res.dual) else float((red.w * red.mult).sum())
+        if red.cap is None:
+            bound_raw = min(bound_raw, float(red.w.sum()))
         if np.isfinite(bound_raw) and np.all(np.mod(red.w, 1) == 0):
             bound_raw = math.floor(bound_raw + 1e-6)  # integral weights: the bound is an integer
     else:
@@ -1092,8 +1096,6 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
         return p
     if greedy_red is not None and len(greedy_red):
         return plan_from(greedy_red, "greedy_only", bound_raw, greedy_obj, solver, milp=milp)
-    if mode == "max" and res.status == "time_limit":
-        pass
     raise SolverError(
         f"{solver} found no plan within {time_limit_s:g} s ({res.detail}) and there is no warm start; "
         f"raise time_limit_s or keep warm_start=True"
@@ -1120,7 +1122,6 @@ def _min_cost_greedy(red: _Reduced, target, budget, max_count):
     w = red.w * red.mult if red.cap is not None else red.w
     g = _Greedy(red.C, w, red.c, red.site, _INF, None, red.conflicts)  # infinite budget: weight-per-cost keys
     order = g.run()
-    cum = np.cumsum([0.0] + [0.0] * len(order))
     chosen = []
     covered = np.zeros(red.C.shape[1], bool)
     got = 0.0
@@ -1131,7 +1132,6 @@ def _min_cost_greedy(red: _Reduced, target, budget, max_count):
         got += float(w[idx][~covered[idx]].sum())
         covered[idx] = True
         chosen.append(j)
-    del cum
     if got < target * (1 - 1e-12):
         return np.zeros(0, np.int64), g
     for j in sorted(chosen, key=lambda j: (-red.c[j], -j)):
