@@ -247,6 +247,7 @@ def test_load_cap_merge_keeps_identical_users_splittable():
 # ---------------------------------------------------------------------------------------------------
 
 
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")  # spopt builds PuLP variables the pre-4.0 way
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_matches_spopt_mclp(seed):
     import pulp
