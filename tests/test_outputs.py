@@ -660,3 +660,17 @@ def test_sweep_table_adds_direct_coverage(out, bundle):
     at_budget = bundle.sweep[bundle.sweep.budget == bundle.budget]
     assert len(at_budget) == 1
     assert at_budget.covered_weight.iloc[0] == pytest.approx(s["newly_covered_weight"])
+
+
+def test_no_options_and_no_users_still_write_a_complete_set(tmp_path):
+    from siting import tables as T
+
+    b = make_bundle(budget=120.0, ranking=None, backups=None, sweep=None)
+    b.options, b.coverage = T.empty("options"), T.empty("coverage")
+    write_outputs(tmp_path / "a", b)
+    assert "no candidate options" in json.loads((tmp_path / "a" / "run.json").read_text())["summary"]["empty_plan_reason"]
+    b = make_bundle(budget=120.0)
+    b.users, b.direct, b.coverage = b.users.iloc[:0], b.direct.iloc[:0], b.coverage.iloc[:0]
+    write_outputs(tmp_path / "b", b)
+    assert len(gpd.read_file(tmp_path / "b" / "demand.geojson")) == 0
+    assert json.loads((tmp_path / "b" / "run.json").read_text())["summary"]["covered_share_after"] == 0.0

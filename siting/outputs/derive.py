@@ -262,8 +262,9 @@ def derive(b) -> PlanFigures:
     after = before | reach
     newly = after & ~before
     serving_opt = np.where(served, best_opt, -1)
-    serving_site = np.where(served, options["site_id"].to_numpy(np.int64)[np.maximum(serving_opt, 0)], -1)
-    serving_rank = np.where(served, rank_of_option[np.maximum(serving_opt, 0)], 0)
+    opt_site = np.r_[options["site_id"].to_numpy(np.int64), -1]  # index -1 -> the sentinel
+    serving_site = opt_site[serving_opt]
+    serving_rank = np.r_[rank_of_option, 0][serving_opt]
     serving_bs = np.where(served, best_bs, -1)
 
     lon_u, lat_u = to_lonlat(b.crs, users["x"], users["y"])

@@ -251,9 +251,10 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     p = [f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
          f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{title}</title>"
          f"<style>{_CSS}</style></head><body>", f"<h1>{title}</h1>"]
-    p.append("<p class=\"lead\" id=\"summary\">" + " ".join(esc(x) for x in _summary_sentences(s)) + "</p>")
-    if s["empty_plan"]:
-        p.append(f"<p id=\"empty-plan\"><strong>{esc(s['empty_plan_reason'].capitalize())}.</strong></p>")
+    sentences = [esc(x) for x in _summary_sentences(s)]
+    if s["empty_plan"]:  # the reason comes first, in bold
+        sentences[0] = f"<strong id=\"empty-plan\">{sentences[0]}</strong>"
+    p.append("<p class=\"lead\" id=\"summary\">" + " ".join(sentences) + "</p>")
     p.append("<h2>Key figures</h2><table><tbody>")
     for key, label, kind in KEY_FIGURES:
         p.append(f"<tr><th>{esc(label)}</th><td class=\"n\" data-key=\"{key}\">{esc(fmt(s.get(key), kind))}</td></tr>")
@@ -334,9 +335,10 @@ def _md_table(head, rows) -> str:
 def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str:
     """The same report in Markdown; figures are referenced as files relative to the report."""
     s = fig.summary
-    p = [f"# {bundle.title}", "", " ".join(_summary_sentences(s)), ""]
-    if s["empty_plan"]:
-        p += [f"**{s['empty_plan_reason'].capitalize()}.**", ""]
+    sentences = _summary_sentences(s)
+    if s["empty_plan"]:  # the reason comes first, in bold
+        sentences[0] = f"**{sentences[0]}**"
+    p = [f"# {bundle.title}", "", " ".join(sentences), ""]
     p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, fmt(s.get(k), kind)) for k, lbl, kind in KEY_FIGURES]), ""]
     p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
     hashes = record.get("input_hashes") or {}
