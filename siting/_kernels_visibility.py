@@ -311,34 +311,64 @@ def _scan(
 
 
 @njit(cache=True, parallel=True)
-def pair_metrics(ia, ib, ax, ay, az, a_has, anx, any_, bx, by, bz, b_has, bnx, bny):
-    """distance_m, d2d_m, angle_a_deg, angle_b_deg, elevation_deg for the pairs (ia[k], ib[k])."""
-    n = ia.shape[0]
-    d3 = np.empty(n, np.float64)
-    d2 = np.empty(n, np.float64)
-    ang_a = np.empty(n, np.float64)
-    ang_b = np.empty(n, np.float64)
-    elev = np.empty(n, np.float64)
+def output_offsets(offsets, key, los_only):
+    """Per-a output offsets: all accepted pairs, or only those whose key carries the LOS bit."""
+    na = offsets.shape[0] - 1
+    counts = np.empty(na, np.int64)
+    for i in prange(na):
+        if los_only:
+            c = 0
+            for k in range(offsets[i], offsets[i + 1]):
+                c += key[k] & 1
+            counts[i] = c
+        else:
+            counts[i] = offsets[i + 1] - offsets[i]
+    out = np.zeros(na + 1, np.int64)
+    for i in range(na):
+        out[i + 1] = out[i] + counts[i]
+    return out
+
+
+@njit(cache=True, parallel=True)
+def write_pairs(
+    offsets, key, out_off, los_only, a_rows, b_rows,
+    ax, ay, az, a_has, anx, any_, bx, by, bz, b_has, bnx, bny,
+    o_a, o_b, o_d3, o_d2, o_los, o_ang_a, o_ang_b, o_elev,
+):  # fmt: skip
+    """Decode the sorted keys of each a point and write the pair table columns in place.
+
+    ``a_rows``/``b_rows`` map local rows to row positions in the full point sets; the float outputs may be
+    float32 or float64 (the caller allocates them).  Metrics: 3-D and horizontal distance, 3-D angle between
+    a facade end's horizontal outward normal and the direction to the other end, elevation of b from a.
+    """
+    na = offsets.shape[0] - 1
     rad = 180.0 / math.pi
-    for k in prange(n):
-        i = ia[k]
-        j = ib[k]
-        dx = bx[j] - ax[i]
-        dy = by[j] - ay[i]
-        dz = bz[j] - az[i]
-        h = math.sqrt(dx * dx + dy * dy)
-        d = math.sqrt(dx * dx + dy * dy + dz * dz)
-        d3[k] = d
-        d2[k] = h
-        elev[k] = math.atan2(dz, h) * rad
-        if a_has[i] and d > 0.0:
-            c = (anx[i] * dx + any_[i] * dy) / d
-            ang_a[k] = math.acos(min(1.0, max(-1.0, c))) * rad
-        else:
-            ang_a[k] = np.nan
-        if b_has[j] and d > 0.0:
-            c = -(bnx[j] * dx + bny[j] * dy) / d
-            ang_b[k] = math.acos(min(1.0, max(-1.0, c))) * rad
-        else:
-            ang_b[k] = np.nan
-    return d3, d2, ang_a, ang_b, elev
+    for i in prange(na):
+        w = out_off[i]
+        for k in range(offsets[i], offsets[i + 1]):
+            vis = (key[k] & 1) == 1
+            if los_only and not vis:
+                continue
+            j = key[k] >> 1
+            dx = bx[j] - ax[i]
+            dy = by[j] - ay[i]
+            dz = bz[j] - az[i]
+            h = math.sqrt(dx * dx + dy * dy)
+            d = math.sqrt(dx * dx + dy * dy + dz * dz)
+            o_a[w] = a_rows[i]
+            o_b[w] = b_rows[j]
+            o_los[w] = vis
+            o_d3[w] = d
+            o_d2[w] = h
+            o_elev[w] = math.atan2(dz, h) * rad
+            if a_has[i]:
+                c = (anx[i] * dx + any_[i] * dy) / d
+                o_ang_a[w] = math.acos(min(1.0, max(-1.0, c))) * rad
+            else:
+                o_ang_a[w] = np.nan
+            if b_has[j]:
+                c = -(bnx[j] * dx + bny[j] * dy) / d
+                o_ang_b[w] = math.acos(min(1.0, max(-1.0, c))) * rad
+            else:
+                o_ang_b[w] = np.nan
+            w += 1

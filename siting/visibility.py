@@ -393,29 +393,27 @@ def visible_pairs(
         r, px0, py0, pcs, pnx, pny, pstart, porder,
         True, buried_a, buried_b, *obstacles._kernel_args(),
     )  # fmt: skip
-    la = np.repeat(np.arange(len(ia), dtype=np.int64), np.diff(offsets))
-    los = (key & 1).astype(bool)
-    key >>= 1
-    lb = key
-    if los_only:
-        la, lb = la[los], lb[los]
-        los = np.ones(len(la), bool)
-    d3, d2, ang_a, ang_b, elev = _k.pair_metrics(la, lb, ax, ay, az, ahas, anx, any_, bx, by, bz, bhas, bnx, bny)
-    if np.dtype(float_dtype) != np.float64:
-        d3, d2, ang_a, ang_b, elev = (v.astype(float_dtype) for v in (d3, d2, ang_a, ang_b, elev))
-    return pd.DataFrame(
-        {
-            "a": ia[la],
-            "b": ib[lb],
-            "distance_m": d3,
-            "d2d_m": d2,
-            "los": los,
-            "angle_a_deg": ang_a,
-            "angle_b_deg": ang_b,
-            "elevation_deg": elev,
-        },
-        copy=False,
-    )
+    out_off = _k.output_offsets(offsets, key, bool(los_only))
+    n_out = out_off[-1]
+    fdt = np.dtype(float_dtype)
+    if fdt.kind != "f":
+        raise SitingError(f"float_dtype must be a numpy float dtype such as float64 or float32, got {fdt}")
+    cols = {
+        "a": np.empty(n_out, np.int64),
+        "b": np.empty(n_out, np.int64),
+        "distance_m": np.empty(n_out, fdt),
+        "d2d_m": np.empty(n_out, fdt),
+        "los": np.empty(n_out, bool),
+        "angle_a_deg": np.empty(n_out, fdt),
+        "angle_b_deg": np.empty(n_out, fdt),
+        "elevation_deg": np.empty(n_out, fdt),
+    }
+    _k.write_pairs(
+        offsets, key, out_off, bool(los_only), ia, ib,
+        ax, ay, az, ahas, anx, any_, bx, by, bz, bhas, bnx, bny,
+        *cols.values(),
+    )  # fmt: skip
+    return pd.DataFrame(cols, copy=False)
 
 
 def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz) -> np.ndarray:
