@@ -1,6 +1,6 @@
 """Tests of siting.outputs: layers, survey list, report, run.json, atomic writes.
 
-The bundle is synthetic (a street canyon from tests/canonical.py in EPSG:32633, seeded random SNRs), built
+The bundle is synthetic (a street canyon from tests/canonical.py in EPSG:32633, random SNRs from a fixed generator state), built
 here without the other stages.  Expected values come from outside the module under test: pyproj transforms,
 geopandas / pyogrio / pandas readers, a plain-Python brute-force of the coverage rules stated in the issue,
 the 16-point compass rose (common practice), the element-count rule floor(w/p) x floor(h/p) and the 28 GHz
@@ -58,8 +58,8 @@ def _greedy(options, cov_sets, weight, budget, max_panels):
     return chosen, covered, spent
 
 
-def make_bundle(seed: int = 7, budget: float | None = 1300.0, max_panels: int | None = None, **kw) -> OutputBundle:
-    rng = np.random.default_rng(seed)
+def make_bundle(random_state: int = 7, budget: float | None = 1300.0, max_panels: int | None = None, **kw) -> OutputBundle:
+    rng = np.random.default_rng(random_state)
     buildings = canonical.street_canyon()  # south row y0..y0+15, north row y0+35..y0+50, x0..x0+100
     buildings["name"] = ["South Row", ""]
     buildings["address"] = ["1 Canyon Street", "2 Canyon Street"]
@@ -493,11 +493,11 @@ def _half_then_fail(real):
 
 
 def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
-    write_outputs(tmp_path, make_bundle(seed=3))
+    write_outputs(tmp_path, make_bundle(random_state=3))
     before = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
     with pytest.raises(OSError, match="injected"):
-        write_outputs(tmp_path, make_bundle(seed=4))
+        write_outputs(tmp_path, make_bundle(random_state=4))
     after = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     assert after == before  # previous complete files, none truncated
     for p in tmp_path.glob("*.geojson"):
@@ -528,7 +528,7 @@ def test_failed_geopackage_write_keeps_previous(tmp_path, monkeypatch):
 
     monkeypatch.setattr(pyogrio, "write_dataframe", broken)
     with pytest.raises(OSError, match="injected"):
-        write_outputs(tmp_path, make_bundle(seed=11, formats=("gpkg",)))
+        write_outputs(tmp_path, make_bundle(random_state=11, formats=("gpkg",)))
     assert (tmp_path / "plan.gpkg").read_bytes() == before
     assert Path(calls[0]).parent == tmp_path and Path(calls[0]).name != "plan.gpkg"
     assert atomic.leftover_temp_files(tmp_path) == []
@@ -598,7 +598,7 @@ def test_files_get_ordinary_permissions(out):
 
 
 def test_no_sweep_numpy_chosen_and_unknown_snr(tmp_path):
-    b = make_bundle(seed=5, sweep=None)
+    b = make_bundle(random_state=5, sweep=None)
     b.plan.chosen = np.asarray(b.plan.chosen, dtype=np.int64)  # an array is as good as a list
     write_outputs(tmp_path, b)
     html_text = (tmp_path / "report.html").read_text(encoding="utf-8")
