@@ -674,3 +674,15 @@ def test_no_options_and_no_users_still_write_a_complete_set(tmp_path):
     write_outputs(tmp_path / "b", b)
     assert len(gpd.read_file(tmp_path / "b" / "demand.geojson")) == 0
     assert json.loads((tmp_path / "b" / "run.json").read_text())["summary"]["covered_share_after"] == 0.0
+
+
+def test_unknown_element_pitch_gives_empty_element_counts(tmp_path):
+    b = make_bundle(params={"radio": {"frequency_ghz": 28.0}})  # no surfaces.element_pitch_wavelengths
+    write_outputs(tmp_path, b)
+    raw = json.loads((tmp_path / "surfaces.geojson").read_text())
+    assert raw["features"] and all(f["properties"]["elements"] is None for f in raw["features"])
+    assert pd.read_csv(tmp_path / "survey.csv")["elements"].isna().all()
+    assert any("element counts unknown" in n for n in json.loads((tmp_path / "run.json").read_text())["notes"])
+    # a catalogue 'elements' column is used as given
+    b = make_bundle(sizes=make_bundle().sizes.assign(elements=[1024, 4096]))
+    assert set(derive(b).sites["elements"]) <= {1024, 4096}

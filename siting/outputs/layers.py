@@ -10,7 +10,8 @@ Layers (WGS84 longitude/latitude, coordinates rounded to 7 decimals, about 1 cm)
 ``candidates``      Point per candidate spot considered (only when asked, for quality checks).
 
 GeoJSON has no infinity: an SNR of -inf (no base station in range) is written as ``null``; so is an unknown
-value.  A missing serving site is ``null`` in GeoJSON and -1 in the GeoPackage.
+value.  A missing serving site or an unknown element count is ``null`` in GeoJSON and -1 in the GeoPackage.
+No polygon is written, so the right-hand rule of RFC 7946 section 3.1.6 has nothing to apply to.
 """
 
 from __future__ import annotations
@@ -148,7 +149,7 @@ def feature_collection(layer: Layer, null_site_ids: bool = True) -> dict:
     feats = []
     for coords, p in zip(layer.coords, props):
         if null_site_ids:
-            for key in ("serving_site_id",):
+            for key in ("serving_site_id", "elements"):
                 if key in p and p[key] is not None and p[key] < 0:
                     p[key] = None
         c = np.round(coords, LONLAT_DECIMALS).tolist()

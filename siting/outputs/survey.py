@@ -47,6 +47,8 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
             out[c] = np.where((bidx >= 0) & (bidx < len(bld)), vals[np.clip(bidx, 0, max(len(bld) - 1, 0))], "")
     for c in AFTER_TAGS:
         out[c] = s[c].to_numpy()
+    out["elements"] = pd.array(np.where(s["elements"] >= 0, s["elements"], 0), dtype="Int64")
+    out.loc[(s["elements"] < 0).to_numpy(), "elements"] = pd.NA  # unknown pitch: empty cell
     bk = fig.backups
     n_bk = int(bk["backup_rank"].max()) if len(bk) else 0
     for j in range(1, n_bk + 1):
@@ -122,7 +124,7 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
             ("wall facing", f"{r['facing_deg']:.1f}\u00b0 ({r['facing']})"),
             ("mount height", f"{r['mount_height_m']:.2f} m"),
             ("panel", f"{r['size_id']}: {r['width_m']:.2f} m x {r['height_m']:.2f} m"
-                      + (f", {int(r['elements'])} elements" if r["elements"] >= 0 else "")),
+                      + (f", {int(r['elements'])} elements" if pd.notna(r["elements"]) else "")),
             ("cost", _fmt(r["cost"])), ("weight gained", _fmt(r["weight_gained"])),
             ("cumulative weight", f"{_fmt(r['cumulative_weight'])} ({100 * r['cumulative_share']:.1f} %)"),
             ("serving base station", r["serving_bs_id"] or "-"),
