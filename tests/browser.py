@@ -2,8 +2,10 @@
 
 The page is copied beside itself with two small scripts added: one at the top of <head> that records every
 error event (script errors, and resources such as images that fail to load or decode: their 'error' events
-are caught in the capture phase), and one that, on 'load', writes the natural size of every <img> into a
-<pre id="__check"> element.  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
+are caught in the capture phase), and one that, on 'load', asks the browser to decode every <img> (``HTMLImageElement.decode()``), draws it on a
+canvas and looks at its bottom row of pixels (a PNG cut short still "decodes" in Chromium, shown partly, but
+its missing rows stay transparent, while every figure of ours has an opaque background), and writes the
+results and natural sizes into a <pre id="__check"> element.  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
 ``--enable-logging=stderr`` prints the console messages, which are scanned for errors.
 """
 
@@ -22,10 +24,15 @@ CANDIDATES = ("/usr/bin/chromium", "chromium", "chromium-browser", "google-chrom
 _HEAD = """<script>window.__errors=[];window.addEventListener('error',function(e){var t=e.target;
 window.__errors.push(t&&t.tagName?('failed to load '+t.tagName+' '+String(t.src||t.href||'').slice(0,60)):
 String(e.message));},true);</script>"""
-_TAIL = """<script>window.addEventListener('load',function(){var imgs=Array.prototype.map.call(document.images,
-function(i){return {w:i.naturalWidth,h:i.naturalHeight,complete:i.complete,alt:i.alt};});
-var p=document.createElement('pre');p.id='__check';p.textContent=JSON.stringify({images:imgs,errors:window.__errors});
-document.body.appendChild(p);});</script>"""
+_TAIL = """<script>window.addEventListener('load',function(){var imgs=Array.prototype.slice.call(document.images);
+function painted(i){try{var c=document.createElement('canvas');c.width=i.naturalWidth;c.height=i.naturalHeight;
+var x=c.getContext('2d');x.drawImage(i,0,0);var d=x.getImageData(0,c.height-1,c.width,1).data;
+for(var k=3;k<d.length;k+=4){if(d[k]>0)return true;}return false;}catch(e){return 'error: '+e;}}
+Promise.all(imgs.map(function(i){return i.decode().then(function(){return true;},function(){return false;});}))
+.then(function(ok){var out=imgs.map(function(i,k){return {w:i.naturalWidth,h:i.naturalHeight,complete:i.complete,
+decoded:ok[k],bottom_painted:ok[k]&&i.naturalWidth>0?painted(i):false,alt:i.alt};});
+var p=document.createElement('pre');p.id='__check';
+p.textContent=JSON.stringify({images:out,errors:window.__errors});document.body.appendChild(p);});});</script>"""
 
 
 def find_chromium() -> str | None:
@@ -50,15 +57,18 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
         probe = html_path.with_name(".browser-check-" + html_path.name)  # same folder: relative links still work
         probe.write_text(text, encoding="utf-8")
         try:
-            cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                   "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                   "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
-                   "--run-all-compositor-stages-before-draw", "--virtual-time-budget=5000", "--dump-dom",
-                   probe.resolve().as_uri()]
-            proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+            for budget_ms in (5000, 30000):  # a busy machine may need more virtual time before the dump
+                cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                       "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                       "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
+                       "--run-all-compositor-stages-before-draw", f"--virtual-time-budget={budget_ms}", "--dump-dom",
+                       probe.resolve().as_uri()]
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+                m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
+                if m is not None:
+                    break
         finally:
             probe.unlink(missing_ok=True)
-    m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
     if m is None:
         raise RuntimeError(f"Chromium gave no check result (exit {proc.returncode}); stderr tail:\n{proc.stderr[-2000:]}")
     result = json.loads(m.group(1).replace("&quot;", '"').replace("&lt;", "<").replace("&gt;", ">").replace("&amp;", "&"))

@@ -439,7 +439,7 @@ def test_pages_open_in_headless_chromium(out, page):
     res = check_page(d / page)
     assert res["images"], "no images found"
     for img in res["images"]:
-        assert img["complete"] and img["w"] > 0 and img["h"] > 0, img
+        assert img["complete"] and img["decoded"] and img["bottom_painted"] is True and img["w"] > 0, img
     assert res["errors"] == [] and res["console_errors"] == []
 
 
@@ -686,3 +686,25 @@ def test_unknown_element_pitch_gives_empty_element_counts(tmp_path):
     # a catalogue 'elements' column is used as given
     b = make_bundle(sizes=make_bundle().sizes.assign(elements=[1024, 4096]))
     assert set(derive(b).sites["elements"]) <= {1024, 4096}
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+def test_browser_check_catches_a_broken_image(tmp_path):
+    # the check itself can fail: a PNG cut short leaves its bottom rows unpainted, a missing file does not load
+    good = base64.b64encode(matplotlib_png()).decode()
+    page = tmp_path / "p.html"
+    page.write_text(f'<!DOCTYPE html><html><head><meta charset="utf-8"></head><body>'
+                    f'<img src="data:image/png;base64,{good}"><img src="data:image/png;base64,{good[:200]}">'
+                    f'<img src="missing.png"></body></html>', encoding="utf-8")
+    res = check_page(page)
+    assert [i["decoded"] and i["bottom_painted"] is True for i in res["images"]] == [True, False, False]
+    assert res["images"][0]["w"] > 0 and res["images"][2]["w"] == 0
+    assert res["errors"] or res["console_errors"]
+
+
+def matplotlib_png() -> bytes:
+    from matplotlib.figure import Figure
+
+    buf = io.BytesIO()
+    Figure(figsize=(1, 1)).savefig(buf, format="png")
+    return buf.getvalue()
