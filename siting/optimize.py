@@ -587,10 +587,31 @@ class _Result:
     detail: str = ""
 
 
+def _quiet_highs():
+    """A ``highspy.Highs`` instance; the licence banner HiGHS prints to stdout on the first one is swallowed."""
+    import sys
+
+    import highspy
+
+    try:
+        fd = sys.stdout.fileno()
+    except (AttributeError, OSError, ValueError):  # no real stdout (e.g. captured): nothing to protect
+        return highspy.Highs()
+    sys.stdout.flush()
+    saved = os.dup(fd)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), fd)
+            return highspy.Highs()
+    finally:
+        os.dup2(saved, fd)
+        os.close(saved)
+
+
 def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False):
     import highspy
 
-    h = highspy.Highs()
+    h = _quiet_highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("random_seed", 0)
     h.setOptionValue("mip_rel_gap", float(mip_rel_gap))
