@@ -62,8 +62,8 @@ def test_demo_plan_is_pinned(demo_result):
 
 def test_rerun_with_new_budget_reuses_gains(demo_result, tmp_path):
     result, out = demo_result
-    job = dict(result.job)
-    job["budget"] = dict(job["budget"], max_cost=job["budget"]["max_cost"] * 0.5)
+    shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
+    job = demo_job(tmp_path, f"budget.max_cost={result.job['budget']['max_cost'] * 0.5}")
     again = run(job)
     assert again.recomputed == ["optimise"]
     assert again.plan.objective <= result.plan.objective + 1e-9
