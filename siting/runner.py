@@ -320,14 +320,20 @@ def wall_conflicts(sites: pd.DataFrame, min_spacing_m: float) -> np.ndarray:
     return pairs[wall[pairs[:, 0]] == wall[pairs[:, 1]]].astype(np.int64)
 
 
+def optimisation_inputs(gains: GainResult, users: pd.DataFrame, p: RadioParams):
+    """The optimiser's array inputs from the gain tables: (cover CSR, weight, cost, option_site).
+
+    Users already covered by the direct path get weight 0: they are constants, not variables.
+    """
+    cover = coverage_matrix(gains.coverage, len(gains.options), len(users), p.snr_target_db)
+    weight = users["weight"].to_numpy(float) * ~gains.direct["covered"].to_numpy(bool)
+    return cover, weight, gains.options["cost"].to_numpy(float), gains.options["site_id"].to_numpy(np.int64)
+
+
 def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
     """The plan (maximum coverage, or minimum cost for a target share), its ranking, backups and budget sweep."""
     b, s = job["budget"], job["solver"]
-    options, direct = gains.options, gains.direct
-    cover = coverage_matrix(gains.coverage, len(options), len(users), p.snr_target_db)
-    weight = users["weight"].to_numpy(float) * ~direct["covered"].to_numpy(bool)
-    cost = options["cost"].to_numpy(float)
-    option_site = options["site_id"].to_numpy(np.int64)
+    cover, weight, cost, option_site = optimisation_inputs(gains, users, p)
     solver_kw = dict(
         conflicts=wall_conflicts(sites, b["min_spacing_m"]),
         load_cap=job["surfaces"]["load_cap_weight"] or None,
@@ -346,7 +352,7 @@ def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
         plan = opt.solve_coverage(cover, weight, cost, option_site, budget=budget, max_count=max_count, **solver_kw)
     chosen = np.asarray(plan.chosen, dtype=np.int64)
     ranking = opt.rank_chosen(chosen, cover, weight)
-    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3)
+    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3, conflicts=solver_kw["conflicts"])
     budgets = list(b["sweep_budgets"])
     if not budgets and budget:
         budgets = [round(budget * f, 2) for f in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0)]

@@ -1,0 +1,149 @@
+"""End-to-end benchmark of the batch runner, printing every figure and ratio measured in the same run.
+
+    python benchmarks/bench_runner.py [--city-buildings 20000] [--skip-city] [--skip-dask]
+
+1. the demo district end to end (target < 30 s);
+2. the real district of pyrosm's bundled test.osm.pbf (about 2,200 buildings) end to end (target < 2 min);
+3. a synthetic city (benchmarks/synthetic_city.py, 20,000 buildings by default) end to end (target < 20 min);
+4. the heavy stages (direct + surface links) of that city in one process vs on 2 Dask workers (target >= 1.6x).
+
+Each case runs in a child process (so peak memory is that case's own: ru_maxrss of the child) with a fresh cache.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib.util
+import json
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "benchmarks"))
+
+CHILD = r"""
+import json, resource, sys, time, warnings
+warnings.simplefilter("ignore")
+from siting.runner import run_file
+job, overrides, workers, write = sys.argv[1], json.loads(sys.argv[2]), int(sys.argv[3]), sys.argv[4] == "1"
+t0 = time.perf_counter()
+r = run_file(job, overrides, fresh=True, workers=workers, write=write)
+out = {"wall_s": time.perf_counter() - t0, "timings_s": r.timings_s, "buildings": len(r.district.buildings),
+       "sites": len(r.sites), "users": len(r.users), "options": len(r.gains.options),
+       "site_user_pairs": len(r.gains.site_user), "coverage_rows": len(r.gains.coverage),
+       "chosen": len(r.plan.chosen), "objective": r.plan.objective, "status": r.plan.status, "gap": r.plan.gap,
+       "peak_rss_gb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e6}
+print("RESULT " + json.dumps(out))
+"""
+
+
+def run_case(job: Path, overrides: list[str], workers: int = 0, write: bool = True) -> dict:
+    proc = subprocess.run([sys.executable, "-c", CHILD, str(job), json.dumps(overrides), str(workers),
+                           "1" if write else "0"], capture_output=True, text=True, cwd=ROOT)
+    line = [ln for ln in proc.stdout.splitlines() if ln.startswith("RESULT ")]
+    if proc.returncode or not line:
+        raise RuntimeError(f"case {job} failed:\n{proc.stderr[-3000:]}")
+    res = json.loads(line[0][7:])
+    children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1e6
+    res["peak_rss_children_gb"] = children
+    return res
+
+
+def show(name: str, r: dict, target_s: float | None = None) -> None:
+    t = r["timings_s"]
+    stages = ", ".join(f"{k} {v:.1f}s" for k, v in t.items())
+    verdict = "" if target_s is None else (" (target < %.0f s: %s)" % (target_s, "met" if r["wall_s"] < target_s
+                                                                           else "MISSED"))
+    print(f"{name}: {r['wall_s']:.1f} s end to end{verdict}; {stages}")
+    print(f"   {r['buildings']} buildings, {r['sites']} spots, {r['users']} demand points, {r['options']} options, "
+          f"{r['site_user_pairs']} LOS spot-user pairs, {r['coverage_rows']} coverage rows; plan {r['chosen']} "
+          f"surfaces, objective {r['objective']:.1f}, {r['status']}, gap {r['gap']:.4f}; "
+          f"peak RSS {r['peak_rss_gb']:.2f} GB")
+
+
+def pbf_job(tmp: Path) -> Path:
+    """A job on pyrosm's test.osm.pbf with five street-level cells placed like tests/test_runner.py does."""
+    import geopandas as gpd
+    import numpy as np
+    from shapely.geometry import Point
+
+    from siting.candidates import street_grid
+    from siting.district import load_district, to_lonlat
+
+    pbf = Path(importlib.util.find_spec("pyrosm").submodule_search_locations[0]) / "data" / "test.osm.pbf"
+    stub = tmp / "stub.geojson"
+    gpd.GeoDataFrame({"bs_id": ["x"], "z_m": [1.0], "tx_power_dbm": [30.0]}, geometry=[Point(0, 0)],
+                     crs="EPSG:4326").to_file(stub)
+    district = load_district(buildings_path=pbf, base_stations_path=stub)
+    xy = street_grid(district.buildings, grid_m=20.0)[["x", "y"]].to_numpy()
+    picks = [int(np.argmin(np.hypot(*(xy - xy.mean(axis=0)).T)))]
+    for _ in range(4):
+        d = np.min(np.hypot(xy[:, None, 0] - xy[picks, 0], xy[:, None, 1] - xy[picks, 1]), axis=1)
+        picks.append(int(np.argmax(np.where(d < 600, d, 0))))
+    lon, lat = to_lonlat(xy[picks, 0], xy[picks, 1], district.crs)
+    gpd.GeoDataFrame({"bs_id": [f"C{i}" for i in range(5)], "z_m": [12.0] * 5, "tx_power_dbm": [33.0] * 5,
+                      "max_gain_dbi": [20.0] * 5, "pattern": ["omni"] * 5},
+                     geometry=gpd.points_from_xy(lon, lat), crs="EPSG:4326").to_file(tmp / "bs.geojson")
+    job = tmp / "pbf_job.toml"
+    job.write_text(f"""
+[inputs]
+buildings = {json.dumps(str(pbf))}
+base_stations = "bs.geojson"
+[demand]
+grid_m = 10.0
+[radio]
+surface_range_m = 200.0
+bs_range_m = 400.0
+[[surfaces.panels]]
+size_id = "S"
+width_m = 0.5
+height_m = 0.5
+cost = 1500.0
+[[surfaces.panels]]
+size_id = "M"
+width_m = 1.0
+height_m = 1.0
+cost = 3300.0
+[budget]
+max_cost = 50000.0
+[output]
+folder = "out_pbf"
+""")
+    return job
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--city-buildings", type=int, default=20000)
+    ap.add_argument("--skip-city", action="store_true")
+    ap.add_argument("--skip-dask", action="store_true")
+    args = ap.parse_args()
+    from synthetic_city import write_city
+
+    with tempfile.TemporaryDirectory() as tmpdir:
+        tmp = Path(tmpdir)
+        demo = run_case(ROOT / "demo_district" / "job.toml", [f"output.folder={json.dumps(str(tmp / 'demo'))}"])
+        show("demo district", demo, 30)
+        real = run_case(pbf_job(tmp), [])
+        show("real district (pyrosm test.osm.pbf)", real, 120)
+        if args.skip_city:
+            return
+        job = write_city(tmp / "city", args.city_buildings)
+        city = run_case(job, [])
+        show(f"synthetic city ({args.city_buildings} buildings)", city, 1200)
+        if args.skip_dask:
+            return
+        heavy_1 = city["timings_s"]["gains"]
+        dask = run_case(job, ["output.folder=\"out_dask\""], workers=2, write=False)
+        heavy_2 = dask["timings_s"]["gains"]
+        print(f"heavy stages (direct + surface links): 1 process {heavy_1:.1f} s, 2 Dask workers {heavy_2:.1f} s, "
+              f"ratio {heavy_1 / heavy_2:.2f}x (target >= 1.6x); same plan: "
+              f"{dask['objective'] == city['objective'] and dask['chosen'] == city['chosen']}")
+
+
+if __name__ == "__main__":
+    main()
