@@ -140,6 +140,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "folder": Key("path", "out", doc="output folder (created)"),
         "formats": Key("list", ["geojson"], choices=("geojson", "gpkg"), doc="layer formats"),
         "candidates_layer": Key("bool", False, doc="also write every candidate spot (for QA)"),
+        "los_graph": Key("bool", False, doc="also write the line-of-sight graph (base stations, spots, users) "
+                         "as GraphML for network analysis"),
         "title": Key("str", "Reflecting-surface siting plan", doc="report title"),
     },
 }

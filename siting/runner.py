@@ -234,7 +234,12 @@ def _run_tiles(name, cache, key, n_tiles, compute, progress, computed: list) -> 
 def _bar(progress: bool, total: int, desc: str):
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, desc=desc, disable=not progress, leave=False)
+    return tqdm(total=total, desc=desc, disable=not progress or total == 0, leave=False)
+
+
+def _advance(bar, next_stage: str) -> None:
+    bar.update(1)
+    bar.set_description(next_stage)
 
 
 def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, tile_m, executor, progress,
@@ -403,6 +408,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
     timings: dict[str, float] = {}
     recomputed: list[str] = []
     executor = None
+    stage_bar = _bar(progress, total=5 if write else 4, desc="load")
     caught_ctx = warnings.catch_warnings(record=True)
     caught = caught_ctx.__enter__()
     warnings.simplefilter("always")
@@ -412,6 +418,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         district = load_stage(job)
         sizes = sizes_table(job)
         timings["load"] = time.perf_counter() - t0
+        _advance(stage_bar, "candidates")
         log.info("load: %d buildings, %d base stations, CRS %s (%s)", len(district.buildings),
                  len(district.base_stations), district.crs.to_string(), district.crs_rule)
 
@@ -428,6 +435,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
             recomputed.append("candidates")
         district.notes.extend(notes)
         timings["candidates"] = time.perf_counter() - t0
+        _advance(stage_bar, "visibility and gains")
         log.info("candidates: %d facade spots, %d demand points (weight %.1f)", len(sites), len(users),
                  users["weight"].sum())
 
@@ -442,6 +450,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         if tiles_done:
             recomputed.append(f"gains ({len(tiles_done)} tiles)")
         timings["gains"] = time.perf_counter() - t0
+        _advance(stage_bar, "optimise")
         log.info("gains: %d options, %d coverage rows, %d users covered directly of %d", len(gains.options),
                  int((gains.coverage["snr_db"] >= p.snr_target_db).sum()) if len(gains.coverage) else 0,
                  int(gains.direct["covered"].sum()), len(users))
@@ -467,6 +476,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
             cache.store("optimise", opt_key, tables, {"plan": plan_fields(plan)})
             recomputed.append("optimise")
         timings["optimise"] = time.perf_counter() - t0
+        _advance(stage_bar, "outputs")
         log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
                  len(plan.chosen), plan.objective, plan.bound, plan.gap)
 
@@ -480,10 +490,12 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
             t0 = time.perf_counter()
             result.outputs = write_stage(result, p)
             timings["outputs"] = time.perf_counter() - t0
+            _advance(stage_bar, "done")
         log.info("finished; recomputed stages: %s", ", ".join(recomputed) or "none")
         return result
     finally:
         caught_ctx.__exit__(None, None, None)
+        stage_bar.close()
         if executor is not None:
             executor.close()
         log.removeHandler(handler)
@@ -521,7 +533,21 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         formats=tuple(job["output"]["formats"]), include_candidates=job["output"]["candidates_layer"],
         title=job["output"]["title"],
     )
-    return write_outputs(Path(job["output"]["folder"]), bundle)
+    graph = {}
+    if job["output"]["los_graph"]:
+        graph["los_graph"] = write_los_graph(Path(job["output"]["folder"]) / "los_graph.graphml", gains)
+    return {**graph, **write_outputs(Path(job["output"]["folder"]), bundle)}
+
+
+def write_los_graph(path: Path, gains: GainResult) -> Path:
+    """The LOS graph (base station - spot and spot - user links) as GraphML, written atomically."""
+    import networkx as nx
+
+    from .outputs.atomic import write_with
+    from .visibility import los_graph
+
+    graph = nx.compose(los_graph(gains.bs_site, "bs", "site"), los_graph(gains.site_user, "site", "user"))
+    return write_with(path, lambda fh: nx.write_graphml(graph, fh), mode="wb")
 
 
 def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs) -> RunResult:

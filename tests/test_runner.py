@@ -63,9 +63,14 @@ def test_demo_plan_is_pinned(demo_result):
 def test_rerun_with_new_budget_reuses_gains(demo_result, tmp_path):
     result, out = demo_result
     shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
-    job = demo_job(tmp_path, f"budget.max_cost={result.job['budget']['max_cost'] * 0.5}")
+    job = demo_job(tmp_path, f"budget.max_cost={result.job['budget']['max_cost'] * 0.5}", "output.los_graph=true")
     again = run(job)
     assert again.recomputed == ["optimise"]
+    # The LOS graph export reads back with networkx: one edge per LOS pair of both link tables.
+    import networkx as nx
+
+    graph = nx.read_graphml(tmp_path / "out" / "los_graph.graphml")
+    assert graph.number_of_edges() == len(again.gains.bs_site) + len(again.gains.site_user)
     assert again.plan.objective <= result.plan.objective + 1e-9
     pd.testing.assert_frame_equal(again.gains.coverage, result.gains.coverage)
 
