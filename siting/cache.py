@@ -81,7 +81,7 @@ class StageCache:
                 df.reset_index(drop=True).to_parquet(path, index=False)
                 files[table] = file_sha256(path)
             manifest = {"key": key, "files": files, "extras": extras or {}}
-            (tmp / "manifest.json").write_text(json.dumps(manifest, sort_keys=True, default=_json_default))
+            (tmp / "manifest.json").write_text(json.dumps(manifest, sort_keys=True, default=json_default))
             if final.exists():
                 shutil.rmtree(final)
             os.replace(tmp, final)
@@ -90,8 +90,6 @@ class StageCache:
                 shutil.rmtree(tmp, ignore_errors=True)
 
 
-def _json_default(obj):
-    try:
-        return obj.item()  # numpy scalars
-    except AttributeError:
-        return str(obj)
+def json_default(obj):
+    """JSON fallback: numpy scalars as Python numbers, anything else as its string."""
+    return obj.item() if hasattr(obj, "item") else str(obj)

@@ -997,7 +997,6 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     red = _reduce(inst, reduce)
     t["reduce"] = time.perf_counter() - t0
     raw_size = _raw_size(inst)
-    n_user = inst.C.shape[1]
     total_w = float(inst.w.sum())
     empty = np.zeros(0, np.int64)
     base = dict(solver=solver, timings_s=t, mode="min_cost" if mode == "min" else "max_coverage")

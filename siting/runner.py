@@ -23,8 +23,8 @@ the tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in
 
 from __future__ import annotations
 
+import json
 import logging
-import math
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -36,7 +36,7 @@ import pandas as pd
 from . import __version__
 from . import candidates as cand
 from . import optimize as opt
-from .cache import StageCache, digest
+from .cache import StageCache, digest, json_default
 from .district import District, load_district
 from .errors import SitingError
 from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
@@ -370,29 +370,11 @@ def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
 
 # -------------------------------------------------------------------------------------------- orchestration
 def plan_fields(plan) -> dict:
-    """The JSON-able summary of a Plan (used for the cache and run.json)."""
-    out = {}
-    for k in ("objective", "bound", "gap", "status", "solver", "cost", "greedy_objective", "message",
-              "model_size", "timings_s"):
-        out[k] = getattr(plan, k, None)
+    """The JSON-able fields of a :class:`~siting.optimize.Plan` except ``covered`` (used for the cache)."""
+    out = {k: getattr(plan, k) for k in ("objective", "bound", "gap", "status", "solver", "cost",
+                                         "greedy_objective", "message", "model_size", "timings_s", "mode")}
     out["chosen"] = [int(c) for c in plan.chosen]
-    return out
-
-
-@dataclass
-class _CachedPlan:
-    chosen: np.ndarray
-    covered: np.ndarray
-    objective: float
-    bound: float
-    gap: float
-    status: str
-    solver: str
-    cost: float
-    greedy_objective: float
-    message: str
-    model_size: dict
-    timings_s: dict
+    return json.loads(json.dumps(out, default=json_default))
 
 
 def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
@@ -464,7 +446,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
             chosen = np.asarray(fields.pop("chosen"), np.int64)
             cover = coverage_matrix(gains.coverage, len(gains.options), len(users), p.snr_target_db)
             covered = np.asarray(cover[chosen].sum(axis=0)).ravel() > 0 if len(chosen) else np.zeros(len(users), bool)
-            plan = _CachedPlan(chosen=chosen, covered=covered, **fields)
+            plan = opt.Plan(chosen=chosen, covered=covered, **fields)
             ranking, backups = tables["ranking"], tables["backups"]
             sweep = tables.get("sweep")
             log.info("optimise: taken from the cache")

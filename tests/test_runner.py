@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import signal
 import subprocess
@@ -165,51 +164,9 @@ def test_budget_below_cheapest_panel_gives_empty_plan(tmp_path):
 def test_real_footprints_plan_beats_no_plan(tmp_path):
     """Real OSM footprints (pyrosm's bundled test.osm.pbf): the job completes and the plan adds covered weight."""
     pytest.importorskip("pyrosm")
-    import importlib.util
+    from tests.scenarios import real_district_job
 
-    import geopandas as gpd
-    from shapely.geometry import Point
-
-    from siting.candidates import street_grid
-    from siting.district import load_district, to_lonlat
-
-    pbf = Path(importlib.util.find_spec("pyrosm").submodule_search_locations[0]) / "data" / "test.osm.pbf"
-    bs_stub = tmp_path / "bs0.geojson"
-    gpd.GeoDataFrame({"bs_id": ["x"], "z_m": [1.0], "tx_power_dbm": [30.0]}, geometry=[Point(0, 0)],
-                     crs="EPSG:4326").to_file(bs_stub)
-    district = load_district(buildings_path=pbf, base_stations_path=bs_stub)
-    # Five street-level small cells spread over the district: farthest-point picks among street-grid points.
-    grid = street_grid(district.buildings, grid_m=20.0)
-    xy = grid[["x", "y"]].to_numpy()
-    picks = [int(np.argmin(np.hypot(*(xy - xy.mean(axis=0)).T)))]
-    for _ in range(4):
-        d = np.min(np.hypot(xy[:, None, 0] - xy[picks, 0], xy[:, None, 1] - xy[picks, 1]), axis=1)
-        picks.append(int(np.argmax(np.where(d < 600, d, 0))))
-    lon, lat = to_lonlat(xy[picks, 0], xy[picks, 1], district.crs)
-    gpd.GeoDataFrame({"bs_id": [f"C{i}" for i in range(5)], "z_m": [12.0] * 5, "tx_power_dbm": [33.0] * 5,
-                      "max_gain_dbi": [20.0] * 5, "pattern": ["omni"] * 5},
-                     geometry=gpd.points_from_xy(lon, lat), crs="EPSG:4326").to_file(tmp_path / "bs.geojson")
-    job_path = tmp_path / "job.toml"
-    job_path.write_text(f"""
-[inputs]
-buildings = {json.dumps(str(pbf))}
-base_stations = "bs.geojson"
-[demand]
-grid_m = 10.0
-[radio]
-surface_range_m = 100.0
-bs_range_m = 300.0
-[[surfaces.panels]]
-size_id = "M"
-width_m = 1.0
-height_m = 1.0
-cost = 3300.0
-[budget]
-max_panels = 10
-[output]
-folder = "out"
-""")
-    result = run_file(job_path, write=False)
+    result = run_file(real_district_job(tmp_path), write=False)
     before = float((result.users["weight"] * result.gains.direct["covered"]).sum())
     assert 0 < before < result.users["weight"].sum()
     assert result.plan.objective > 0 and len(result.plan.chosen) <= 10
