@@ -260,15 +260,6 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
         p.append(f"<tr><th>{esc(label)}</th><td class=\"n\" data-key=\"{key}\">{esc(fmt(s.get(key), kind))}</td></tr>")
     p.append("</tbody></table>")
 
-    p.append("<h2>Inputs and parameters</h2>")
-    p.append(_html_table(["Input", "Value"], _input_rows(bundle, s), numeric_from=9))
-    hashes = record.get("input_hashes") or {}
-    if hashes:
-        p.append("<h3>Input files</h3>" + _html_table(["File", "SHA-256"], sorted(hashes.items()), numeric_from=9))
-    params = flatten(bundle.params)
-    if params:
-        p.append("<h3>Parameters</h3>" + _html_table(["Key", "Value"], [(k, str(v)) for k, v in params], numeric_from=9))
-
     p.append("<h2>Coverage before and after</h2>")
     head, rows = _kind_rows(fig)
     p.append(_html_table(head, rows))
@@ -304,6 +295,15 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
 
     p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in ASSUMPTIONS) + "</ul>")
     p.append("<h2>Cautions</h2><ul class=\"caution\">" + "".join(f"<li>{esc(c)}</li>" for c in CAUTIONS) + "</ul>")
+    p.append("<h2>Inputs and parameters</h2>")
+    p.append(_html_table(["Input", "Value"], _input_rows(bundle, s), numeric_from=9))
+    hashes = record.get("input_hashes") or {}
+    if hashes:
+        p.append("<h3>Input files</h3>" + _html_table(["File", "SHA-256"], sorted(hashes.items()), numeric_from=9))
+    params = flatten(bundle.params)
+    if params:
+        p.append("<h3>Parameters</h3>" + _html_table(["Key", "Value"], [(k, str(v)) for k, v in params], numeric_from=9))
+
     p.append("<h2>Run details</h2>")
     timings = record.get("timings_s") or {}
     if timings:
@@ -340,13 +340,6 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
         sentences[0] = f"**{sentences[0]}**"
     p = [f"# {bundle.title}", "", " ".join(sentences), ""]
     p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, fmt(s.get(k), kind)) for k, lbl, kind in KEY_FIGURES]), ""]
-    p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
-    hashes = record.get("input_hashes") or {}
-    if hashes:
-        p += ["### Input files", "", _md_table(["File", "SHA-256"], sorted(hashes.items())), ""]
-    params = flatten(bundle.params)
-    if params:
-        p += ["### Parameters", "", _md_table(["Key", "Value"], [(k, str(v)) for k, v in params]), ""]
     head, rows = _kind_rows(fig)
     p += ["## Coverage before and after", "", _md_table(head, rows), ""]
     p += ["## Budget and solver", "", _md_table(["Item", "Value"], [
@@ -367,6 +360,13 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
     p += [_md_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)) if len(fig.sites) else "No site was chosen.", ""]
     p += ["## Model assumptions", ""] + [f"- {a}" for a in ASSUMPTIONS] + [""]
     p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
+    p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
+    hashes = record.get("input_hashes") or {}
+    if hashes:
+        p += ["### Input files", "", _md_table(["File", "SHA-256"], sorted(hashes.items())), ""]
+    params = flatten(bundle.params)
+    if params:
+        p += ["### Parameters", "", _md_table(["Key", "Value"], [(k, str(v)) for k, v in params]), ""]
     p += ["## Run details", ""]
     timings = record.get("timings_s") or {}
     if timings:
