@@ -363,8 +363,18 @@ def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
         budgets = [round(budget * f, 2) for f in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0)]
     sweep = None
     if budgets:
-        sweep_kw = dict(solver_kw, time_limit_s=max(1.0, s["time_limit_s"] / 4))
-        sweep = opt.budget_sweep(cover, weight, cost, option_site, sorted(budgets), max_count=max_count, **sweep_kw)
+        # The curve is for the report: each point gets a short limit and a 1 % gap (its bound is shown beside
+        # it); the plan's own budget is not solved again.
+        sweep_kw = dict(solver_kw, time_limit_s=max(2.0, min(10.0, s["time_limit_s"] / 6)),
+                        mip_rel_gap=max(s["mip_gap"], 0.01))
+        others = sorted(x for x in set(budgets) if not (budget and b["target_share"] == 0 and x == budget))
+        sweep = opt.budget_sweep(cover, weight, cost, option_site, others, max_count=max_count, **sweep_kw)
+        if len(others) < len(set(budgets)):
+            own = pd.DataFrame([{"budget": budget, "covered_weight": plan.objective, "bound": plan.bound,
+                                 "gap": plan.gap, "cost": plan.cost, "n_sites": len(plan.chosen),
+                                 "status": plan.status}])
+            sweep = pd.concat([sweep, own], ignore_index=True).sort_values("budget", kind="stable")
+            sweep = sweep.reset_index(drop=True)
     return plan, ranking, backups, sweep
 
 
