@@ -164,9 +164,10 @@ def best_direct(bs_user: pd.DataFrame, n_users: int, p: RadioParams) -> pd.DataF
 
 def surface_links(obstacles: Obstacles, bs: pd.DataFrame, sites: pd.DataFrame, sizes: pd.DataFrame,
                   users: pd.DataFrame, options: pd.DataFrame, bs_user: pd.DataFrame, direct: pd.DataFrame,
-                  p: RadioParams, site_index: np.ndarray | None = None):
+                  p: RadioParams, site_index: np.ndarray | None = None, user_index: np.ndarray | None = None):
     """Coverage rows of the options at ``site_index`` (all sites when None) and their LOS pair tables.
 
+    ``user_index`` narrows the users considered (a tile passes those within reach of its spots).
     Returns ``(coverage, bs_site, site_user)``.
     """
     # 1. base station -> site, LOS only, incidence inside the steering limit.
@@ -174,7 +175,10 @@ def surface_links(obstacles: Obstacles, bs: pd.DataFrame, sites: pd.DataFrame, s
                             steer_limit_deg=p.steer_limit_deg, b_index=site_index, los_only=True)
     fed_sites = np.unique(bs_site["b"].to_numpy())
     # 2. site -> user for fed sites and (unless asked) users not covered directly.
-    want_users = np.arange(len(users)) if p.serve_covered_users else np.flatnonzero(~direct["covered"].to_numpy())
+    want = np.ones(len(users), bool) if p.serve_covered_users else ~direct["covered"].to_numpy(bool)
+    if user_index is not None:
+        want &= np.isin(np.arange(len(users)), user_index)
+    want_users = np.flatnonzero(want)
     site_user = visible_pairs(obstacles, Points.from_table(sites), Points.from_table(users), p.surface_range_m,
                               steer_limit_deg=p.steer_limit_deg, a_index=fed_sites, b_index=want_users,
                               los_only=True)

@@ -161,9 +161,10 @@ def _direct_tile(geoms, heights, bs, users, p, user_index):
     return direct_links(obstacles, bs, users, p, user_index=user_index)
 
 
-def _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, site_index):
+def _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, site_index, user_index):
     obstacles = Obstacles.from_buildings(geoms, heights)
-    return surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p, site_index=site_index)
+    return surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p, site_index=site_index,
+                         user_index=user_index)
 
 
 class _Executor:
@@ -180,20 +181,27 @@ class _Executor:
             if scheduler:
                 self.client = Client(scheduler)
             else:
+                # One thread per worker process, and numba's kernels single-threaded inside it: the workers
+                # share the cores instead of each spawning a thread per core.
                 self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                            dashboard_address=None)
+                                            dashboard_address=None, env={"NUMBA_NUM_THREADS": "1"})
                 self.client = Client(self.cluster)
 
     @property
     def distributed(self) -> bool:
         return self.client is not None
 
+    def share(self, shared: dict) -> dict:
+        """Send data every task needs to the workers once (unique keys); in-process it is passed as is."""
+        if not self.client:
+            return shared
+        return {k: self.client.scatter(v, broadcast=True, hash=False) for k, v in shared.items()}
+
     def map(self, fn, arg_lists: list[tuple], shared: dict) -> list:
-        """Call ``fn(*args, **shared)`` for each args tuple; ``shared`` is scattered once to the workers."""
+        """Call ``fn(*args, **shared)`` for each args tuple; ``shared`` comes from :meth:`share`."""
         if not self.client:
             return [fn(*args, **shared) for args in arg_lists]
-        scattered = {k: self.client.scatter(v, broadcast=True) for k, v in shared.items()}
-        futures = [self.client.submit(fn, *args, **scattered, pure=False) for args in arg_lists]
+        futures = [self.client.submit(fn, *args, **shared, pure=False) for args in arg_lists]
         return self.client.gather(futures)
 
     def close(self) -> None:
@@ -254,14 +262,15 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     n_user_tiles = int(user_tile.max()) + 1 if len(users) else 0
     user_groups = [np.flatnonzero(user_tile == t) for t in range(n_user_tiles)]
 
+    direct_shared = executor.share({"bs": bs, "users": users, "p": p})
+
     def direct_compute(batch):
         args = []
         for t in batch:
             idx = user_groups[t]
             geoms, heights = _halo_buildings(buildings, ux[idx], uy[idx], p.bs_range_m)
             args.append((geoms, heights, idx))
-        out = executor.map(_direct_tile_task, args, {"bs": bs, "users": users, "p": p})
-        return [{"bs_user": df} for df in out]
+        return [{"bs_user": df} for df in executor.map(_direct_tile_task, args, direct_shared)]
 
     direct_compute.chunk = 2 * max(1, len(executor.client.ncores()) if executor.distributed else 1)
     direct_key = digest([key, "direct"])
@@ -275,15 +284,18 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     n_site_tiles = int(site_tile.max()) + 1 if len(sites) else 0
     site_groups = [np.flatnonzero(site_tile == t) for t in range(n_site_tiles)]
 
+    surface_shared = executor.share({"bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
+                                     "bs_user": bs_user, "direct": direct, "p": p})
+
     def surface_compute(batch):
         args = []
         for t in batch:
             idx = site_groups[t]
             geoms, heights = _halo_buildings(buildings, sx[idx], sy[idx], halo_m)
-            args.append((geoms, heights, idx))
-        shared = {"bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
-                  "bs_user": bs_user, "direct": direct, "p": p}
-        out = executor.map(_surface_tile_task, args, shared)
+            near = ((ux >= sx[idx].min() - p.surface_range_m) & (ux <= sx[idx].max() + p.surface_range_m)
+                    & (uy >= sy[idx].min() - p.surface_range_m) & (uy <= sy[idx].max() + p.surface_range_m))
+            args.append((geoms, heights, idx, np.flatnonzero(near)))
+        out = executor.map(_surface_tile_task, args, surface_shared)
         return [{"coverage": c, "bs_site": a, "site_user": b} for c, a, b in out]
 
     surface_compute.chunk = direct_compute.chunk
@@ -299,8 +311,8 @@ def _direct_tile_task(geoms, heights, idx, *, bs, users, p):
     return _direct_tile(geoms, heights, bs, users, p, idx)
 
 
-def _surface_tile_task(geoms, heights, idx, *, bs, sites, sizes, users, options, bs_user, direct, p):
-    return _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, idx)
+def _surface_tile_task(geoms, heights, idx, user_idx, *, bs, sites, sizes, users, options, bs_user, direct, p):
+    return _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, idx, user_idx)
 
 
 def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
@@ -432,10 +444,12 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
                  users["weight"].sum())
 
         t0 = time.perf_counter()
+        executor = _Executor(workers, scheduler)
+        timings["cluster_start"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
         p = RadioParams.from_job(job)
         gains_key = digest([cand_key, job["radio"], {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}])
         tile = job["run"]["tile_m"] if tile_m is None else tile_m
-        executor = _Executor(workers, scheduler)
         tiles_done: list[str] = []
         gains = gains_stage(district, sites, sizes, users, p, cache=cache, key=digest([gains_key, tile]),
                             tile_m=tile, executor=executor, progress=progress, computed=tiles_done)
