@@ -249,9 +249,10 @@ def _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_u
 def _lookup_rx(bs_user: pd.DataFrame, n_users: int, bs_idx: np.ndarray, user_idx: np.ndarray) -> np.ndarray:
     """Direct received power [dBm] of (bs_idx, user_idx) pairs from the sparse ``bs_user`` table (-inf if absent)."""
     keys = bs_user["a"].to_numpy(np.int64) * n_users + bs_user["b"].to_numpy(np.int64)
-    order = np.argsort(keys, kind="stable")
-    keys = keys[order]
-    rx = bs_user["rx_dbm"].to_numpy(float)[order]
+    rx = bs_user["rx_dbm"].to_numpy(float)
+    if np.any(keys[1:] < keys[:-1]):  # the runner hands it over sorted by (a, b); sort only if not
+        order = np.argsort(keys, kind="stable")
+        keys, rx = keys[order], rx[order]
     want = bs_idx.astype(np.int64) * n_users + user_idx.astype(np.int64)
     pos = np.minimum(np.searchsorted(keys, want), max(len(keys) - 1, 0))
     found = (keys[pos] == want) if len(keys) else np.zeros(len(want), bool)

@@ -148,23 +148,29 @@ def _tiles(x: np.ndarray, y: np.ndarray, tile_m: float) -> np.ndarray:
     return tile.reshape(-1).astype(np.int64)
 
 
-def _halo_buildings(buildings, x: np.ndarray, y: np.ndarray, halo_m: float):
-    """Buildings intersecting the bounding box of (x, y) grown by ``halo_m`` (what a tile's links can cross)."""
+def _halo(bounds: np.ndarray, x: np.ndarray, y: np.ndarray, halo_m: float) -> np.ndarray:
+    """Rows of the buildings whose bounds meet the bounding box of (x, y) grown by ``halo_m``.
+
+    Every link a tile computes lies inside that box, so these are all the buildings it can cross.
+    """
     minx, miny, maxx, maxy = x.min() - halo_m, y.min() - halo_m, x.max() + halo_m, y.max() + halo_m
-    b = buildings.geometry.bounds
-    keep = (b["minx"] <= maxx) & (b["maxx"] >= minx) & (b["miny"] <= maxy) & (b["maxy"] >= miny)
-    return buildings.geometry.values[keep.to_numpy()], buildings["height_m"].to_numpy(float)[keep.to_numpy()]
+    keep = (bounds[:, 0] <= maxx) & (bounds[:, 2] >= minx) & (bounds[:, 1] <= maxy) & (bounds[:, 3] >= miny)
+    return np.flatnonzero(keep)
 
 
-def _direct_tile(geoms, heights, bs, users, p, user_index):
-    obstacles = Obstacles.from_buildings(geoms, heights)
-    return direct_links(obstacles, bs, users, p, user_index=user_index)
+def _direct_tile(keep, user_index, *, geoms, heights, bs, users, p):
+    """One user tile of the direct stage (runs in this process or on a Dask worker)."""
+    obstacles = Obstacles.from_buildings(geoms[keep], heights[keep])
+    return {"bs_user": direct_links(obstacles, bs, users, p, user_index=user_index)}
 
 
-def _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, site_index, user_index):
-    obstacles = Obstacles.from_buildings(geoms, heights)
-    return surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p, site_index=site_index,
-                         user_index=user_index)
+def _surface_tile(keep, site_index, user_index, *, geoms, heights, bs, sites, sizes, users, options, bs_user,
+                  direct, p):
+    """One spot tile of the surface stage (runs in this process or on a Dask worker)."""
+    obstacles = Obstacles.from_buildings(geoms[keep], heights[keep])
+    coverage, bs_site, site_user = surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p,
+                                                 site_index=site_index, user_index=user_index)
+    return {"coverage": coverage, "bs_site": bs_site, "site_user": site_user}
 
 
 class _Executor:
@@ -187,22 +193,23 @@ class _Executor:
                                             dashboard_address=None, env={"NUMBA_NUM_THREADS": "1"})
                 self.client = Client(self.cluster)
 
-    @property
-    def distributed(self) -> bool:
-        return self.client is not None
-
     def share(self, shared: dict) -> dict:
         """Send data every task needs to the workers once (unique keys); in-process it is passed as is."""
         if not self.client:
             return shared
         return {k: self.client.scatter(v, broadcast=True, hash=False) for k, v in shared.items()}
 
-    def map(self, fn, arg_lists: list[tuple], shared: dict) -> list:
-        """Call ``fn(*args, **shared)`` for each args tuple; ``shared`` comes from :meth:`share`."""
+    def run(self, fn, tasks: dict, shared: dict):
+        """Yield ``(key, fn(*args, **shared))`` for each ``key: args`` of ``tasks``, as each one finishes."""
         if not self.client:
-            return [fn(*args, **shared) for args in arg_lists]
-        futures = [self.client.submit(fn, *args, **shared, pure=False) for args in arg_lists]
-        return self.client.gather(futures)
+            for key, args in tasks.items():
+                yield key, fn(*args, **shared)
+            return
+        from dask.distributed import as_completed
+
+        futures = {self.client.submit(fn, *args, **shared, pure=False): key for key, args in tasks.items()}
+        for future, result in as_completed(futures, with_results=True):
+            yield futures[future], result
 
     def close(self) -> None:
         if self.client:
@@ -211,32 +218,29 @@ class _Executor:
             self.cluster.close()
 
 
-def _run_tiles(name, cache, key, n_tiles, compute, progress, computed: list) -> list[dict]:
-    """Compute (or load from the cache) every tile's tables; returns their dicts in tile order.
+def _run_tiles(name, cache, key, tasks: dict, fn, shared, executor, progress, computed: list) -> list[dict]:
+    """Every tile's tables, from the cache or computed; each tile is stored as soon as it finishes.
 
-    The names of computed tiles are appended to ``computed``."""
-    results: list[dict | None] = [None] * n_tiles
-    todo = []
-    for t in range(n_tiles):
-        hit = cache.load(f"{name}-tile{t}", digest([key, t, n_tiles]))
+    ``tasks`` maps tile number -> task arguments; the names of computed tiles are appended to ``computed``.
+    """
+    n_tiles = len(tasks)
+    tile_key = {t: digest([key, t, n_tiles]) for t in tasks}
+    results: dict[int, dict] = {}
+    for t in tasks:
+        hit = cache.load(f"{name}-tile{t}", tile_key[t])
         if hit is not None:
             results[t] = hit[0]
-        else:
-            todo.append(t)
-    if len(todo) < n_tiles:
-        log.info("%s: %d of %d tiles taken from the cache", name, n_tiles - len(todo), n_tiles)
+    if results:
+        log.info("%s: %d of %d tiles taken from the cache", name, len(results), n_tiles)
+    todo = {t: args for t, args in tasks.items() if t not in results}
     bar = _bar(progress, total=len(todo), desc=f"{name} tiles")
-    # Submit in chunks so finished tiles are checkpointed while the rest run.
-    chunk = max(1, compute.chunk)
-    for start in range(0, len(todo), chunk):
-        batch = todo[start:start + chunk]
-        for t, tables in zip(batch, compute(batch)):
-            cache.store(f"{name}-tile{t}", digest([key, t, n_tiles]), tables)
-            computed.append(f"{name}-tile{t}")
-            results[t] = tables
-            bar.update(1)
+    for t, tables in executor.run(fn, todo, executor.share(shared) if todo else {}):
+        cache.store(f"{name}-tile{t}", tile_key[t], tables)
+        computed.append(f"{name}-tile{t}")
+        results[t] = tables
+        bar.update(1)
     bar.close()
-    return results
+    return [results[t] for t in sorted(results)]
 
 
 def _bar(progress: bool, total: int, desc: str):
@@ -255,64 +259,39 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     """Direct links per user tile, then surface links per site tile; union equals the one-piece computation."""
     computed = [] if computed is None else computed
     bs = district.base_stations
-    buildings = district.buildings
-    halo_m = max(p.bs_range_m, p.surface_range_m)
+    footprints = {"geoms": district.buildings.geometry.values,
+                  "heights": district.buildings["height_m"].to_numpy(float)}
+    bounds = district.buildings.geometry.bounds.to_numpy()
     ux, uy = users["x"].to_numpy(float), users["y"].to_numpy(float)
+
     user_tile = _tiles(ux, uy, tile_m)
-    n_user_tiles = int(user_tile.max()) + 1 if len(users) else 0
-    user_groups = [np.flatnonzero(user_tile == t) for t in range(n_user_tiles)]
-
-    direct_shared = executor.share({"bs": bs, "users": users, "p": p})
-
-    def direct_compute(batch):
-        args = []
-        for t in batch:
-            idx = user_groups[t]
-            geoms, heights = _halo_buildings(buildings, ux[idx], uy[idx], p.bs_range_m)
-            args.append((geoms, heights, idx))
-        return [{"bs_user": df} for df in executor.map(_direct_tile_task, args, direct_shared)]
-
-    direct_compute.chunk = 2 * max(1, len(executor.client.ncores()) if executor.distributed else 1)
-    direct_key = digest([key, "direct"])
-    tiles = _run_tiles("direct", cache, direct_key, n_user_tiles, direct_compute, progress, computed)
+    tasks = {}
+    for t in range(int(user_tile.max()) + 1 if len(users) else 0):
+        idx = np.flatnonzero(user_tile == t)
+        tasks[t] = (_halo(bounds, ux[idx], uy[idx], p.bs_range_m), idx)
+    tiles = _run_tiles("direct", cache, digest([key, "direct"]), tasks, _direct_tile,
+                       {**footprints, "bs": bs, "users": users, "p": p}, executor, progress, computed)
     bs_user = _concat([t["bs_user"] for t in tiles], ["a", "b"])
     direct = best_direct(bs_user, len(users), p)
     options = make_options(sites, sizes)
 
     sx, sy = sites["x"].to_numpy(float), sites["y"].to_numpy(float)
     site_tile = _tiles(sx, sy, tile_m)
-    n_site_tiles = int(site_tile.max()) + 1 if len(sites) else 0
-    site_groups = [np.flatnonzero(site_tile == t) for t in range(n_site_tiles)]
-
-    surface_shared = executor.share({"bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
-                                     "bs_user": bs_user, "direct": direct, "p": p})
-
-    def surface_compute(batch):
-        args = []
-        for t in batch:
-            idx = site_groups[t]
-            geoms, heights = _halo_buildings(buildings, sx[idx], sy[idx], halo_m)
-            near = ((ux >= sx[idx].min() - p.surface_range_m) & (ux <= sx[idx].max() + p.surface_range_m)
-                    & (uy >= sy[idx].min() - p.surface_range_m) & (uy <= sy[idx].max() + p.surface_range_m))
-            args.append((geoms, heights, idx, np.flatnonzero(near)))
-        out = executor.map(_surface_tile_task, args, surface_shared)
-        return [{"coverage": c, "bs_site": a, "site_user": b} for c, a, b in out]
-
-    surface_compute.chunk = direct_compute.chunk
-    tiles = _run_tiles("surface", cache, digest([key, "surface"]), n_site_tiles, surface_compute, progress,
+    r = p.surface_range_m
+    tasks = {}
+    for t in range(int(site_tile.max()) + 1 if len(sites) else 0):
+        idx = np.flatnonzero(site_tile == t)
+        near = ((ux >= sx[idx].min() - r) & (ux <= sx[idx].max() + r)
+                & (uy >= sy[idx].min() - r) & (uy <= sy[idx].max() + r))
+        tasks[t] = (_halo(bounds, sx[idx], sy[idx], max(p.bs_range_m, r)), idx, np.flatnonzero(near))
+    shared = {**footprints, "bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
+              "bs_user": bs_user, "direct": direct, "p": p}
+    tiles = _run_tiles("surface", cache, digest([key, "surface"]), tasks, _surface_tile, shared, executor, progress,
                        computed)
     coverage = _concat([t["coverage"] for t in tiles], ["option_id", "user_id"])
     bs_site = _concat([t["bs_site"] for t in tiles], ["a", "b"])
     site_user = _concat([t["site_user"] for t in tiles], ["a", "b"])
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
-
-
-def _direct_tile_task(geoms, heights, idx, *, bs, users, p):
-    return _direct_tile(geoms, heights, bs, users, p, idx)
-
-
-def _surface_tile_task(geoms, heights, idx, user_idx, *, bs, sites, sizes, users, options, bs_user, direct, p):
-    return _surface_tile(geoms, heights, bs, sites, sizes, users, options, bs_user, direct, p, idx, user_idx)
 
 
 def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
