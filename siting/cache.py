@@ -33,19 +33,23 @@ def file_sha256(path: str | Path) -> str:
 
 
 class StageCache:
-    """Read and write cache entries under ``root``; ``log`` receives one line per event."""
+    """Read and write cache entries under ``root``; ``log`` receives one line per event.
 
-    def __init__(self, root: str | Path, log=lambda msg: None, enabled: bool = True):
+    ``read=False`` (the CLI's ``--fresh``) ignores what is stored but still stores new results, so the next run
+    can resume from them.
+    """
+
+    def __init__(self, root: str | Path, log=lambda msg: None, read: bool = True):
         self.root = Path(root)
         self.log = log
-        self.enabled = enabled
+        self.read = read
 
     def _dir(self, name: str, key: str) -> Path:
         return self.root / f"{name}-{key[:24]}"
 
     def load(self, name: str, key: str) -> tuple[dict[str, pd.DataFrame], dict] | None:
         """Tables and extras of a verified entry, or None (absent, disabled, or failed verification)."""
-        if not self.enabled:
+        if not self.read:
             return None
         folder = self._dir(name, key)
         manifest_path = folder / "manifest.json"
@@ -69,8 +73,6 @@ class StageCache:
 
     def store(self, name: str, key: str, tables: dict[str, pd.DataFrame], extras: dict | None = None) -> None:
         """Write an entry atomically (temporary folder, then rename)."""
-        if not self.enabled:
-            return
         self.root.mkdir(parents=True, exist_ok=True)
         final = self._dir(name, key)
         tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.", dir=self.root))

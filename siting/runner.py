@@ -284,8 +284,13 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
         near = ((ux >= sx[idx].min() - r) & (ux <= sx[idx].max() + r)
                 & (uy >= sy[idx].min() - r) & (uy <= sy[idx].max() + r))
         tasks[t] = (_halo(bounds, sx[idx], sy[idx], max(p.bs_range_m, r)), idx, np.flatnonzero(near))
-    shared = {**footprints, "bs": bs, "sites": sites, "sizes": sizes, "users": users, "options": options,
-              "bs_user": bs_user, "direct": direct, "p": p}
+    # What the surface tasks read, slimmed to the numeric columns they use (this is what Dask ships to workers):
+    # the direct power only of users that may be served through a surface.
+    served = np.ones(len(users), bool) if p.serve_covered_users else ~direct["covered"].to_numpy(bool)
+    feed = bs_user.loc[served[bs_user["b"].to_numpy()], ["a", "b", "rx_dbm"]] if len(bs_user) else bs_user
+    point_cols = ["x", "y", "z_m", "normal_az_deg", "building_idx"]
+    shared = {**footprints, "bs": bs, "sites": sites[point_cols], "sizes": sizes, "users": users[point_cols],
+              "options": options[["site_id", "size_idx"]], "bs_user": feed, "direct": direct[["covered"]], "p": p}
     tiles = _run_tiles("surface", cache, digest([key, "surface"]), tasks, _surface_tile, shared, executor, progress,
                        computed)
     coverage = _concat([t["coverage"] for t in tiles], ["option_id", "user_id"])
@@ -387,7 +392,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
     log.addHandler(handler)
     log.setLevel(logging.INFO)
-    cache = StageCache(out_dir / ".cache", log=log.warning, enabled=not fresh)
+    cache = StageCache(out_dir / ".cache", log=log.warning, read=not fresh)
     timings: dict[str, float] = {}
     recomputed: list[str] = []
     executor = None

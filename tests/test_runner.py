@@ -170,3 +170,14 @@ def test_real_footprints_plan_beats_no_plan(tmp_path):
     before = float((result.users["weight"] * result.gains.direct["covered"]).sum())
     assert 0 < before < result.users["weight"].sum()
     assert result.plan.objective > 0 and len(result.plan.chosen) <= 10
+
+
+def test_fresh_recomputes_everything_and_refreshes_the_cache(demo_result, tmp_path):
+    _, out = demo_result
+    shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
+    job = demo_job(tmp_path)
+    fresh = run(job, fresh=True, write=False)
+    assert fresh.recomputed[0] == "candidates" and fresh.recomputed[-1] == "optimise"
+    again = run(job, write=False)
+    assert again.recomputed == []
+    assert list(again.plan.chosen) == list(fresh.plan.chosen)
