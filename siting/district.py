@@ -40,7 +40,6 @@ Decisions (documented here and in the README)
 
 from __future__ import annotations
 
-import hashlib
 import json
 import warnings
 from dataclasses import dataclass, field
@@ -56,6 +55,7 @@ from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
 
 from . import tables
+from .cache import file_sha256
 from .errors import InputDataError, JobError
 
 __all__ = ["District", "load_district", "summary", "to_lonlat", "parse_height_m", "read_layer"]
@@ -117,25 +117,17 @@ def _listing(values, limit: int = _MAX_LISTED) -> str:
     return head + more
 
 
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 def _hash_inputs(path: Path, hashes: dict[str, str]) -> None:
     if path.is_dir():  # e.g. a FileGDB folder
         for p in sorted(q for q in path.rglob("*") if q.is_file()):
-            hashes[str(p)] = _sha256(p)
+            hashes[str(p)] = file_sha256(p)
         return
-    hashes[str(path)] = _sha256(path)
+    hashes[str(path)] = file_sha256(path)
     if path.suffix.lower() == ".shp":
         for ext in (".shx", ".dbf", ".prj", ".cpg"):
             for side in (path.with_suffix(ext), path.with_suffix(ext.upper())):
                 if side.exists():
-                    hashes[str(side)] = _sha256(side)
+                    hashes[str(side)] = file_sha256(side)
 
 
 def _is_geojson(path: Path) -> bool:

@@ -29,6 +29,7 @@ import pandas as pd
 import pyproj
 
 from .. import tables as T
+from ..district import to_lonlat as district_to_lonlat
 from ..errors import SitingError
 
 SPEED_OF_LIGHT_M_S = 299_792_458.0
@@ -68,8 +69,7 @@ def element_count(width_m, height_m, pitch_m: float) -> np.ndarray:
 
 def to_lonlat(crs, x, y) -> tuple[np.ndarray, np.ndarray]:
     """Projected x, y [m] -> WGS84 longitude, latitude [deg], rounded to 7 decimals (about 1 cm)."""
-    tr = pyproj.Transformer.from_crs(pyproj.CRS(crs), pyproj.CRS("EPSG:4326"), always_xy=True)
-    lon, lat = tr.transform(np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+    lon, lat = district_to_lonlat(x, y, crs)
     return np.round(np.asarray(lon, dtype=float), 7), np.round(np.asarray(lat, dtype=float), 7)
 
 
