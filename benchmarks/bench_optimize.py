@@ -140,6 +140,16 @@ def pipeline_cases(a, cbc_limit):
                   [f'output.folder="{tmp}/demo"']),
                  ("real district (pyrosm test.osm.pbf)", str(pbf_job(__import__("pathlib").Path(tmp))),
                   [f'output.folder="{tmp}/pbf"'])]
+        from synthetic_city import write_city
+
+        panels = ('surfaces.panels=[{size_id="S", width_m=0.5, height_m=0.5, cost=1500.0}, '
+                  '{size_id="M", width_m=1.0, height_m=1.0, cost=3300.0}, '
+                  '{size_id="L", width_m=2.0, height_m=1.0, cost=5500.0}]')
+        for n in (1500, 5000):
+            city = write_city(__import__("pathlib").Path(tmp) / f"city{n}", n)
+            cases.append((f"synthetic city, {n} buildings, 3 sizes", str(city),
+                          [panels, "candidates.spacing_m=10.0", "demand.grid_m=8.0", "budget.max_panels=0",
+                           f"budget.max_cost={n * 40.0}", f'output.folder="{tmp}/city{n}/out"']))
         for name, job, ov in cases:
             C, w, cost, site, budget, count = pipeline_instance(job, ov)
             describe(f"{name}: budget {budget}, panel limit {count}", C)

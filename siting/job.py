@@ -296,15 +296,14 @@ def load_job(path: str | Path, overrides: list[str] | None = None, **api_overrid
 
 def reference_markdown() -> str:
     """The job-file reference as a Markdown table (used in the README and by ``siting keys``)."""
+    head = ["| key | type | unit | default | range | meaning |", "|---|---|---|---|---|---|"]
+
+    def rows(keys: dict[str, Key]) -> list[str]:
+        return [f"| `{name}` | {key.type} | {key.unit} | {'required' if key.required else repr(key.default)} | "
+                f"{key.range_text()} | {key.doc} |" for name, key in keys.items()]
+
     lines = []
     for section, keys in SCHEMA.items():
-        lines += [f"\n**[{section}]**\n", "| key | type | unit | default | range | meaning |", "|---|---|---|---|---|---|"]
-        for name, key in keys.items():
-            default = "required" if key.required else repr(key.default)
-            lines.append(f"| `{name}` | {key.type} | {key.unit} | {default} | {key.range_text()} | {key.doc} |")
-    lines += ["\n**[[surfaces.panels]]** (one table per catalogue size)\n",
-              "| key | type | unit | default | range | meaning |", "|---|---|---|---|---|---|"]
-    for name, key in PANEL_KEYS.items():
-        default = "required" if key.required else repr(key.default)
-        lines.append(f"| `{name}` | {key.type} | {key.unit} | {default} | {key.range_text()} | {key.doc} |")
+        lines += [f"\n**[{section}]**\n", *head, *rows(keys)]
+    lines += ["\n**[[surfaces.panels]]** (one table per catalogue size)\n", *head, *rows(PANEL_KEYS)]
     return "\n".join(lines)

@@ -432,7 +432,8 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         timings["cluster_start"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         p = RadioParams.from_job(job)
-        gains_key = digest([cand_key, job["radio"], {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}])
+        surfaces = {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}  # the cap is the optimiser's
+        gains_key = digest([cand_key, job["radio"], surfaces])
         tile = job["run"]["tile_m"] if tile_m is None else tile_m
         tiles_done: list[str] = []
         gains = gains_stage(district, sites, sizes, users, p, cache=cache, key=digest([gains_key, tile]),
@@ -452,15 +453,13 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
             tables, extras = hit
             fields = extras["plan"]
             chosen = np.asarray(fields.pop("chosen"), np.int64)
-            cover = coverage_matrix(gains.coverage, len(gains.options), len(users), p.snr_target_db)
-            covered = np.asarray(cover[chosen].sum(axis=0)).ravel() > 0 if len(chosen) else np.zeros(len(users), bool)
-            plan = opt.Plan(chosen=chosen, covered=covered, **fields)
+            plan = opt.Plan(chosen=chosen, covered=tables["covered"]["covered"].to_numpy(bool), **fields)
             ranking, backups = tables["ranking"], tables["backups"]
             sweep = tables.get("sweep")
             log.info("optimise: taken from the cache")
         else:
             plan, ranking, backups, sweep = optimise_stage(gains, sites, users, job, p)
-            tables = {"ranking": ranking, "backups": backups}
+            tables = {"ranking": ranking, "backups": backups, "covered": pd.DataFrame({"covered": plan.covered})}
             if sweep is not None:
                 tables["sweep"] = sweep
             cache.store("optimise", opt_key, tables, {"plan": plan_fields(plan)})
