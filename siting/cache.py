@@ -47,8 +47,11 @@ class StageCache:
     def _dir(self, name: str, key: str) -> Path:
         return self.root / f"{name}-{key[:24]}"
 
-    def load(self, name: str, key: str) -> tuple[dict[str, pd.DataFrame], dict] | None:
-        """Tables and extras of a verified entry, or None (absent, disabled, or failed verification)."""
+    def load(self, name: str, key: str, expect: tuple[str, ...] = ()) -> tuple[dict[str, pd.DataFrame], dict] | None:
+        """Tables and extras of a verified entry, or None (absent, not read, or failed verification).
+
+        An entry lacking one of the ``expect`` tables (written by an older version) fails verification too.
+        """
         if not self.read:
             return None
         folder = self._dir(name, key)
@@ -59,6 +62,9 @@ class StageCache:
             manifest = json.loads(manifest_path.read_text())
             if manifest.get("key") != key:
                 raise ValueError("key mismatch (foreign entry)")
+            missing = set(expect) - set(manifest["files"])
+            if missing:
+                raise ValueError(f"tables {sorted(missing)} missing (written by another version)")
             tables = {}
             for table, sha in manifest["files"].items():
                 path = folder / f"{table}.parquet"

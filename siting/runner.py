@@ -218,16 +218,18 @@ class _Executor:
             self.cluster.close()
 
 
-def _run_tiles(name, cache, key, tasks: dict, fn, shared, executor, progress, computed: list) -> list[dict]:
+def _run_tiles(name, cache, key, tasks: dict, fn, shared, executor, progress, computed: list,
+               expect: tuple[str, ...]) -> list[dict]:
     """Every tile's tables, from the cache or computed; each tile is stored as soon as it finishes.
 
-    ``tasks`` maps tile number -> task arguments; the names of computed tiles are appended to ``computed``.
+    ``tasks`` maps tile number -> task arguments; ``expect`` names the tables a tile holds; the names of
+    computed tiles are appended to ``computed``.
     """
     n_tiles = len(tasks)
     tile_key = {t: digest([key, t, n_tiles]) for t in tasks}
     results: dict[int, dict] = {}
     for t in tasks:
-        hit = cache.load(f"{name}-tile{t}", tile_key[t])
+        hit = cache.load(f"{name}-tile{t}", tile_key[t], expect=expect)
         if hit is not None:
             results[t] = hit[0]
     if results:
@@ -270,7 +272,8 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
         idx = np.flatnonzero(user_tile == t)
         tasks[t] = (_halo(bounds, ux[idx], uy[idx], p.bs_range_m), idx)
     tiles = _run_tiles("direct", cache, digest([key, "direct"]), tasks, _direct_tile,
-                       {**footprints, "bs": bs, "users": users, "p": p}, executor, progress, computed)
+                       {**footprints, "bs": bs, "users": users, "p": p}, executor, progress, computed,
+                       expect=("bs_user",))
     bs_user = _concat([t["bs_user"] for t in tiles], ["a", "b"])
     direct = best_direct(bs_user, len(users), p)
     options = make_options(sites, sizes)
@@ -292,7 +295,7 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     shared = {**footprints, "bs": bs, "sites": sites[point_cols], "sizes": sizes, "users": users[point_cols],
               "options": options[["site_id", "size_idx"]], "bs_user": feed, "direct": direct[["covered"]], "p": p}
     tiles = _run_tiles("surface", cache, digest([key, "surface"]), tasks, _surface_tile, shared, executor, progress,
-                       computed)
+                       computed, expect=("coverage", "bs_site", "site_user"))
     coverage = _concat([t["coverage"] for t in tiles], ["option_id", "user_id"])
     bs_site = _concat([t["bs_site"] for t in tiles], ["a", "b"])
     site_user = _concat([t["site_user"] for t in tiles], ["a", "b"])
@@ -413,7 +416,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         t0 = time.perf_counter()
         cand_key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
                            job["candidates"], job["demand"], sizes["width_m"].tolist()])
-        hit = cache.load("candidates", cand_key)
+        hit = cache.load("candidates", cand_key, expect=("sites", "users"))
         if hit:
             sites, users, notes = hit[0]["sites"], hit[0]["users"], hit[1]["notes"]
             log.info("candidates: taken from the cache")
@@ -448,7 +451,7 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
 
         t0 = time.perf_counter()
         opt_key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
-        hit = cache.load("optimise", opt_key)
+        hit = cache.load("optimise", opt_key, expect=("ranking", "backups", "covered"))
         if hit:
             tables, extras = hit
             fields = extras["plan"]
