@@ -74,10 +74,18 @@ def _dispatch(args) -> int:
         return 0
     job = load_job(args.job, args.overrides)
     if args.command == "validate":
+        import warnings
+
         from .district import summary
         from .runner import load_stage
 
-        print(summary(load_stage(job)))
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            district = load_stage(job)
+        print(summary(district))
+        for message in dict.fromkeys(str(w.message) for w in caught):
+            if message not in district.notes:  # the summary lists the notes already
+                print(f"warning: {message}")
         return 0
     from .runner import run
 
