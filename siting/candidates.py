@@ -367,9 +367,15 @@ def facade_spots(buildings, *, spacing_m: float = 5.0, mount_heights_m=(4.0, 8.0
     # every kept position at every mounting height that fits below the roof of its building
     pos_i, h_i = np.nonzero(fits & keep[:, None])
     piece, b, nrm, spot, z = piece[pos_i], b[pos_i], nrm[pos_i], spot[pos_i], hts[h_i]
+    out = _sites_table(0, b, ids, piece, spot, z, nrm, w["length"][piece], "generated", np.full(len(piece), ""))
+    return tables.check(out, "sites", where)
+
+
+def _sites_table(start_id, b, ids, piece, spot, z, nrm, free_m, source, refs) -> pd.DataFrame:
+    """The 'sites' table of spots at ``spot`` (n, 2) on wall pieces ``piece`` of buildings ``b``."""
     n = len(piece)
-    out = pd.DataFrame({
-        "site_id": np.arange(n, dtype=np.int64),
+    return pd.DataFrame({
+        "site_id": np.arange(start_id, start_id + n, dtype=np.int64),
         "building_idx": b.astype(np.int64),
         "building_id": ids[b].astype(object),
         "wall_id": piece.astype(np.int64),
@@ -377,11 +383,10 @@ def facade_spots(buildings, *, spacing_m: float = 5.0, mount_heights_m=(4.0, 8.0
         "y": spot[:, 1],
         "z_m": z,
         "normal_az_deg": _azimuth_deg(nrm[:, 0], nrm[:, 1]),
-        "wall_free_m": w["length"][piece],
-        "source": np.full(n, "generated", dtype=object),
-        "site_ref": np.full(n, "", dtype=object),
+        "wall_free_m": free_m,
+        "source": np.full(n, source, dtype=object),
+        "site_ref": np.asarray(refs).astype(object),
     })
-    return tables.check(out, "sites", where)
 
 
 def snap_given_spots(buildings, given, *, snap_tolerance_m: float = 2.0, default_z_m: float = 4.0,
@@ -437,20 +442,7 @@ def snap_given_spots(buildings, given, *, snap_tolerance_m: float = 2.0, default
     if high.any():
         warnings.warn(f"{where}: given spot(s) {', '.join(refs[ok][high][:10])} are mounted above the roof of "
                       "their building; check z_m", stacklevel=2)
-    n = len(p)
-    out = pd.DataFrame({
-        "site_id": np.arange(start_id, start_id + n, dtype=np.int64),
-        "building_idx": b.astype(np.int64),
-        "building_id": ids[b].astype(object),
-        "wall_id": p.astype(np.int64),
-        "x": spot[:, 0],
-        "y": spot[:, 1],
-        "z_m": zz,
-        "normal_az_deg": _azimuth_deg(nrm[:, 0], nrm[:, 1]),
-        "wall_free_m": L,
-        "source": np.full(n, "given", dtype=object),
-        "site_ref": refs[ok].astype(object),
-    })
+    out = _sites_table(start_id, b, ids, p, spot, zz, nrm, L, "given", refs[ok])
     return tables.check(out, "sites", where), dropped
 
 
