@@ -1,6 +1,6 @@
 """End-to-end benchmark of the batch runner, printing every figure and ratio measured in the same run.
 
-    python benchmarks/bench_runner.py [--city-buildings 20000] [--skip-city] [--skip-dask]
+    python benchmarks/bench_runner.py [--city-buildings 20000] [--skip-city] [--skip-dask] [--repeat 3]
 
 1. the demo district end to end (target < 30 s);
 2. the real district of pyrosm's bundled test.osm.pbf (about 2,200 buildings) end to end (target < 2 min);
@@ -77,6 +77,7 @@ def main() -> None:
     ap.add_argument("--city-buildings", type=int, default=20000)
     ap.add_argument("--skip-city", action="store_true")
     ap.add_argument("--skip-dask", action="store_true")
+    ap.add_argument("--repeat", type=int, default=3, help="runs of each heavy-stage configuration (default 3)")
     args = ap.parse_args()
     from synthetic_city import write_city
 
@@ -93,16 +94,20 @@ def main() -> None:
         show(f"synthetic city ({args.city_buildings} buildings)", city, 1200)
         if args.skip_dask:
             return
-        heavy = {0: city["timings_s"]["gains"]}
-        for workers in (1, 2):
-            res = run_case(job, [f'output.folder="out_dask{workers}"'], workers=workers, write=False)
-            heavy[workers] = res["timings_s"]["gains"]
-            same = res["objective"] == city["objective"] and res["chosen"] == city["chosen"]
-            print(f"   {workers} Dask worker(s): heavy stages {heavy[workers]:.1f} s (cluster start "
-                  f"{res['timings_s']['cluster_start']:.1f} s not included); same plan as one process: {same}")
-        print(f"heavy stages (direct + surface links): one process {heavy[0]:.1f} s (numba kernels on both cores), "
-              f"1 Dask worker {heavy[1]:.1f} s, 2 Dask workers {heavy[2]:.1f} s; 2 workers vs 1 worker "
-              f"{heavy[1] / heavy[2]:.2f}x (target >= 1.6x), vs one process {heavy[0] / heavy[2]:.2f}x")
+        # Heavy stages on this VM vary by up to +-30 % between runs: each configuration runs --repeat times,
+        # interleaved, and the fastest of each is compared.
+        heavy = {0: [city["timings_s"]["gains"]], 1: [], 2: []}
+        for rep in range(args.repeat):
+            for workers in (0, 1, 2) if rep else (1, 2):
+                res = run_case(job, [f'output.folder="out_w{workers}"'], workers=workers, write=False)
+                heavy[workers].append(res["timings_s"]["gains"])
+                same = res["objective"] == city["objective"] and res["chosen"] == city["chosen"]
+                print(f"   {workers or 'no'} Dask worker(s): heavy stages {heavy[workers][-1]:.1f} s (cluster start "
+                      f"{res['timings_s']['cluster_start']:.1f} s not included); same plan as one process: {same}")
+        best = {w: min(v) for w, v in heavy.items()}
+        print(f"heavy stages (direct + surface links), fastest of {args.repeat}: one process {best[0]:.1f} s, "
+              f"1 Dask worker {best[1]:.1f} s, 2 Dask workers {best[2]:.1f} s; 2 workers vs 1 worker "
+              f"{best[1] / best[2]:.2f}x (target >= 1.6x), vs one process {best[0] / best[2]:.2f}x")
 
 
 if __name__ == "__main__":

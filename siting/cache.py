@@ -1,20 +1,25 @@
-"""Content-addressed stage cache: Parquet tables plus a JSON manifest, verified by SHA-256, never pickled.
+"""Content-addressed stage cache: npz / Parquet tables plus a JSON manifest, verified by SHA-256, never pickled.
 
-An entry is a folder ``<root>/<name>-<key>/`` holding one Parquet file per table and ``manifest.json`` with the
-key, the SHA-256 of every file and any small JSON-able extras.  It is written into a temporary folder and renamed
-into place, so a killed process leaves either a whole entry or none.  On read, a missing, foreign or corrupted
-entry (key or hash mismatch, unreadable file) is reported and treated as absent: it is recomputed, never trusted.
+An entry is a folder ``<root>/<name>-<key>/`` holding one file per table and ``manifest.json`` with the key, the
+SHA-256 of every file and any small JSON-able extras.  A table whose columns are all plain numbers or booleans
+(the link tiles) is an uncompressed ``.npz`` of its columns, read with ``allow_pickle=False`` (about 4x faster to
+write than Parquet, which matters for hundreds of tiles); any other table is Parquet.  An entry is written into a
+temporary folder and renamed into place, so a killed process leaves either a whole entry or none.  On read, a
+missing, foreign or corrupted entry (key or hash mismatch, unreadable file) is reported and treated as absent: it
+is recomputed, never trusted.
 """
 
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 import shutil
 import tempfile
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 
@@ -67,10 +72,12 @@ class StageCache:
                 raise ValueError(f"tables {sorted(missing)} missing (written by another version)")
             tables = {}
             for table, sha in manifest["files"].items():
-                path = folder / f"{table}.parquet"
+                path = folder / f"{table}.npz"
+                if not path.is_file():
+                    path = folder / f"{table}.parquet"
                 if file_sha256(path) != sha:
                     raise ValueError(f"hash mismatch in {path.name}")
-                tables[table] = pd.read_parquet(path)
+                tables[table] = _read_table(path)
             return tables, manifest.get("extras", {})
         except (OSError, ValueError, KeyError, json.JSONDecodeError) as exc:
             self.log(f"cache entry {folder.name} is not usable ({exc}); recomputing")
@@ -85,9 +92,9 @@ class StageCache:
         try:
             files = {}
             for table, df in tables.items():
-                path = tmp / f"{table}.parquet"
-                df.reset_index(drop=True).to_parquet(path, index=False)
-                files[table] = file_sha256(path)
+                suffix, data = _table_bytes(df)  # hashed in memory, not re-read
+                (tmp / f"{table}{suffix}").write_bytes(data)
+                files[table] = hashlib.sha256(data).hexdigest()
             manifest = {"key": key, "files": files, "extras": extras or {}}
             (tmp / "manifest.json").write_text(json.dumps(manifest, sort_keys=True, default=json_default))
             if final.exists():
@@ -96,6 +103,24 @@ class StageCache:
         finally:
             if tmp.exists():
                 shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _table_bytes(df: pd.DataFrame) -> tuple[str, bytes]:
+    """``(suffix, file bytes)`` of a table: npz when every column is a plain numpy number/bool, else Parquet."""
+    numeric = all(isinstance(c, str) for c in df.columns) and all(
+        isinstance(t, np.dtype) and t.kind in "biuf" for t in df.dtypes)
+    if numeric:
+        buf = io.BytesIO()
+        np.savez(buf, **{c: df[c].to_numpy() for c in df.columns})
+        return ".npz", buf.getvalue()
+    return ".parquet", df.reset_index(drop=True).to_parquet(index=False)
+
+
+def _read_table(path: Path) -> pd.DataFrame:
+    if path.suffix == ".npz":
+        with np.load(path, allow_pickle=False) as z:
+            return pd.DataFrame({c: z[c] for c in z.files})
+    return pd.read_parquet(path)
 
 
 def json_default(obj):

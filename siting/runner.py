@@ -23,8 +23,10 @@ the tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in
 
 from __future__ import annotations
 
+import importlib
 import json
 import logging
+import os
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -144,7 +146,8 @@ def _tiles(x: np.ndarray, y: np.ndarray, tile_m: float) -> np.ndarray:
         return np.zeros(len(x), np.int64)
     ix = np.floor(x / tile_m).astype(np.int64)
     iy = np.floor(y / tile_m).astype(np.int64)
-    _, tile = np.unique(np.stack([ix, iy], axis=1), axis=0, return_inverse=True)
+    cell = (ix - ix.min()) * (int(iy.max() - iy.min()) + 1) + (iy - iy.min())  # row-major, as (ix, iy) sorts
+    _, tile = np.unique(cell, return_inverse=True)
     return tile.reshape(-1).astype(np.int64)
 
 
@@ -158,40 +161,75 @@ def _halo(bounds: np.ndarray, x: np.ndarray, y: np.ndarray, halo_m: float) -> np
     return np.flatnonzero(keep)
 
 
-def _direct_tile(keep, user_index, *, geoms, heights, bs, users, p):
-    """One user tile of the direct stage (runs in this process or on a Dask worker)."""
+def _direct_tile(keep, user_index, *, geoms, heights, bs, users, p, **_):
+    """One user tile of the direct stage: its (base station, user) links and its users' best direct link."""
     obstacles = Obstacles.from_buildings(geoms[keep], heights[keep])
-    return {"bs_user": direct_links(obstacles, bs, users, p, user_index=user_index)}
+    bs_user = direct_links(obstacles, bs, users, p, user_index=user_index)
+    return {"bs_user": bs_user, "direct": best_direct(bs_user, len(users), p).iloc[user_index]}
 
 
-def _surface_tile(keep, site_index, user_index, *, geoms, heights, bs, sites, sizes, users, options, bs_user,
-                  direct, p):
-    """One spot tile of the surface stage (runs in this process or on a Dask worker)."""
+def _surface_tile(keep, site_index, user_index, direct_parts, *, geoms, heights, bs, sites, sizes, users, options,
+                  p, **_):
+    """One spot tile of the surface stage.
+
+    ``direct_parts`` are the results of the direct tiles holding ``user_index`` (the users within reach of the
+    tile's spots): their direct links and whether each is covered directly are all the surface links read.
+    """
     obstacles = Obstacles.from_buildings(geoms[keep], heights[keep])
-    coverage, bs_site, site_user = surface_links(obstacles, bs, sites, sizes, users, options, bs_user, direct, p,
+    covered = np.zeros(len(users), bool)
+    for part in direct_parts:
+        covered[part["direct"]["user_id"].to_numpy()] = part["direct"]["covered"].to_numpy(bool)
+    links = [part["bs_user"][["a", "b", "rx_dbm"]] for part in direct_parts]
+    bs_user = pd.concat(links, ignore_index=True) if links else pd.DataFrame(
+        {"a": np.zeros(0, np.int64), "b": np.zeros(0, np.int64), "rx_dbm": np.zeros(0)})
+    coverage, bs_site, site_user = surface_links(obstacles, bs, sites, sizes, users, options, bs_user,
+                                                 pd.DataFrame({"covered": covered}), p,
                                                  site_index=site_index, user_index=user_index)
     return {"coverage": coverage, "bs_site": bs_site, "site_user": site_user}
 
 
 class _Executor:
-    """Runs tile tasks in this process, or on Dask when workers / a scheduler address are given."""
+    """Runs tile tasks in this process, or on Dask when workers / a scheduler address are given.
+
+    ``submit`` returns a handle (a Dask future, or a deferred call here) that may be passed inside the arguments of
+    later tasks: those wait for it, without a barrier between stages.  ``shares_disk`` says whether the tasks can
+    write the stage cache themselves: in this process and on a LocalCluster (same machine) they do, so storing
+    tiles runs in parallel too; on an external scheduler's workers the folder may not exist, so this process
+    stores what they return.
+    """
 
     def __init__(self, workers: int = 0, scheduler: str | None = None):
         self.client = None
         self.cluster = None
+        self.shares_disk = not scheduler
         if workers or scheduler:
             try:
+                import dask
                 from dask.distributed import Client, LocalCluster
             except ImportError:
                 raise SitingError("--workers/--scheduler need Dask: pip install 'siting[dask]'") from None
             if scheduler:
                 self.client = Client(scheduler)
             else:
-                # One task thread per worker process; numba's kernels inside a task keep their own threads
-                # (measured faster than pinning them to one thread on a 2-core machine).
-                self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                            dashboard_address=None)
+                # One task thread and one numba thread per worker process: the parallelism is over tiles (numba's
+                # threads on a tile-sized kernel cost more than they gain). Dask's default aggressive memory
+                # trimming (MALLOC_TRIM_THRESHOLD_=64 KiB) and its sampling profiler are switched off: they made
+                # the same tiles up to 1.6x slower on a worker than in this process (benchmarks/bench_runner.py).
+                # The variables are set before the worker processes start (numba reads its thread count on
+                # import); Dask writes them into this process's environment too, so it is restored afterwards.
+                saved_environ = dict(os.environ)
+                try:
+                    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,
+                                          "distributed.nanny.pre-spawn-environ.NUMBA_NUM_THREADS": 1,
+                                          "distributed.worker.profile.enabled": False}):
+                        self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                                    dashboard_address=None)
+                finally:
+                    os.environ.clear()
+                    os.environ.update(saved_environ)
                 self.client = Client(self.cluster)
+            # Import the task code on every worker now (about a second each), so it counts as cluster start.
+            self.client.run(importlib.import_module, __name__)
 
     def share(self, shared: dict) -> dict:
         """Send data every task needs to the workers once (unique keys); in-process it is passed as is."""
@@ -199,17 +237,26 @@ class _Executor:
             return shared
         return {k: self.client.scatter(v, broadcast=True, hash=False) for k, v in shared.items()}
 
-    def run(self, fn, tasks: dict, shared: dict):
-        """Yield ``(key, fn(*args, **shared))`` for each ``key: args`` of ``tasks``, as each one finishes."""
+    def put(self, value):
+        """A handle holding a value already known (a tile read from the cache)."""
+        return self.client.scatter(value, hash=False) if self.client else _Deferred(lambda: value)
+
+    def submit(self, fn, *args, **kwargs):
+        if self.client:
+            return self.client.submit(fn, *args, **kwargs, pure=False)
+        return _Deferred(fn, *args, **kwargs)
+
+    def as_completed(self, handles: dict):
+        """Yield ``(key, result)`` for each ``key: handle``, as each one finishes."""
         if not self.client:
-            for key, args in tasks.items():
-                yield key, fn(*args, **shared)
+            for key, handle in handles.items():
+                yield key, handle.result()
             return
         from dask.distributed import as_completed
 
-        futures = {self.client.submit(fn, *args, **shared, pure=False): key for key, args in tasks.items()}
-        for future, result in as_completed(futures, with_results=True):
-            yield futures[future], result
+        keys = {future: key for key, future in handles.items()}
+        for future, result in as_completed(keys, with_results=True):
+            yield keys[future], result
 
     def close(self) -> None:
         if self.client:
@@ -218,27 +265,88 @@ class _Executor:
             self.cluster.close()
 
 
-def _run_tiles(name, cache, key, tasks: dict, fn, shared, executor, progress, computed: list,
-               expect: tuple[str, ...]) -> list[dict]:
-    """Every tile's tables, from the cache or computed; each tile is stored as soon as it finishes.
+class _Deferred:
+    """A call run in this process when its result is first asked for; handles among its arguments (also inside
+    tuples and lists) are replaced by their results first, as Dask does with futures."""
 
-    ``tasks`` maps tile number -> task arguments; ``expect`` names the tables a tile holds; the names of
-    computed tiles are appended to ``computed``.
+    def __init__(self, fn, *args, **kwargs):
+        self.call = (fn, args, kwargs)
+        self.value = None
+
+    def result(self):
+        if self.call is not None:
+            fn, args, kwargs = self.call
+            self.value, self.call = fn(*_resolve(args), **kwargs), None
+        return self.value
+
+
+def _resolve(arg):
+    if isinstance(arg, _Deferred):
+        return arg.result()
+    if isinstance(arg, (tuple, list)):
+        return type(arg)(_resolve(a) for a in arg)
+    return arg
+
+
+def _tile_job(fn, args, store_at, **shared):
+    """One tile: ``fn(*args, **shared)``, stored in the cache at ``store_at = (root, entry, key)`` when given.
+
+    Storing here, where the tile was computed, is the checkpoint a killed job resumes from.
+    """
+    tables = fn(*args, **shared)
+    if store_at is not None:
+        StageCache(store_at[0]).store(store_at[1], store_at[2], tables)
+    return tables
+
+
+@dataclass
+class _TileSet:
+    """The tiles of one stage: those read from the cache (``done``) and those submitted (``handles``)."""
+
+    name: str
+    keys: dict
+    done: dict
+    handles: dict
+    held: dict = field(default_factory=dict)  # handles on tiles of ``done``, made when a later task needs one
+
+    def handle(self, t, executor):
+        """A handle on tile ``t`` to pass to a later task."""
+        if t in self.handles:
+            return self.handles[t]
+        if t not in self.held:
+            self.held[t] = executor.put(self.done[t])
+        return self.held[t]
+
+
+def _submit_tiles(name, cache, key, tasks: dict, fn, shared, executor, expect: tuple[str, ...]) -> _TileSet:
+    """Take each tile from the cache, or submit it (``tasks`` maps tile number -> task arguments).
+
+    ``expect`` names the tables a tile holds.  Tile keys hash the stage key, the tile number and the tile count.
     """
     n_tiles = len(tasks)
-    tile_key = {t: digest([key, t, n_tiles]) for t in tasks}
-    results: dict[int, dict] = {}
+    tiles = _TileSet(name, {t: digest([key, t, n_tiles]) for t in tasks}, {}, {})
     for t in tasks:
-        hit = cache.load(f"{name}-tile{t}", tile_key[t], expect=expect)
+        hit = cache.load(f"{name}-tile{t}", tiles.keys[t], expect=expect)
         if hit is not None:
-            results[t] = hit[0]
-    if results:
-        log.info("%s: %d of %d tiles taken from the cache", name, len(results), n_tiles)
-    todo = {t: args for t, args in tasks.items() if t not in results}
-    bar = _bar(progress, total=len(todo), desc=f"{name} tiles")
-    for t, tables in executor.run(fn, todo, executor.share(shared) if todo else {}):
-        cache.store(f"{name}-tile{t}", tile_key[t], tables)
-        computed.append(f"{name}-tile{t}")
+            tiles.done[t] = hit[0]
+    if tiles.done:
+        log.info("%s: %d of %d tiles taken from the cache", name, len(tiles.done), n_tiles)
+    root = str(cache.root.resolve())
+    for t, args in tasks.items():
+        if t not in tiles.done:
+            store_at = (root, f"{name}-tile{t}", tiles.keys[t]) if executor.shares_disk else None
+            tiles.handles[t] = executor.submit(_tile_job, fn, args, store_at, **shared)
+    return tiles
+
+
+def _collect(tiles: _TileSet, cache, executor, progress, computed: list) -> list[dict]:
+    """Every tile's tables in tile order, waiting for the submitted ones; their names are added to ``computed``."""
+    results = dict(tiles.done)
+    bar = _bar(progress, total=len(tiles.handles), desc=f"{tiles.name} tiles")
+    for t, tables in executor.as_completed(tiles.handles):
+        if not executor.shares_disk:
+            cache.store(f"{tiles.name}-tile{t}", tiles.keys[t], tables)
+        computed.append(f"{tiles.name}-tile{t}")
         results[t] = tables
         bar.update(1)
     bar.close()
@@ -258,57 +366,71 @@ def _advance(bar, next_stage: str) -> None:
 
 def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, tile_m, executor, progress,
                 computed: list | None = None):
-    """Direct links per user tile, then surface links per site tile; union equals the one-piece computation."""
+    """Direct links per user tile and surface links per site tile; union equals the one-piece computation.
+
+    A site tile's task depends only on the direct tiles of the users within reach of its spots, so on Dask it
+    starts as soon as those are done (no barrier between the two steps, nothing merged in this process between).
+    """
     computed = [] if computed is None else computed
-    bs = district.base_stations
-    footprints = {"geoms": district.buildings.geometry.values,
-                  "heights": district.buildings["height_m"].to_numpy(float)}
     bounds = district.buildings.geometry.bounds.to_numpy()
     ux, uy = users["x"].to_numpy(float), users["y"].to_numpy(float)
+    sx, sy = sites["x"].to_numpy(float), sites["y"].to_numpy(float)
+    options = make_options(sites, sizes)
+    # What the tasks read, slimmed to the columns they use (this is what Dask ships to every worker once).
+    point_cols = ["x", "y", "z_m", "normal_az_deg", "building_idx"]
+    shared = executor.share({
+        "geoms": district.buildings.geometry.values, "heights": district.buildings["height_m"].to_numpy(float),
+        "bs": district.base_stations, "sites": sites[point_cols], "sizes": sizes, "users": users[point_cols],
+        "options": options[["site_id", "size_idx"]], "p": p})
 
     user_tile = _tiles(ux, uy, tile_m)
     tasks = {}
     for t in range(int(user_tile.max()) + 1 if len(users) else 0):
         idx = np.flatnonzero(user_tile == t)
         tasks[t] = (_halo(bounds, ux[idx], uy[idx], p.bs_range_m), idx)
-    tiles = _run_tiles("direct", cache, digest([key, "direct"]), tasks, _direct_tile,
-                       {**footprints, "bs": bs, "users": users, "p": p}, executor, progress, computed,
-                       expect=("bs_user",))
-    bs_user = _concat([t["bs_user"] for t in tiles], ["a", "b"])
-    direct = best_direct(bs_user, len(users), p)
-    options = make_options(sites, sizes)
+    direct_tiles = _submit_tiles("direct", cache, digest([key, "direct"]), tasks, _direct_tile, shared, executor,
+                                 expect=("bs_user", "direct"))
 
-    sx, sy = sites["x"].to_numpy(float), sites["y"].to_numpy(float)
     site_tile = _tiles(sx, sy, tile_m)
     r = p.surface_range_m
+    by_x = np.argsort(ux, kind="stable")
+    x_sorted = ux[by_x]
     tasks = {}
     for t in range(int(site_tile.max()) + 1 if len(sites) else 0):
         idx = np.flatnonzero(site_tile == t)
-        near = ((ux >= sx[idx].min() - r) & (ux <= sx[idx].max() + r)
-                & (uy >= sy[idx].min() - r) & (uy <= sy[idx].max() + r))
-        tasks[t] = (_halo(bounds, sx[idx], sy[idx], max(p.bs_range_m, r)), idx, np.flatnonzero(near))
-    # What the surface tasks read, slimmed to the numeric columns they use (this is what Dask ships to workers):
-    # the direct power only of users that may be served through a surface.
-    served = np.ones(len(users), bool) if p.serve_covered_users else ~direct["covered"].to_numpy(bool)
-    feed = bs_user.loc[served[bs_user["b"].to_numpy()], ["a", "b", "rx_dbm"]] if len(bs_user) else bs_user
-    point_cols = ["x", "y", "z_m", "normal_az_deg", "building_idx"]
-    shared = {**footprints, "bs": bs, "sites": sites[point_cols], "sizes": sizes, "users": users[point_cols],
-              "options": options[["site_id", "size_idx"]], "bs_user": feed, "direct": direct[["covered"]], "p": p}
-    tiles = _run_tiles("surface", cache, digest([key, "surface"]), tasks, _surface_tile, shared, executor, progress,
-                       computed, expect=("coverage", "bs_site", "site_user"))
-    coverage = _concat([t["coverage"] for t in tiles], ["option_id", "user_id"])
-    bs_site = _concat([t["bs_site"] for t in tiles], ["a", "b"])
-    site_user = _concat([t["site_user"] for t in tiles], ["a", "b"])
+        # Users in the tile's bounding box grown by the surface range: a slice of the users sorted by x, then y.
+        strip = by_x[np.searchsorted(x_sorted, sx[idx].min() - r, side="left"):
+                     np.searchsorted(x_sorted, sx[idx].max() + r, side="right")]
+        near = np.sort(strip[(uy[strip] >= sy[idx].min() - r) & (uy[strip] <= sy[idx].max() + r)])
+        parts = [direct_tiles.handle(u, executor) for u in np.unique(user_tile[near])]
+        tasks[t] = (_halo(bounds, sx[idx], sy[idx], max(p.bs_range_m, r)), idx, near, parts)
+    surface_tiles = _submit_tiles("surface", cache, digest([key, "surface"]), tasks, _surface_tile, shared,
+                                  executor, expect=("coverage", "bs_site", "site_user"))
+
+    direct_parts = _collect(direct_tiles, cache, executor, progress, computed)
+    bs_user = _concat([t["bs_user"] for t in direct_parts], ["a", "b"])  # (on Dask, while the site tiles run)
+    direct = _concat([t["direct"] for t in direct_parts], ["user_id"])
+    if not len(direct):
+        direct = best_direct(bs_user, len(users), p)
+    surface_parts = _collect(surface_tiles, cache, executor, progress, computed)
+    coverage = _concat([t["coverage"] for t in surface_parts], ["option_id", "user_id"])
+    bs_site = _concat([t["bs_site"] for t in surface_parts], ["a", "b"])
+    site_user = _concat([t["site_user"] for t in surface_parts], ["a", "b"])
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
 
 
 def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
+    """The frames one after another, sorted by the non-negative integer columns ``sort_by`` (one or two)."""
     frames = [f for f in frames if f is not None]
     if not frames:
         return pd.DataFrame()
     out = pd.concat(frames, ignore_index=True)
     if len(out):
-        out = out.sort_values(sort_by, kind="stable").reset_index(drop=True)
+        sort_key = out[sort_by[0]].to_numpy(np.int64)
+        if len(sort_by) == 2:
+            minor = out[sort_by[1]].to_numpy(np.int64)
+            sort_key = sort_key * (int(minor.max()) + 1) + minor
+        out = out.take(np.argsort(sort_key, kind="stable")).reset_index(drop=True)
     return out
 
 

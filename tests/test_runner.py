@@ -78,7 +78,7 @@ def test_corrupted_cache_is_recomputed(demo_result, tmp_path):
     result, out = demo_result
     job = demo_job(tmp_path)
     shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
-    victims = sorted((tmp_path / "out" / ".cache").glob("surface-tile0-*/coverage.parquet"))
+    victims = sorted((tmp_path / "out" / ".cache").glob("surface-tile0-*/coverage.npz"))
     assert victims
     victims[0].write_bytes(victims[0].read_bytes()[:-40] + b"x" * 40)  # same size, different content
     foreign = sorted((tmp_path / "out" / ".cache").glob("candidates-*/manifest.json"))[0]
