@@ -140,6 +140,11 @@ def test_dask_tiles_match_single_process(demo_result, tmp_path):
     np.testing.assert_allclose(tiled.gains.coverage["snr_db"], result.gains.coverage["snr_db"], rtol=1e-9)
     pd.testing.assert_frame_equal(tiled.gains.direct, result.gains.direct)
     assert list(tiled.plan.chosen) == list(result.plan.chosen)
+    # The workers stored every tile they computed: the same job in this process recomputes none of them.
+    assert any(r.startswith("gains (") for r in tiled.recomputed)
+    again = run(demo_job(tmp_path), tile_m=250.0, write=False)
+    assert not any(r.startswith("gains") for r in again.recomputed), again.recomputed
+    pd.testing.assert_frame_equal(again.gains.coverage, tiled.gains.coverage)
 
 
 def test_cli_exit_codes(tmp_path):
