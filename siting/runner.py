@@ -18,9 +18,9 @@ Tiles: the district is cut into square tiles of ``tile_m``.  A tile owns the use
 (surface stage) inside it and computes their links against every building and point within the longest link
 range of it (the halo), so tile results are disjoint and their union equals the one-piece computation.  A site
 tile reads only the direct tiles of the users within reach of its spots, so it waits for those and for nothing
-else.  Each tile is cached on its own, by the process that computed it, which is the checkpoint a killed job
-resumes from.  With ``workers`` or ``scheduler`` the tiles run as Dask tasks (LocalCluster or an existing
-scheduler); without, in this process.
+else.  Each tile is cached on its own as soon as it is done (by the worker on this machine, by this process for
+an external cluster), which is the checkpoint a killed job resumes from.  With ``workers`` or ``scheduler`` the
+tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in this process.
 """
 
 from __future__ import annotations
