@@ -25,7 +25,6 @@ tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in thi
 
 from __future__ import annotations
 
-import importlib
 import json
 import logging
 import os
@@ -230,8 +229,6 @@ class _Executor:
                     os.environ.clear()
                     os.environ.update(saved_environ)
                 self.client = Client(self.cluster)
-            # Import the task code on every worker now (about a second each), so it counts as cluster start.
-            self.client.run(importlib.import_module, __name__)
 
     def share(self, shared: dict) -> dict:
         """Send data every task needs to the workers once (unique keys); in-process it is passed as is."""
