@@ -583,7 +583,7 @@ class _Result:
     values: np.ndarray | None
     primal: float  # solver objective (minimise), inf if none
     dual: float  # solver dual bound (minimise), -inf if none
-    status: str  # 'optimal', 'time_limit', 'infeasible', 'killed', 'other'
+    status: str  # 'optimal', 'time_limit', 'infeasible', 'killed', 'other', 'error'
     detail: str = ""
 
 
@@ -608,9 +608,26 @@ def _quiet_highs():
         os.close(saved)
 
 
+_highs_threads = [None]  # thread count HiGHS's process-wide scheduler was last (re)started with
+
+
+def _use_highs_threads(threads):
+    """Restart HiGHS's process-wide thread scheduler when a different thread count is asked for.
+
+    The scheduler is started once per process by the first solve; a later ``threads`` option that differs
+    makes ``Highs.run`` fail with an error instead of solving (highspy 1.16).
+    """
+    import highspy
+
+    if threads is not None and int(threads) != _highs_threads[0]:
+        highspy.Highs.resetGlobalScheduler(True)
+        _highs_threads[0] = int(threads)
+
+
 def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False):
     import highspy
 
+    _use_highs_threads(threads)
     h = _quiet_highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("random_seed", 0)
@@ -647,11 +664,15 @@ def _highs_run(h, start, time_limit_s) -> _Result:
     if start is not None:
         idx, val = start
         h.setSolution(len(idx), np.asarray(idx, np.int32), np.asarray(val, np.float64))
-    h.run()
+    run_status = h.run()
     ms = h.getModelStatus()
     info = h.getInfo()
-    feasible = info.primal_solution_status == 2
     M = highspy.HighsModelStatus
+    detail = h.modelStatusToString(ms)
+    if run_status == highspy.HighsStatus.kError:
+        # nothing was solved: its info fields (a dual bound of 0, say) are no certificate
+        return _Result(None, _INF, -_INF, "error", f"HiGHS returned an error, model status '{detail}'")
+    feasible = info.primal_solution_status == 2
     is_mip = h.getLp().integrality_ is not None and len(h.getLp().integrality_) > 0
     if ms == M.kOptimal:
         status = "optimal"
@@ -663,11 +684,11 @@ def _highs_run(h, start, time_limit_s) -> _Result:
         status = "other"
     vals = np.asarray(h.getSolution().col_value) if feasible else None
     primal = info.objective_function_value if feasible else _INF
-    if is_mip:
+    if is_mip and status != "other":
         dual = info.mip_dual_bound if np.isfinite(info.mip_dual_bound) else -_INF
     else:
         dual = primal if status == "optimal" else -_INF
-    return _Result(vals, primal, dual, status, h.modelStatusToString(ms))
+    return _Result(vals, primal, dual, status, detail)
 
 
 def _pulp_problem(milp: _Milp, name="siting"):
@@ -1082,6 +1103,10 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
 
 def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s):
     n = milp.n_x
+    if res.status in ("error", "other") and res.values is None:
+        raise SolverError(f"{solver} stopped without a plan or a bound ({res.detail}); the run gives no proof, so "
+                          f"no plan is reported; check the solver options (threads, time limit) or try the other "
+                          f"solver ('highs' or 'cbc')")
     if res.status == "infeasible":
         if mode == "min":
             raise SolverError(

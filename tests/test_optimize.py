@@ -333,6 +333,27 @@ def test_deterministic():
     assert opt.greedy(C, w, c, site, budget=20).tolist() == opt.greedy(C, w, c, site, budget=20).tolist()
 
 
+def test_solver_thread_count_may_change_between_solves():
+    # HiGHS starts one thread scheduler per process; asking for another count later must still solve
+    # (highspy 1.16 fails such a run unless the scheduler is restarted).  Reference: brute force.
+    C, w, c, site = make_instance(4, n_sites=6, n_users=14)
+    vals, costs, ok = brute_force(C, w, c, site, budget=8)
+    best = vals[ok].max()
+    for threads in (None, 1, 2, 1, None):
+        p = opt.solve_coverage(C, w, c, site, budget=8, threads=threads)
+        assert p.status == "optimal" and p.objective == pytest.approx(best), threads
+
+
+def test_a_failed_solver_run_is_an_error_not_a_certificate(monkeypatch):
+    # a run that HiGHS refuses (here: a thread count the running scheduler cannot serve) reports a dual bound
+    # of 0 in its info; that must never turn into a "proven" plan
+    C, w, c, site = make_instance(4, n_sites=6, n_users=14)
+    opt.solve_coverage(C, w, c, site, budget=8, threads=1)
+    monkeypatch.setattr(opt, "_use_highs_threads", lambda threads: None)
+    with pytest.raises(SolverError, match="without a plan or a bound"):
+        opt.solve_coverage(C, w, c, site, budget=8, threads=2)
+
+
 def test_time_limited_plan_is_usable_and_never_below_greedy():
     # adversarial: uniform random coverage, far too short a limit to prove optimality
     rng = np.random.default_rng(5)
