@@ -41,10 +41,20 @@ Reductions (``reduce=True``; each keeps the optimum, see tests/test_optimize.py)
 ---------------------------------------------------------------------------------
 1. drop users of zero weight and users no option covers;
 2. drop options that cover no remaining user;
-3. drop an option when another option *at the same site* covers a superset of its users at no greater
-   cost (and, with a load cap, no smaller cap).  This is checked on the instance, never assumed from the
-   panel size.  It is safe with a count, conflicts and a load cap: the replacement is one-for-one at the
-   same site, so every constraint that held still holds;
+3. drop option k when another option j covers a superset of its users at no greater cost (with a load
+   cap, no smaller cap) and either
+
+   a. j sits at the same site as k: in any plan k can be swapped for j one-for-one, so the budget, count,
+      conflicts and caps that held still hold; or
+   b. (no load cap) j sits at another site that takes part in no spacing conflict, and *every* option at
+      j's site covers all of k's users.  In a plan with k, either j's site is free (swap k for j: same
+      site count, no more cost, no fewer users) or some option there already covers k's users (drop k).
+
+   Coverage is checked on the instance, never assumed from the panel size.  Candidates are strictly
+   ordered (cost, then larger coverage, then larger cap, then index), so all dominated options of a round
+   go at once; rounds repeat while options go, since fewer options at a site can make (b) hold.  On
+   street-like instances, where spots a few metres apart cover nested sets of users, (b) drops about half
+   of the options (real district: 1,616 -> 874 after (a));
 4. merge users with identical covering sets into one class, summing weights.  With a load cap a merged
    user may not be split across surfaces, so only users of identical covering set *and* identical weight
    are merged and the class becomes an integer count ``m_i``.
@@ -278,38 +288,74 @@ class _Reduced:
     reduced: bool = True
 
 
-def _dominated(C, c, site, cap):
-    """Bool per option: another option at the same site covers a superset at no greater cost (and cap)."""
-    n = C.shape[0]
-    order = np.argsort(site, kind="stable")
-    s_sorted = site[order]
-    starts = np.flatnonzero(np.r_[True, s_sorted[1:] != s_sorted[:-1]])
-    sizes = np.diff(np.r_[starts, n])
-    # all ordered pairs (j, k), j != k, within a site group
-    grp = np.repeat(np.arange(len(starts)), sizes)
-    gs = sizes[grp]
-    rep = np.repeat(np.arange(n), gs)  # position in sorted order, repeated group-size times
-    offs = np.arange(len(rep)) - np.repeat(np.cumsum(gs) - gs, gs)
-    j = order[rep]
-    k = order[starts[grp[rep]] + offs]
-    keep = j != k
-    j, k = j[keep], k[keep]
-    if len(j) == 0:
-        return np.zeros(n, bool)
-    Cf = C.astype(np.float64)
-    inter = np.asarray((Cf[j].multiply(Cf[k])).sum(axis=1)).ravel()
+def _superset_pairs(C, rare=3, chunk_nnz=4_000_000):
+    """All pairs ``(k, j)``, ``k != j``, where option j covers every user option k covers (rows of ``C``).
+
+    A superset of row k covers in particular k's ``rare`` least-covered users, so candidates come from those
+    few columns (cheap even on dense relations); each candidate is then checked on the whole row.
+    """
+    n, m = C.shape
     nnz = np.diff(C.indptr)
-    subset = inter == nnz[j]
-    equal = subset & (nnz[j] == nnz[k])
-    cheaper = c[k] < c[j]
-    same_cost = c[k] == c[j]
-    ok_cap = np.ones(len(j), bool) if cap is None else cap[k] >= cap[j]
-    strict_cap = np.zeros(len(j), bool) if cap is None else cap[k] > cap[j]
-    # strictly better in some respect, or a perfect tie broken by index
-    better = cheaper | (same_cost & ~equal) | strict_cap | (same_cost & equal & (k < j))
-    dom = subset & (c[k] <= c[j]) & ok_cap & better
+    if n == 0 or C.nnz == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    deg = np.bincount(C.indices, minlength=m)
+    rowid = np.repeat(np.arange(n), nnz)
+    order = np.lexsort((C.indices, deg[C.indices], rowid))  # grouped by row, rarest user first
+    rank = np.arange(C.nnz) - np.repeat(C.indptr[:-1], nnz)
+    sel = order[rank < rare]
+    R = sp.csr_array((np.ones(len(sel)), (rowid[sel], C.indices[sel])), shape=(n, m))
+    hits = sp.coo_array(R @ sp.csr_array(C.T.astype(np.float64)))
+    need = np.minimum(nnz, rare)
+    keep = (hits.data == need[hits.row]) & (hits.row != hits.col)
+    k, j = hits.row[keep].astype(np.int64), hits.col[keep].astype(np.int64)
+    if len(k) == 0:
+        return k, j
+    # exact check on the whole row: |cov(k) & cov(j)| == |cov(k)|, in chunks of bounded size
+    Cf = sp.csr_array(C, dtype=np.float64)
+    ok = np.zeros(len(k), bool)
+    cum = np.cumsum(nnz[k])
+    edges = np.unique(np.r_[0, np.searchsorted(cum, np.arange(chunk_nnz, cum[-1], chunk_nnz)), len(k)])
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        inter = np.asarray(Cf[k[lo:hi]].multiply(Cf[j[lo:hi]]).sum(axis=1)).ravel()
+        ok[lo:hi] = inter == nnz[k[lo:hi]]
+    return k[ok], j[ok]
+
+
+def _dominated(C, c, site, cap, pinned):
+    """Bool per option: it can be dropped without changing the optimum (one round; see reduction 3).
+
+    Option k is dominated by option j when j covers every user k covers at no greater cost (no smaller load
+    cap), j comes first in the order (cost, larger coverage, larger cap, index), and either j sits at the
+    same site as k, or - without a load cap - j's site takes part in no spacing conflict (``pinned``) and
+    every option at j's site covers all of k's users.
+    """
+    n = C.shape[0]
+    k, j = _superset_pairs(C)
     out = np.zeros(n, bool)
-    out[j[dom]] = True
+    if len(k) == 0:
+        return out
+    nnz = np.diff(C.indptr)
+    equal = nnz[j] == nnz[k]
+    ok_cap = np.ones(len(k), bool) if cap is None else cap[j] >= cap[k]
+    strict_cap = np.zeros(len(k), bool) if cap is None else cap[j] > cap[k]
+    same_cost = c[j] == c[k]
+    # strictly better in some respect, or a perfect tie broken by index: no cycles, so all can go at once
+    better = (c[j] < c[k]) | (same_cost & ~equal) | strict_cap | (same_cost & equal & ~strict_cap & (j < k))
+    dom = (c[j] <= c[k]) & ok_cap & better
+    _, sidx = np.unique(site, return_inverse=True)
+    same_site = sidx[j] == sidx[k]
+    if cap is None:
+        # k's supersets per other site, against the number of options at that site
+        n_site = int(sidx.max()) + 1
+        key = k * n_site + sidx[j]
+        keys, counts = np.unique(key[~same_site], return_counts=True)
+        pos = np.searchsorted(keys, key).clip(0, max(len(keys) - 1, 0))
+        found = (keys[pos] == key) if len(keys) else np.zeros(len(key), bool)
+        every = found & (counts[pos] == np.bincount(sidx, minlength=n_site)[sidx[j]]) if len(keys) else found
+        dom &= same_site | (every & ~pinned[j])
+    else:
+        dom &= same_site
+    out[k[dom]] = True
     return out
 
 
@@ -328,11 +374,18 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     stats["users_dropped"] = int(n_user - len(users))
     stats["options_empty_dropped"] = int(n_opt - len(opts))
     cap = None if inst.load_cap is None else inst.load_cap[opts]
-    dom = _dominated(Cu, inst.c[opts], inst.site[opts], cap) if len(opts) else np.zeros(0, bool)
-    stats["options_dominated_dropped"] = int(dom.sum())
-    opts = opts[~dom]
-    Cu = sp.csr_array(Cu[np.flatnonzero(~dom)])
-    cap = None if cap is None else cap[~dom]
+    pinned_sites = np.unique(inst.conflicts) if len(inst.conflicts) else np.zeros(0, inst.site.dtype)
+    n_dom = 0
+    for _ in range(20):  # dropping options can make more dominated (fewer options left at a site)
+        pinned = np.isin(inst.site[opts], pinned_sites)
+        dom = _dominated(Cu, inst.c[opts], inst.site[opts], cap, pinned) if len(opts) else np.zeros(0, bool)
+        if not dom.any():
+            break
+        n_dom += int(dom.sum())
+        opts = opts[~dom]
+        Cu = sp.csr_array(Cu[np.flatnonzero(~dom)])
+        cap = None if cap is None else cap[~dom]
+    stats["options_dominated_dropped"] = n_dom
     # merge users with identical covering sets: two independent 64-bit random hashes per column
     Cc = sp.csc_array(Cu)
     rng = np.random.default_rng(20240521)

@@ -226,6 +226,87 @@ def test_dominance_is_checked_not_assumed():
     assert opt.solve_coverage(C, w, c, site, budget=1).objective == val[ok].max() == 4.0
 
 
+def test_superset_pairs_match_dense_reference():
+    # reference: every ordered pair checked on dense rows (brute force)
+    rng = np.random.default_rng(3)
+    base = rng.random((40, 30)) < 0.25
+    sub = base[rng.integers(0, 40, 40)] & (rng.random((40, 30)) < 0.7)  # rows that are subsets of others
+    D = np.vstack([base, sub, base[:5]])  # and a few identical rows
+    D = D[D.any(axis=1)]
+    k, j = opt._superset_pairs(sp.csr_array(D))
+    got = set(zip(k.tolist(), j.tolist()))
+    inter = D.astype(int) @ D.T.astype(int)
+    want = {(a, b) for a in range(len(D)) for b in range(len(D)) if a != b and inter[a, b] == D[a].sum()}
+    assert got == want and len(want) > 40
+
+
+def neighbour_instance(seed, n_sites=5, n_users=10):
+    """Spots along one street: each size covers a window of users around its spot, so neighbouring spots
+    cover nested or near-nested sets (the shape that makes options at other sites dominate)."""
+    rng = np.random.default_rng(seed)
+    pos = np.sort(rng.integers(0, n_users, n_sites))
+    rows, cost, site = [], [], []
+    for s_ in range(n_sites):
+        for k in range(rng.integers(1, 3)):
+            half = 1 + k + rng.integers(0, 2)
+            cov = np.abs(np.arange(n_users) - pos[s_]) <= half
+            if rng.random() < 0.2:
+                cov[rng.integers(0, n_users)] = False  # a blocked user now and then
+            if cov.any():
+                rows.append(cov)
+                cost.append(float(2 + 2 * k + rng.integers(0, 2)))
+                site.append(s_)
+    w = rng.integers(0, 4, n_users).astype(float)
+    return sp.csr_array(np.array(rows, bool)), w, np.array(cost), np.array(site)
+
+
+@HYP
+@given(seed=seeds, budget=st.integers(0, 12), count=st.integers(1, 3), data=st.data())
+def test_dominance_across_sites_keeps_the_optimum(seed, budget, count, data):
+    C, w, c, site = neighbour_instance(seed)
+    vals, costs, ok = brute_force(C, w, c, site, budget=budget)
+    assert opt.solve_coverage(C, w, c, site, budget=budget).objective == pytest.approx(vals[ok].max())
+    vals, costs, ok = brute_force(C, w, c, site, max_count=count)
+    assert opt.solve_coverage(C, w, c, site, max_count=count).objective == pytest.approx(vals[ok].max())
+    # with spacing conflicts the dominating site must be free of them
+    sites = np.unique(site)
+    if len(sites) > 1:
+        a = data.draw(st.sampled_from(sites.tolist()))
+        b = data.draw(st.sampled_from([x for x in sites.tolist() if x != a]))
+        vals, costs, ok = brute_force(C, w, c, site, budget=budget, conflicts=[(a, b)])
+        assert opt.solve_coverage(C, w, c, site, budget=budget, conflicts=np.array([[a, b]])).objective == \
+            pytest.approx(vals[ok].max())
+    # minimum cost for half the weight
+    target = 0.5 * w[np.asarray(C.sum(axis=0)).ravel() > 0].sum()
+    vals, costs, ok = brute_force(C, w, c, site)
+    feas = ok & (vals >= target - 1e-9)
+    assert opt.min_cost_cover(C, w, c, site, target).cost == pytest.approx(costs[feas].min())
+
+
+def test_dominance_across_sites_drops_options_on_a_street():
+    C, w, c, site = neighbour_instance(11, n_sites=40, n_users=120)
+    red = opt._reduce(opt._validate(C, w, c, site), True)
+    assert red.stats["options_dominated_dropped"] > 0.2 * C.shape[0]
+    for budget in (6, 15, 30):
+        assert opt.solve_coverage(C, w, c, site, budget=budget).objective == \
+            opt.solve_coverage(C, w, c, site, budget=budget, reduce=False).objective
+
+
+def test_dominance_across_sites_needs_every_option_there_to_cover():
+    # option 0 (site A) covers u0; site B: option 1 covers u0,u1 and option 2 covers u1,u2,u3 but not u0.
+    # Option 1 covers a superset of option 0 at the same cost, yet with budget 2 the optimum is 0 + 2.
+    C = sp.csr_array(np.array([[1, 0, 0, 0], [1, 1, 0, 0], [0, 1, 1, 1]], bool))
+    w, c, site = np.ones(4), np.ones(3), np.array([0, 1, 1])
+    red = opt._reduce(opt._validate(C, w, c, site), True)
+    assert 0 in red.opt.tolist()
+    vals, _, ok = brute_force(C, w, c, site, budget=2)
+    p = opt.solve_coverage(C, w, c, site, budget=2)
+    assert p.objective == vals[ok].max() == 4.0 and sorted(p.chosen.tolist()) == [0, 2]
+    # when every option at site B covers u0, option 0 adds nothing that site B cannot: it goes
+    C2 = sp.csr_array(np.array([[1, 0, 0, 0], [1, 1, 0, 0], [1, 1, 1, 1]], bool))
+    assert 0 not in opt._reduce(opt._validate(C2, w, c, site), True).opt.tolist()
+
+
 def test_merge_and_drop_users_reduce_the_model():
     C, w, c, site = make_instance(5, n_sites=6, n_users=40, density=0.2)
     p_raw = opt.solve_coverage(C, w, c, site, budget=10, reduce=False)
