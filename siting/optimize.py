@@ -677,13 +677,13 @@ def _use_highs_threads(threads):
         _highs_threads[0] = int(threads)
 
 
-def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False):
+def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False, seed=0):
     import highspy
 
     _use_highs_threads(threads)
     h = _quiet_highs()
     h.setOptionValue("output_flag", False)
-    h.setOptionValue("random_seed", 0)
+    h.setOptionValue("random_seed", int(seed))
     h.setOptionValue("mip_rel_gap", float(mip_rel_gap))
     if threads is not None:
         h.setOptionValue("threads", int(threads))
@@ -773,7 +773,7 @@ def _pulp_problem(milp: _Milp, name="siting"):
     return prob, vs
 
 
-def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads) -> _Result:
+def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed=0) -> _Result:
     import pulp
 
     prob, vs = _pulp_problem(milp)
@@ -784,7 +784,7 @@ def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads) -> _Result:
         mps, sol, mst = (os.path.join(tmp, f) for f in ("m.mps", "m.sol", "m.mst"))
         vs_, vnames, cnames, _ = prob.writeMPS(mps, rename=1)
         args = [solver.path, mps, "-sec", f"{float(time_limit_s):g}", "-ratio", f"{float(mip_rel_gap):g}",
-                "-randomSeed", "1", "-randomCbcSeed", "1"]
+                "-randomSeed", str(int(seed) + 1), "-randomCbcSeed", str(int(seed) + 1)]
         if threads is not None:
             args += ["-threads", str(int(threads))]
         if start is not None:
@@ -1060,7 +1060,7 @@ def _finish_gap(mode, objective, cost, bound):
     return bound, (cost - bound) / max(cost, _TINY) if cost > 0 else 0.0
 
 
-def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads,
+def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads, seed,
            keep_model=False):
     t = {}
     t0 = time.perf_counter()
@@ -1068,6 +1068,8 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
         raise SitingError(f"optimiser argument 'solver': expected 'highs' or 'cbc', got {solver!r}")
     if not (np.isfinite(time_limit_s) and time_limit_s > 0):
         raise SitingError(f"optimiser argument 'time_limit_s': expected a positive number, got {time_limit_s!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2**31:
+        raise SitingError(f"optimiser argument 'solver_seed': expected an integer from 0 to 2**31 - 1, got {seed!r}")
     red = _reduce(inst, reduce)
     t["reduce"] = time.perf_counter() - t0
     raw_size = _raw_size(inst)
@@ -1142,11 +1144,11 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
     t3 = time.perf_counter()
     if solver == "highs":
-        h = _highs_new(milp, mip_rel_gap, threads)
+        h = _highs_new(milp, mip_rel_gap, threads, seed=seed)
         res = _highs_run(h, start, time_limit_s)
     else:
         h = None
-        res = _cbc_run(milp, start, time_limit_s, mip_rel_gap, threads)
+        res = _cbc_run(milp, start, time_limit_s, mip_rel_gap, threads, seed)
     t["solve"] = time.perf_counter() - t3
     plan = _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s)
     if keep_model:
@@ -1255,7 +1257,7 @@ def _raw_size(inst: _Instance):
 
 def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
                    option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                   warm_start=True, threads=None) -> Plan:
+                   warm_start=True, threads=None, solver_seed=0) -> Plan:
     """Choose options to maximise the covered user weight within a budget and/or a panel count.
 
     Parameters
@@ -1276,6 +1278,8 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
     reduce : apply the optimum-preserving reductions of the module docstring.
     warm_start : start from greedy + swap local search.
     threads : solver threads (None: solver default).
+    solver_seed : the solver's random seed; the same seed gives the same plan (solve times can differ a lot
+        between seeds, see docs/MODELS.md).
 
     Returns
     -------
@@ -1284,12 +1288,12 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
         be chosen (one per site).
     """
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
-    return _solve(inst, "max", None, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads)
+    return _solve(inst, "max", None, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads, solver_seed)
 
 
 def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=None, max_count=None, conflicts=None,
                    load_cap=None, option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                   warm_start=True, threads=None) -> Plan:
+                   warm_start=True, threads=None, solver_seed=0) -> Plan:
     """Cheapest set of options covering at least ``target_weight`` of user weight.
 
     Same arguments as :func:`solve_coverage`; ``Plan.mode == 'min_cost'`` and ``Plan.bound`` is a proven
@@ -1298,12 +1302,13 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=No
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     if not np.isscalar(target_weight) or not np.isfinite(target_weight):
         raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
-    return _solve(inst, "min", float(target_weight), solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads)
+    return _solve(inst, "min", float(target_weight), solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads,
+                  solver_seed)
 
 
 def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, conflicts=None, load_cap=None,
                  option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                 warm_start=True, threads=None) -> pd.DataFrame:
+                 warm_start=True, threads=None, solver_seed=0) -> pd.DataFrame:
     """Covered weight against budget, for the report's curve.
 
     Budgets are solved in increasing order on one HiGHS model (only the budget row changes), each
@@ -1327,7 +1332,7 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
         for k in order:
             p = solve_coverage(cover, weight, cost, option_site, budget=float(b[k]), solver=solver,
                                time_limit_s=time_limit_s, mip_rel_gap=mip_rel_gap, reduce=reduce,
-                               warm_start=warm_start, threads=threads, **same)
+                               warm_start=warm_start, threads=threads, solver_seed=solver_seed, **same)
             rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
     else:
         # build once with the largest budget, then lower the row bound per budget
@@ -1335,7 +1340,7 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
                          option_wall)
         red = _reduce(inst, reduce)
         milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
-        h = _highs_new(milp, mip_rel_gap, threads) if milp is not None else None
+        h = _highs_new(milp, mip_rel_gap, threads, seed=solver_seed) if milp is not None else None
         prev = np.zeros(0, np.int64)
         for k in order:
             inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(b[k]), inst.max_count, inst.conflicts,

@@ -411,6 +411,9 @@ def test_deterministic():
     a = opt.solve_coverage(C, w, c, site, budget=20)
     b = opt.solve_coverage(C, w, c, site, budget=20)
     assert a.chosen.tolist() == b.chosen.tolist() and a.objective == b.objective
+    c_ = opt.solve_coverage(C, w, c, site, budget=20, solver_seed=7)
+    d_ = opt.solve_coverage(C, w, c, site, budget=20, solver_seed=7)
+    assert c_.chosen.tolist() == d_.chosen.tolist() and c_.objective == a.objective  # same optimum, any seed
     assert opt.greedy(C, w, c, site, budget=20).tolist() == opt.greedy(C, w, c, site, budget=20).tolist()
 
 
@@ -550,6 +553,8 @@ def test_solve_tables_treats_directly_covered_users_as_constants():
         (dict(max_count=1.5), "max_count"),
         (dict(conflicts=np.array([1, 2, 3])), "conflicts"),
         (dict(solver="gurobi"), "solver"),
+        (dict(solver_seed=-1), "solver_seed"),
+        (dict(solver_seed=1.5), "solver_seed"),
         (dict(load_cap=np.nan), "load_cap"),
         (dict(cover=np.ones((2, 2, 2))), "cover"),
     ],
