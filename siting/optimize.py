@@ -1156,8 +1156,27 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     return plan
 
 
+def _satisfies(milp: _Milp, x, tol=1e-6) -> bool:
+    """The point meets the model's bounds, rows and integrality (within solver tolerances)."""
+    x = np.asarray(x, float)
+    if x.shape != milp.obj.shape or not np.all(np.isfinite(x)):
+        return False
+    if np.any(x < milp.col_lo - tol) or np.any(x > milp.col_hi + tol):
+        return False
+    xi = x[milp.integer]
+    if np.any(np.abs(xi - np.round(xi)) > 1e-5):
+        return False
+    act = milp.A @ x
+    slack = tol * (1.0 + np.abs(act))
+    return bool(np.all(act >= milp.row_lo - slack) and np.all(act <= milp.row_hi + slack))
+
+
 def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s):
     n = milp.n_x
+    if res.values is not None and not _satisfies(milp, res.values):
+        # CBC stopped inside the root LP ("Stopped on iterations") writes the LP's current point, which can break
+        # the budget and the one-size-per-site rows: never a plan
+        res = _Result(None, _INF, res.dual, res.status, res.detail + "; its point breaks the model and is ignored")
     if res.status in ("error", "other") and res.values is None:
         raise SolverError(f"{solver} stopped without a plan or a bound ({res.detail}); the run gives no proof, so "
                           f"no plan is reported; check the solver options (threads, time limit) or try the other "

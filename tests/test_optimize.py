@@ -438,6 +438,27 @@ def test_a_failed_solver_run_is_an_error_not_a_certificate(monkeypatch):
         opt.solve_coverage(C, w, c, site, budget=8, threads=2)
 
 
+@pytest.mark.parametrize("back_end", ["_highs_run", "_cbc_run"])
+def test_a_solver_point_that_breaks_the_model_is_never_a_plan(monkeypatch, back_end):
+    # CBC stopped inside its root LP writes the LP's current point with the status line "Stopped on iterations -
+    # objective value ..." (seen on a 9,000-option instance: cost 7,991 against a budget of 3,000).  Such a point
+    # must not become a plan: the greedy plan is returned, within budget.
+    C, w, c, site = make_instance(6, n_sites=8, n_users=30)
+    budget = 6.0
+    real = getattr(opt, back_end)
+
+    def stopped_in_root_lp(*args, **kwargs):
+        res = real(*args, **kwargs)
+        bad = np.full(len(res.values), 0.6)  # fractional, and over budget
+        return opt._Result(bad, -1e9, -np.inf, "time_limit", "Stopped on iterations")
+
+    monkeypatch.setattr(opt, back_end, stopped_in_root_lp)
+    p = opt.solve_coverage(C, w, c, site, budget=budget, solver="highs" if back_end == "_highs_run" else "cbc")
+    assert p.status == "greedy_only" and p.cost <= budget + 1e-9
+    assert len(np.unique(site[p.chosen])) == len(p.chosen)
+    assert p.objective == pytest.approx(p.greedy_objective)
+
+
 def test_time_limited_plan_is_usable_and_never_below_greedy():
     # adversarial: uniform random coverage, far too short a limit to prove optimality
     rng = np.random.default_rng(5)
