@@ -459,6 +459,18 @@ def test_a_solver_point_that_breaks_the_model_is_never_a_plan(monkeypatch, back_
     assert p.objective == pytest.approx(p.greedy_objective)
 
 
+def test_large_models_solved_with_interior_point_lps_keep_the_optimum(monkeypatch):
+    # large models switch HiGHS's LP solver to its interior point method; force it on small instances and
+    # compare with brute force
+    monkeypatch.setattr(opt, "_IPM_NONZEROS", 0)
+    for seed in range(4):
+        C, w, c, site = make_instance(seed, n_sites=6, n_users=14)
+        vals, _, ok = brute_force(C, w, c, site, budget=7)
+        p = opt.solve_coverage(C, w, c, site, budget=7)
+        assert p.status == "optimal" and p.objective == pytest.approx(vals[ok].max())
+        assert opt.lp_relaxation_bound(C, w, c, site, budget=7) >= p.objective - 1e-6
+
+
 def test_time_limited_plan_is_usable_and_never_below_greedy():
     # adversarial: uniform random coverage, far too short a limit to prove optimality
     rng = np.random.default_rng(5)
