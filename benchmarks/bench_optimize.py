@@ -10,14 +10,15 @@ Instances (seeded):
    front of its wall (20-200 users), a larger size covers a larger disc, but for 15 % of the sites it loses
    a few users the smaller size had (not a superset).  Budgets 2.5 % and 10 % of the spots (reported).
 2. dense geometric: 9,000 options, 20,000 users, median 54 options per user: gap <= 1 % within 5 min at a
-   budget where greedy is within ~3 % of the LP bound (default run: 60 s; --full: 300 s); at a 4x larger budget
-   the LP bound is the total weight and the gap is reported.
+   budget where greedy is within ~3 % of the LP bound (default run: 60 s; --full: 300 s); at a 4x larger
+   budget the gap is reported.
 3. adversarial: uniform random coverage of the size of (2): the plan is never worse than greedy + local
    search and the proven bound is reported.
 
 Ratios are against baselines measured in the same run.  On the pipeline instances (demo, real district,
 synthetic cities) HiGHS runs the reduced and the raw model with the same --seeds seeds (default 3) and the
-ratio is taken between the medians: the seed alone moves these times by up to 2x.  Default run: a few minutes; --full: up to ~20 min.
+ratio is taken between the medians: the seed alone moves these times by up to 2x.
+Default run: about 30 minutes; --full: about 45 minutes.
 """
 
 from __future__ import annotations
@@ -197,8 +198,7 @@ def main():
     if a.only_pipeline:
         return
 
-    # 1. geometric, realistic density (reported; the issue's targets are on the pipeline instances).  At the
-    # larger budget the panels can cover every user fractionally, so the LP bound is the total weight.
+    # 1. geometric, realistic density (reported; the issue's targets are on the pipeline instances).
     C, w, cost, site = geometric(int(3000 * sc), int(20000 * sc))
     for factor in (0.25, 1.0):
         budget = factor * 0.1 * (C.shape[0] // 3) * 10.0
@@ -220,10 +220,8 @@ def main():
             hit = " (raw hit the CBC time limit: ratio is a lower bound)" if cw.status != "optimal" else ""
             print(f"  ratio CBC raw / HiGHS reduced time: {t_cw / t_red:.1f}x{hit}")
 
-    # 2. dense geometric, at two budgets.  How tight the LP bound is depends on the budget: at 750 greedy comes
-    # within ~3 % of it (the regime of the dense instance the issue describes: greedy within 2 % of the bound);
-    # at 3000 the budget buys enough panels to cover every user fractionally, the LP bound is the total weight
-    # and no open MIP solver closes that gap (reported, not a target).
+    # 2. dense geometric, at two budgets: at 750 greedy comes within ~3 % of the LP bound (the regime of the
+    # dense instance the issue describes: greedy within 2 % of the bound); 3000 is reported.
     Cd, wd, costd, sited = geometric(int(3000 * sc), int(20000 * sc), r_lo=70.0, r_hi=120.0, seed=3)
     per_user = np.asarray(Cd.sum(axis=0)).ravel()
     for factor, target in ((0.25, True), (1.0, False)):
