@@ -340,18 +340,16 @@ def _dominated(C, c, site, cap, pinned):
     strict_cap = np.zeros(len(k), bool) if cap is None else cap[j] > cap[k]
     same_cost = c[j] == c[k]
     # strictly better in some respect, or a perfect tie broken by index: no cycles, so all can go at once
-    better = (c[j] < c[k]) | (same_cost & ~equal) | strict_cap | (same_cost & equal & ~strict_cap & (j < k))
+    better = (c[j] < c[k]) | (same_cost & ~equal) | strict_cap | (same_cost & equal & (j < k))
     dom = (c[j] <= c[k]) & ok_cap & better
     _, sidx = np.unique(site, return_inverse=True)
     same_site = sidx[j] == sidx[k]
     if cap is None:
-        # k's supersets per other site, against the number of options at that site
+        # how many options at j's site cover all of k's users, against how many options that site has
         n_site = int(sidx.max()) + 1
         key = k * n_site + sidx[j]
-        keys, counts = np.unique(key[~same_site], return_counts=True)
-        pos = np.searchsorted(keys, key).clip(0, max(len(keys) - 1, 0))
-        found = (keys[pos] == key) if len(keys) else np.zeros(len(key), bool)
-        every = found & (counts[pos] == np.bincount(sidx, minlength=n_site)[sidx[j]]) if len(keys) else found
+        keys, counts = np.unique(key, return_counts=True)
+        every = counts[np.searchsorted(keys, key)] == np.bincount(sidx, minlength=n_site)[sidx[j]]
         dom &= same_site | (every & ~pinned[j])
     else:
         dom &= same_site
