@@ -231,8 +231,10 @@ def main():
         gval_d, _ = greedy_run(Cd, wd, costd, sited, budget_d)
         pd_, t_d = run("HiGHS reduced (default)", lambda b=budget_d: opt.solve_coverage(
             Cd, wd, costd, sited, budget=b, time_limit_s=dense_limit, mip_rel_gap=0.01))
-        verdict = (f"(target <= 1 % in 5 min: {'met' if pd_.gap <= 0.01 and t_d <= 300 else 'MISSED'})" if target
-                   else "(reported, not a target)")
+        met = pd_.gap <= 0.01 and t_d <= 300
+        verdict = ("(reported, not a target)" if not target else "(target <= 1 % in 5 min: met)" if met else
+                   "(target <= 1 % in 5 min: MISSED)" if dense_limit >= 300 else
+                   "(not reached in this run's 60 s; --full runs the 5-minute target)")
         print(f"  gap {100 * pd_.gap:.3f} % after {t_d:.0f} s {verdict}; plan/greedy "
               f"{pd_.objective / max(gval_d, 1):.4f}; bound/total weight {pd_.bound / wd.sum():.3f}")
 
