@@ -57,7 +57,7 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
         probe = html_path.with_name(".browser-check-" + html_path.name)  # same folder: relative links still work
         probe.write_text(text, encoding="utf-8")
         try:
-            for budget_ms in (5000, 30000):  # a busy machine may need more virtual time before the dump
+            for budget_ms in (5000, 30000, 30000):  # a busy machine may need more virtual time; one fresh retry
                 cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
                        "--disable-background-networking", "--disable-component-update", "--disable-sync",
                        "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
