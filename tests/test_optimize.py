@@ -15,6 +15,7 @@ All random instances are seeded; hypothesis runs derandomized.
 
 from __future__ import annotations
 
+import functools
 import itertools
 
 import numpy as np
@@ -469,6 +470,33 @@ def test_large_models_solved_with_interior_point_lps_keep_the_optimum(monkeypatc
         p = opt.solve_coverage(C, w, c, site, budget=7)
         assert p.status == "optimal" and p.objective == pytest.approx(vals[ok].max())
         assert opt.lp_relaxation_bound(C, w, c, site, budget=7) >= p.objective - 1e-6
+
+
+@functools.cache
+def fixing_case(seed):
+    inst = make_instance(seed, n_sites=8, n_users=30)
+    val, cost, ok = brute_force(*inst, budget=9)
+    best = val[ok].max()
+    return inst, best, cost[ok & (val >= best - 1e-9)].min()
+
+
+@pytest.mark.parametrize("route", ["default", "no_first_pass", "first_pass_left_open"])
+def test_reduced_cost_fixing_and_both_passes_keep_the_optimum(monkeypatch, route):
+    # the default HiGHS path fixes options by LP reduced costs, then solves without root restarts for a few
+    # nodes and, if still open, again with HiGHS's defaults; each route gives the brute-force optimum, its
+    # cost tie-break and a closed bound, and the fixing does remove options on some of these instances
+    if route == "no_first_pass":
+        monkeypatch.setattr(opt, "_FIRST_PASS_MAX_FREE", -1)
+    if route == "first_pass_left_open":
+        monkeypatch.setattr(opt, "_FIRST_PASS_NODES", 0)
+    fixed = 0
+    for seed in range(12):
+        (C, w, c, site), best, best_cost = fixing_case(seed)
+        p = opt.solve_coverage(C, w, c, site, budget=9)
+        assert p.status == "optimal" and p.objective == pytest.approx(best) and p.bound == pytest.approx(best)
+        assert p.cost == pytest.approx(best_cost)
+        fixed += p.model_size["options_fixed_by_lp"]
+    assert fixed > 0
 
 
 def test_time_limited_plan_is_usable_and_never_below_greedy():
