@@ -58,6 +58,8 @@ Reductions (``reduce=True``; each keeps the optimum, see tests/test_optimize.py)
 4. merge users with identical covering sets into one class, summing weights.  With a load cap a merged
    user may not be split across surfaces, so only users of identical covering set *and* identical weight
    are merged and the class becomes an integer count ``m_i``.
+5. (HiGHS, when solving) fix to 0 every option that the LP relaxation leaves at 0 with a reduced cost
+   above the gap between the LP bound and the incumbent: no plan with it beats the incumbent.
 
 Independent components (connected components of the option-user graph, joined through sites and
 conflicts) are counted and reported in ``Plan.model_size``; with a global budget or count they are kept
@@ -69,7 +71,10 @@ Solving
 The default path builds the HiGHS model directly from the sparse arrays (``highspy``), warm-started by
 lazy greedy plus swap local search: the better of the cost-effectiveness greedy and the best single
 option, as in S. Khuller, A. Moss and J. Naor, "The budgeted maximum coverage problem", Information
-Processing Letters 70(1), 1999, DOI 10.1016/S0020-0190(99)00031-9.  ``solver="cbc"`` builds the same
+Processing Letters 70(1), 1999, DOI 10.1016/S0020-0190(99)00031-9.  With ``reduce=True`` it is staged
+(:func:`_highs_staged`): LP relaxation; the warm start improved by an exact solve over the options the LP
+uses; reduced-cost fixing against that incumbent (5. in the list above); then the integer program, first
+without root restarts for a few nodes, and only if still open with HiGHS's defaults.  ``solver="cbc"`` builds the same
 model through PuLP and runs the CBC binary bundled with PuLP under a hard wall-clock timer (CBC ignores
 its own limit during the root LP).  The status is read from the solver's solution status and its dual
 bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).
@@ -753,10 +758,11 @@ def _highs_run(h, start, time_limit_s) -> _Result:
 
 
 # The staged HiGHS path first runs without root restarts and stops after this many branch-and-bound nodes;
-# only a model still open then is solved again with HiGHS's defaults.  Measured (docs/MODELS.md): the real
-# district closes in 3 nodes without restarts (2-3 s) but spends 6-8 s in a cascade of a dozen root restarts
-# with them; the synthetic cities need 40-550 nodes without restarts and close at the root with them.
-_FIRST_PASS_NODES = 8
+# only a model still open then is solved again with HiGHS's defaults.  Measured (docs/MODELS.md): after the
+# fixing, the real district closes in 3 nodes without restarts (2-3 s) but spends 6-8 s in a cascade of a
+# dozen root restarts with them; the demo needs 13 nodes; the synthetic cities need 40-550 nodes without
+# restarts and close at the root with them.
+_FIRST_PASS_NODES = 16
 # ... and only when at most this many options are left free by reduced-cost fixing: on larger models a
 # repeated root (LP and cuts) costs more than the first pass can save.
 _FIRST_PASS_MAX_FREE = 2000
@@ -770,8 +776,9 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
        or the warm start chooses (small: a few dozen options on the pipeline instances).
     3. Reduced-cost fixing: an option at 0 in the LP with ``d_j > z_inc - z_lp`` cannot be part of any plan
        better than the incumbent (every such plan costs at least ``z_lp + d_j`` in the minimising form), so
-       its upper bound becomes 0.  G. L. Nemhauser and L. A. Wolsey, "Integer and Combinatorial
-       Optimization", Wiley, 1988, section II.4 (fixing variables by reduced costs; textbook method).
+       its upper bound becomes 0 (reduced-cost fixing: H. Crowder, E. L. Johnson and M. Padberg, "Solving
+       large-scale zero-one linear programming problems", Operations Research 31(5), 1983,
+       DOI 10.1287/opre.31.5.803; reference from memory, the method is textbook material).
     4. Solve the fixed model: first without root restarts for at most ``_FIRST_PASS_NODES`` nodes, and if
        it is still open, with HiGHS's defaults from the best plan so far.
 
@@ -1392,7 +1399,8 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
     solver : 'highs' (default, model passed to highspy as arrays) or 'cbc' (through PuLP, hard timer).
     time_limit_s : solver wall-clock limit [s].
     mip_rel_gap : relative gap at which the solver stops and reports optimal.
-    reduce : apply the optimum-preserving reductions of the module docstring.
+    reduce : apply the optimum-preserving reductions of the module docstring and, with HiGHS, the staged
+        solve (LP, incumbent, reduced-cost fixing); ``False`` passes the raw model to the solver as is.
     warm_start : start from greedy + swap local search.
     threads : solver threads (None: solver default).
     solver_seed : the solver's random seed; the same seed gives the same plan (solve times can differ a lot
