@@ -74,10 +74,10 @@ option, as in S. Khuller, A. Moss and J. Naor, "The budgeted maximum coverage pr
 Processing Letters 70(1), 1999, DOI 10.1016/S0020-0190(99)00031-9.  With ``reduce=True`` it is staged
 (:func:`_highs_staged`): LP relaxation; the warm start improved by an exact solve over the options the LP
 uses; reduced-cost fixing against that incumbent (5. in the list above); then the integer program, first
-without root restarts for a few nodes, and only if still open with HiGHS's defaults.  ``solver="cbc"`` builds the same
-model through PuLP and runs the CBC binary bundled with PuLP under a hard wall-clock timer (CBC ignores
-its own limit during the root LP).  The status is read from the solver's solution status and its dual
-bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).
+without root restarts for a few nodes, and only if still open with HiGHS's defaults.  ``solver="cbc"``
+builds the same model through PuLP and runs the CBC binary bundled with PuLP under a hard wall-clock timer
+(CBC ignores its own limit during the root LP).  The status is read from the solver's solution status and
+its dual bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).
 """
 
 from __future__ import annotations
@@ -833,7 +833,7 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
         if inc is None:
             return res
         vals = res.values
-        if vals is None or not _satisfies(milp, vals) or milp.obj @ vals > z_inc:
+        if vals is None or not _satisfies(milp, vals) or milp.obj @ vals > z_inc + 1e-9 * (1.0 + abs(z_inc)):
             # a warm start the solvers could not improve goes back as no solver plan ('greedy_only')
             vals = inc if from_solver else None
         dual = max(z_lp, min(res.dual, z_inc))
@@ -1211,7 +1211,7 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
                     float(greedy_obj), msg, size, t, m)
 
     n, m = red.C.shape
-    if mode == "min" and target <= 0:
+    if mode == "min" and target <= 1e-9 * total_w:  # zero within floating-point noise of the total weight
         return plan_from(empty, "optimal", 0.0, 0.0, solver, reason="the target weight is already met")
     if n == 0 or m == 0:
         if mode == "min":
@@ -1226,6 +1226,11 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     if mode == "max" and inst.budget is not None and red.c.min() > inst.budget:
         return plan_from(empty, "optimal", 0.0, 0.0, solver,
                          reason=f"the budget {inst.budget:g} is below the cheapest useful option ({red.c.min():g})")
+    if mode == "min":
+        # any plan that covers some weight covers at least the smallest positive user weight, so a smaller
+        # target is the same target; raising it keeps the target row far above the solvers' feasibility
+        # tolerances (a target of 1e-6 was met within tolerance by a point covering nobody)
+        model_target = max(target, float(inst.w[inst.w > 0].min()))
 
     # warm start
     t1 = time.perf_counter()
@@ -1235,18 +1240,19 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
         if mode == "max":
             greedy_red, g = _greedy_plan(red, inst.budget, inst.max_count, ls_time_s=max(1.0, 0.1 * time_limit_s))
         else:
-            greedy_red, g = _min_cost_greedy(red, target, inst.budget, inst.max_count)
+            greedy_red, g = _min_cost_greedy(red, model_target, inst.budget, inst.max_count)
         if len(greedy_red):
             if inst.load_cap is not None:
                 greedy_obj = float(inst.w[_capped_served(inst, red, greedy_red, None)].sum())
             else:
                 greedy_obj = float(inst.w[_covered_users(inst, red.opt[greedy_red])].sum())
-        if mode == "min" and greedy_obj < target * (1 - 1e-12):
+        if mode == "min" and greedy_obj < model_target * (1 - 1e-12):
             greedy_red = None  # greedy could not reach the target: no usable start
     t["greedy"] = time.perf_counter() - t1
 
     t2 = time.perf_counter()
-    milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min", target=target)
+    milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min",
+                  target=model_target if mode == "min" else None)
     t["build"] = time.perf_counter() - t2
     start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
     t3 = time.perf_counter()
@@ -1422,7 +1428,8 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=No
     """Cheapest set of options covering at least ``target_weight`` of user weight.
 
     Same arguments as :func:`solve_coverage`; ``Plan.mode == 'min_cost'`` and ``Plan.bound`` is a proven
-    lower bound on the cost.  Raises :class:`SolverError` when no plan can reach the target.
+    lower bound on the cost.  Raises :class:`SolverError` when no plan can reach the target.  A target at
+    or below 1e-9 of the total weight counts as met by the empty plan.
     """
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     if not np.isscalar(target_weight) or not np.isfinite(target_weight):

@@ -182,8 +182,9 @@ def test_min_cost_matches_brute_force(seed, share):
     val, cost, ok = brute_force(C, w, c, site)
     target = share * val[ok].max()
     p = opt.min_cost_cover(C, w, c, site, target)
-    assert p.objective >= target - 1e-9
-    assert p.cost == pytest.approx(cost[ok & (val >= target - 1e-9)].min())
+    tol = 1e-9 * w.sum()  # a target below this counts as met without surfaces (documented rule)
+    assert p.objective >= target - tol
+    assert p.cost == pytest.approx(cost[ok & (val >= target - tol)].min())
     assert p.mode == "min_cost" and p.bound <= p.cost + 1e-9
 
 
