@@ -1334,17 +1334,18 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
 
 def _prune(red: _Reduced, chosen_red):
     """Drop chosen options that add no covered weight (most expensive first): cost goes down, coverage stays."""
-    chosen = list(chosen_red)
+    chosen = np.asarray(chosen_red, np.int64)
     if len(chosen) < 2:
-        return np.asarray(chosen, np.int64)
-    Cf = red.C.astype(np.float64)
-    for j in sorted(chosen, key=lambda j: (-red.c[j], -j)):
-        rest = [k for k in chosen if k != j]
-        cnt = np.asarray(Cf[rest].sum(axis=0)).ravel() if rest else np.zeros(red.C.shape[1])
-        idx = red.C.indices[red.C.indptr[j]:red.C.indptr[j + 1]]
-        if np.all(cnt[idx] > 0) or red.w[idx].sum() == 0:
-            chosen = rest
-    return np.asarray(sorted(chosen), np.int64)
+        return chosen
+    C = red.C
+    cnt = np.bincount(C[chosen].indices, minlength=C.shape[1])  # chosen options covering each user class
+    keep = np.ones(len(chosen), bool)
+    for i in np.lexsort((-chosen, -red.c[chosen])):  # most expensive first
+        idx = C.indices[C.indptr[chosen[i]]:C.indptr[chosen[i] + 1]]
+        if np.all(cnt[idx] > 1) or red.w[idx].sum() == 0:
+            keep[i] = False
+            cnt[idx] -= 1
+    return np.sort(chosen[keep])
 
 
 def _min_cost_greedy(red: _Reduced, target, budget, max_count):
