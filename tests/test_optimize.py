@@ -188,6 +188,23 @@ def test_min_cost_matches_brute_force(seed, share):
     assert p.mode == "min_cost" and p.bound <= p.cost + 1e-9
 
 
+@pytest.mark.parametrize("share", [1e-7, 1e-8, 1e-12])
+def test_min_cost_tiny_target_is_met_by_a_real_plan(share):
+    # a target far below one user's weight was once "met" within the solver's feasibility tolerance by a point
+    # covering nobody (an empty plan reported optimal); brute force: the cheapest plan covering some weight.
+    # Below 1e-9 of the total weight the target counts as met by the empty plan (the documented rule).
+    C, w, c, site = make_instance(0, n_sites=5, max_sizes=2)
+    val, cost, ok = brute_force(C, w, c, site)
+    target = share * val[ok].max()
+    p = opt.min_cost_cover(C, w, c, site, target)
+    assert p.status == "optimal"
+    if target <= 1e-9 * w.sum():
+        assert len(p.chosen) == 0 and p.cost == 0
+    else:
+        assert p.objective >= target and p.objective > 0
+        assert p.cost == pytest.approx(cost[ok & (val > 0)].min())
+
+
 def test_min_cost_unreachable_target_raises():
     C, w, c, site = make_instance(3)
     with pytest.raises(SolverError, match="target"):
