@@ -293,7 +293,7 @@ class _Reduced:
     reduced: bool = True
 
 
-def _superset_pairs(C, rare=3, chunk_nnz=4_000_000):
+def _superset_pairs(C, rare=8, chunk_nnz=4_000_000):
     """All pairs ``(k, j)``, ``k != j``, where option j covers every user option k covers (rows of ``C``).
 
     A superset of row k covers in particular k's ``rare`` least-covered users, so candidates come from those
@@ -313,16 +313,18 @@ def _superset_pairs(C, rare=3, chunk_nnz=4_000_000):
     need = np.minimum(nnz, rare)
     keep = (hits.data == need[hits.row]) & (hits.row != hits.col)
     k, j = hits.row[keep].astype(np.int64), hits.col[keep].astype(np.int64)
-    if len(k) == 0:
-        return k, j
-    # exact check on the whole row: |cov(k) & cov(j)| == |cov(k)|, in chunks of bounded size
+    # rows of at most ``rare`` users were compared whole; the others get an exact check on the whole row:
+    # |cov(k) & cov(j)| == |cov(k)|, in chunks of bounded size
+    ok = nnz[k] <= rare
+    todo = np.flatnonzero(~ok)
+    if len(todo) == 0:
+        return k[ok], j[ok]
     Cf = sp.csr_array(C, dtype=np.float64)
-    ok = np.zeros(len(k), bool)
-    cum = np.cumsum(nnz[k])
-    edges = np.unique(np.r_[0, np.searchsorted(cum, np.arange(chunk_nnz, cum[-1], chunk_nnz)), len(k)])
+    cum = np.cumsum(nnz[k[todo]])
+    edges = np.unique(np.r_[0, np.searchsorted(cum, np.arange(chunk_nnz, cum[-1], chunk_nnz)), len(todo)])
     for lo, hi in zip(edges[:-1], edges[1:]):
-        inter = np.asarray(Cf[k[lo:hi]].multiply(Cf[j[lo:hi]]).sum(axis=1)).ravel()
-        ok[lo:hi] = inter == nnz[k[lo:hi]]
+        kk, jj = k[todo[lo:hi]], j[todo[lo:hi]]
+        ok[todo[lo:hi]] = np.asarray(Cf[kk].multiply(Cf[jj]).sum(axis=1)).ravel() == nnz[kk]
     return k[ok], j[ok]
 
 
