@@ -1228,6 +1228,7 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     if mode == "max" and inst.budget is not None and red.c.min() > inst.budget:
         return plan_from(empty, "optimal", 0.0, 0.0, solver,
                          reason=f"the budget {inst.budget:g} is below the cheapest useful option ({red.c.min():g})")
+    model_target = target
     if mode == "min":
         # any plan that covers some weight covers at least the smallest positive user weight, so a smaller
         # target is the same target; raising it keeps the target row far above the solvers' feasibility
@@ -1253,8 +1254,7 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     t["greedy"] = time.perf_counter() - t1
 
     t2 = time.perf_counter()
-    milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min",
-                  target=model_target if mode == "min" else None)
+    milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min", target=model_target)
     t["build"] = time.perf_counter() - t2
     start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
     t3 = time.perf_counter()
@@ -1491,13 +1491,11 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
             milp.row_hi[milp.budget_row] = float(b[k])
             start = _start_vector(red, milp, st) if len(st) else None
             res = _highs_run(h, start, time_limit_s)
-            base_t = {}
 
             def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, _i=inst_k):
                 return _sweep_plan(_i, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z, mip_rel_gap)
 
             p = _plan_from_result(res, red, milp, g_red, max(gval, 0.0), plan_from, "max", None, "highs", time_limit_s)
-            del base_t
             prev = np.searchsorted(red.opt, p.chosen) if len(p.chosen) else prev
             rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
     return pd.DataFrame(rows, columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
