@@ -293,23 +293,30 @@ class _Reduced:
     reduced: bool = True
 
 
-def _superset_pairs(C, rare=8, chunk_nnz=4_000_000):
+def _superset_pairs(C, rare=8, chunk_nnz=4_000_000, full_max=4_000_000):
     """All pairs ``(k, j)``, ``k != j``, where option j covers every user option k covers (rows of ``C``).
 
-    A superset of row k covers in particular k's ``rare`` least-covered users, so candidates come from those
-    few columns (cheap even on dense relations); each candidate is then checked on the whole row.
+    When the product ``C C^T`` has at most ``full_max`` terms (the sum of squared user degrees), it counts
+    every pair's common users at once.  Otherwise candidates come from k's ``rare`` least-covered users (a
+    superset of row k covers them too; cheap even on dense relations), and each candidate is then checked
+    on the whole row, in chunks of ``chunk_nnz`` entries.
     """
     n, m = C.shape
     nnz = np.diff(C.indptr)
     if n == 0 or C.nnz == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
     deg = np.bincount(C.indices, minlength=m)
+    Cf = sp.csr_array(C, dtype=np.float64)
+    if float(deg.astype(np.float64) @ deg) <= full_max:  # |cov(k) & cov(j)| == |cov(k)| for every pair
+        hits = sp.coo_array(Cf @ Cf.T)
+        keep = (hits.data == nnz[hits.row]) & (hits.row != hits.col)
+        return hits.row[keep].astype(np.int64), hits.col[keep].astype(np.int64)
     rowid = np.repeat(np.arange(n), nnz)
     order = np.lexsort((C.indices, deg[C.indices], rowid))  # grouped by row, rarest user first
     rank = np.arange(C.nnz) - np.repeat(C.indptr[:-1], nnz)
     sel = order[rank < rare]
     R = sp.csr_array((np.ones(len(sel)), (rowid[sel], C.indices[sel])), shape=(n, m))
-    hits = sp.coo_array(R @ sp.csr_array(C.T.astype(np.float64)))
+    hits = sp.coo_array(R @ Cf.T)
     need = np.minimum(nnz, rare)
     keep = (hits.data == need[hits.row]) & (hits.row != hits.col)
     k, j = hits.row[keep].astype(np.int64), hits.col[keep].astype(np.int64)
@@ -319,7 +326,6 @@ def _superset_pairs(C, rare=8, chunk_nnz=4_000_000):
     todo = np.flatnonzero(~ok)
     if len(todo) == 0:
         return k[ok], j[ok]
-    Cf = sp.csr_array(C, dtype=np.float64)
     cum = np.cumsum(nnz[k[todo]])
     edges = np.unique(np.r_[0, np.searchsorted(cum, np.arange(chunk_nnz, cum[-1], chunk_nnz)), len(todo)])
     for lo, hi in zip(edges[:-1], edges[1:]):
@@ -328,20 +334,20 @@ def _superset_pairs(C, rare=8, chunk_nnz=4_000_000):
     return k[ok], j[ok]
 
 
-def _dominated(C, c, site, cap, pinned):
+def _dominated(k, j, nnz, c, site, cap, pinned, alive):
     """Bool per option: it can be dropped without changing the optimum (one round; see reduction 3).
 
-    Option k is dominated by option j when j covers every user k covers at no greater cost (no smaller load
-    cap), j comes first in the order (cost, larger coverage, larger cap, index), and either j sits at the
-    same site as k, or - without a load cap - j's site takes part in no spacing conflict (``pinned``) and
-    every option at j's site covers all of k's users.
+    ``(k, j)`` are the superset pairs of the relation (``_superset_pairs``); only pairs of options still
+    ``alive`` count.  Option k is dominated by option j when j covers every user k covers at no greater cost
+    (no smaller load cap), j comes first in the order (cost, larger coverage, larger cap, index), and either
+    j sits at the same site as k, or - without a load cap - j's site takes part in no spacing conflict
+    (``pinned``) and every live option at j's site covers all of k's users.
     """
-    n = C.shape[0]
-    k, j = _superset_pairs(C)
-    out = np.zeros(n, bool)
+    out = np.zeros(len(alive), bool)
+    live = alive[k] & alive[j]
+    k, j = k[live], j[live]
     if len(k) == 0:
         return out
-    nnz = np.diff(C.indptr)
     equal = nnz[j] == nnz[k]
     ok_cap = np.ones(len(k), bool) if cap is None else cap[j] >= cap[k]
     strict_cap = np.zeros(len(k), bool) if cap is None else cap[j] > cap[k]
@@ -352,11 +358,11 @@ def _dominated(C, c, site, cap, pinned):
     _, sidx = np.unique(site, return_inverse=True)
     same_site = sidx[j] == sidx[k]
     if cap is None:
-        # how many options at j's site cover all of k's users, against how many options that site has
+        # how many live options at j's site cover all of k's users, against how many live options it has
         n_site = int(sidx.max()) + 1
         key = k * n_site + sidx[j]
         keys, counts = np.unique(key, return_counts=True)
-        every = counts[np.searchsorted(keys, key)] == np.bincount(sidx, minlength=n_site)[sidx[j]]
+        every = counts[np.searchsorted(keys, key)] == np.bincount(sidx[alive], minlength=n_site)[sidx[j]]
         dom &= same_site | (every & ~pinned[j])
     else:
         dom &= same_site
@@ -380,16 +386,20 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     stats["options_empty_dropped"] = int(n_opt - len(opts))
     cap = None if inst.load_cap is None else inst.load_cap[opts]
     pinned_sites = np.unique(inst.conflicts) if len(inst.conflicts) else np.zeros(0, inst.site.dtype)
-    n_dom = 0
+    # the superset relation between two options does not depend on the others: find the pairs once
+    pk, pj = _superset_pairs(Cu)
+    nnz = np.diff(Cu.indptr)
+    pinned = np.isin(inst.site[opts], pinned_sites)
+    alive = np.ones(len(opts), bool)
     for _ in range(20):  # dropping options can make more dominated (fewer options left at a site)
-        pinned = np.isin(inst.site[opts], pinned_sites)
-        dom = _dominated(Cu, inst.c[opts], inst.site[opts], cap, pinned) if len(opts) else np.zeros(0, bool)
+        dom = _dominated(pk, pj, nnz, inst.c[opts], inst.site[opts], cap, pinned, alive)
         if not dom.any():
             break
-        n_dom += int(dom.sum())
-        opts = opts[~dom]
-        Cu = sp.csr_array(Cu[np.flatnonzero(~dom)])
-        cap = None if cap is None else cap[~dom]
+        alive &= ~dom
+    n_dom = int(len(opts) - alive.sum())
+    opts = opts[alive]
+    Cu = sp.csr_array(Cu[np.flatnonzero(alive)])
+    cap = None if cap is None else cap[alive]
     stats["options_dominated_dropped"] = n_dom
     # merge users with identical covering sets: two independent 64-bit random hashes per column
     Cc = sp.csc_array(Cu)

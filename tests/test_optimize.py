@@ -245,16 +245,18 @@ def test_dominance_is_checked_not_assumed():
     assert opt.solve_coverage(C, w, c, site, budget=1).objective == val[ok].max() == 4.0
 
 
-@pytest.mark.parametrize("rare, chunk_nnz", [(1, 4_000_000), (8, 4_000_000), (3, 50)])
-def test_superset_pairs_match_dense_reference(rare, chunk_nnz):
-    # reference: every ordered pair checked on dense rows (brute force); rows of at most `rare` users skip the
-    # whole-row check, the others take it (in chunks of `chunk_nnz`)
+@pytest.mark.parametrize("rare, chunk_nnz, full_max", [(1, 4_000_000, 0), (8, 4_000_000, 0), (3, 50, 0),
+                                                        (8, 4_000_000, 4_000_000)])
+def test_superset_pairs_match_dense_reference(rare, chunk_nnz, full_max):
+    # reference: every ordered pair checked on dense rows (brute force).  full_max=0 takes the candidate route:
+    # rows of at most `rare` users skip the whole-row check, the others take it (in chunks of `chunk_nnz`);
+    # the last case counts all pairs in one product
     rng = np.random.default_rng(3)
     base = rng.random((40, 30)) < 0.25
     sub = base[rng.integers(0, 40, 40)] & (rng.random((40, 30)) < 0.7)  # rows that are subsets of others
     D = np.vstack([base, sub, base[:5]])  # and a few identical rows
     D = D[D.any(axis=1)]
-    k, j = opt._superset_pairs(sp.csr_array(D), rare=rare, chunk_nnz=chunk_nnz)
+    k, j = opt._superset_pairs(sp.csr_array(D), rare=rare, chunk_nnz=chunk_nnz, full_max=full_max)
     got = set(zip(k.tolist(), j.tolist()))
     inter = D.astype(int) @ D.T.astype(int)
     want = {(a, b) for a in range(len(D)) for b in range(len(D)) if a != b and inter[a, b] == D[a].sum()}
