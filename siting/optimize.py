@@ -775,8 +775,10 @@ def _highs_run(h, start, time_limit_s) -> _Result:
 # dozen root restarts with them; the demo needs 13 nodes; the synthetic cities need 40-550 nodes without
 # restarts and close at the root with them.
 _FIRST_PASS_NODES = 16
-# ... and only when at most this many options are left free by reduced-cost fixing: on larger models a
-# repeated root (LP and cuts) costs more than the first pass can save.
+# ... and only when the number of options left free by reduced-cost fixing lies between these: on larger
+# models a repeated root (LP and cuts) costs more than the first pass can save; on tiny ones root restarts are
+# cheap and close the model sooner (the demo, 69 free options: 25 ms with restarts, 38 ms without).
+_FIRST_PASS_MIN_FREE = 100
 _FIRST_PASS_MAX_FREE = 2000
 
 
@@ -852,7 +854,7 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
         return _Result(vals, _INF if vals is None else float(milp.obj @ vals), dual, res.status, res.detail,
                        int(drop.sum()))
 
-    if np.count_nonzero(fixed.col_hi[:n] > 0) <= _FIRST_PASS_MAX_FREE:
+    if _FIRST_PASS_MIN_FREE <= np.count_nonzero(fixed.col_hi[:n] > 0) <= _FIRST_PASS_MAX_FREE:
         h = new(fixed)
         h.setOptionValue("mip_allow_restart", False)
         h.setOptionValue("mip_max_nodes", _FIRST_PASS_NODES)

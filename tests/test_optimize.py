@@ -502,13 +502,16 @@ def fixing_case(seed):
     return inst, best, cost[ok & (val >= best - 1e-9)].min()
 
 
-@pytest.mark.parametrize("route", ["default", "no_first_pass", "first_pass_left_open"])
+@pytest.mark.parametrize("route", ["default", "no_first_pass", "first_pass", "first_pass_left_open"])
 def test_reduced_cost_fixing_and_both_passes_keep_the_optimum(monkeypatch, route):
-    # the default HiGHS path fixes options by LP reduced costs, then solves without root restarts for a few
-    # nodes and, if still open, again with HiGHS's defaults; each route gives the brute-force optimum, its
-    # cost tie-break and a closed bound, and the fixing does remove options on some of these instances
+    # the default HiGHS path fixes options by LP reduced costs, then (on models of middle size) solves without
+    # root restarts for a few nodes and, if still open, again with HiGHS's defaults; each route gives the
+    # brute-force optimum, its cost tie-break and a closed bound, and the fixing does remove options on some
+    # of these instances.  These models are tiny, so the first pass is forced on where the route asks for it.
     if route == "no_first_pass":
         monkeypatch.setattr(opt, "_FIRST_PASS_MAX_FREE", -1)
+    if route.startswith("first_pass"):
+        monkeypatch.setattr(opt, "_FIRST_PASS_MIN_FREE", 0)
     if route == "first_pass_left_open":
         monkeypatch.setattr(opt, "_FIRST_PASS_NODES", 0)
     fixed = 0
