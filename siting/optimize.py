@@ -412,18 +412,19 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     with np.errstate(over="ignore"):
         np.add.at(h1, colid, r1[Cc.indices])
         np.add.at(h2, colid, r2[Cc.indices] * r1[Cc.indices])
-    keys = [h1, h2, np.diff(Cc.indptr).astype(np.uint64)]
+    col_n = np.diff(Cc.indptr)
+    keys = [h1, h2, col_n.astype(np.uint64)]
     wu = w[users]
     if inst.load_cap is not None:
         keys.append(wu.view(np.uint64))
     key = np.stack(keys, axis=1)
     _, first, cls = np.unique(key, axis=0, return_index=True, return_inverse=True)
     cls = cls.ravel()
-    # verify the hash grouping exactly: every column equals its class representative's column
+    # verify the hash grouping exactly: members of a class have equally many options (part of the key), so
+    # they are all equal exactly when the union of their columns is no larger than one of them
     R = sp.csr_array((np.ones(len(cls)), (np.arange(len(cls)), cls)), shape=(len(cls), len(first)))
     Cm = sp.csr_array((Cu.astype(np.float64) @ R) > 0)
-    back = Cm.astype(np.float64) @ R.T
-    if (abs(back - Cu.astype(np.float64)) > 0).nnz != 0:  # pragma: no cover - 128-bit hash collision
+    if not np.array_equal(np.bincount(Cm.indices, minlength=len(first)), col_n[first]):  # pragma: no cover
         cls = np.arange(len(users))
         Cm = Cu
         first = np.arange(len(users))
