@@ -775,12 +775,12 @@ def _highs_run(h, start, time_limit_s) -> _Result:
 # The staged HiGHS path first runs without root restarts and stops after this many branch-and-bound nodes;
 # only a model still open then is solved again with HiGHS's defaults.  Measured (docs/MODELS.md): after the
 # fixing, the real district closes in 3 nodes without restarts (2-3 s) but spends 6-8 s in a cascade of a
-# dozen root restarts with them; the demo needs 13 nodes; the synthetic cities need 40-550 nodes without
-# restarts and close at the root with them.
+# dozen root restarts with them; the synthetic cities need 40-550 nodes without restarts and close at the
+# root with them.
 _FIRST_PASS_NODES = 16
 # ... and only when the number of options left free by reduced-cost fixing lies between these: on larger
 # models a repeated root (LP and cuts) costs more than the first pass can save; on tiny ones root restarts are
-# cheap and close the model sooner (the demo, 69 free options: 25 ms with restarts, 38 ms without).
+# cheap and close the model sooner (the demo, 69 free options: 19-25 ms with restarts, 28-38 ms without).
 _FIRST_PASS_MIN_FREE = 100
 _FIRST_PASS_MAX_FREE = 2000
 
@@ -796,8 +796,10 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
        its upper bound becomes 0 (reduced-cost fixing: H. Crowder, E. L. Johnson and M. Padberg, "Solving
        large-scale zero-one linear programming problems", Operations Research 31(5), 1983,
        DOI 10.1287/opre.31.5.803; reference from memory, the method is textbook material).
-    4. Solve the fixed model: first without root restarts for at most ``_FIRST_PASS_NODES`` nodes, and if
-       it is still open, with HiGHS's defaults from the best plan so far.
+    4. Solve the fixed model: when ``_FIRST_PASS_MIN_FREE`` to ``_FIRST_PASS_MAX_FREE`` options are left
+       free, first without root restarts for at most ``_FIRST_PASS_NODES`` nodes; if it is still open (or
+       the pass was skipped), with HiGHS's defaults from the best plan so far.  Steps 2 and 4 switch
+       HiGHS's feasibility jump heuristic off whenever they pass in a feasible plan.
 
     Every plan the fixing removes is worse than the incumbent, so ``min(bound of the fixed model, z_inc)``
     and ``z_lp`` are lower bounds of the full model; the larger is reported.  All steps are deterministic
