@@ -456,7 +456,7 @@ def test_a_failed_solver_run_is_an_error_not_a_certificate(monkeypatch):
     # of 0 in its info; that must never turn into a "proven" plan
     C, w, c, site = make_instance(4, n_sites=6, n_users=14)
     opt.solve_coverage(C, w, c, site, budget=8, threads=1)
-    monkeypatch.setattr(opt, "_use_highs_threads", lambda threads: None)
+    monkeypatch.setattr(opt.backends, "_use_highs_threads", lambda threads: None)
     with pytest.raises(SolverError, match="without a plan or a bound"):
         opt.solve_coverage(C, w, c, site, budget=8, threads=2)
 
@@ -468,14 +468,14 @@ def test_a_solver_point_that_breaks_the_model_is_never_a_plan(monkeypatch, back_
     # must not become a plan: the greedy plan is returned, within budget.
     C, w, c, site = make_instance(6, n_sites=8, n_users=30)
     budget = 6.0
-    real = getattr(opt, back_end)
+    real = getattr(opt.backends, back_end)
 
     def stopped_in_root_lp(*args, **kwargs):
         res = real(*args, **kwargs)
         bad = np.full(len(res.values), 0.6)  # fractional, and over budget
         return opt._Result(bad, -1e9, -np.inf, "time_limit", "Stopped on iterations")
 
-    monkeypatch.setattr(opt, back_end, stopped_in_root_lp)
+    monkeypatch.setattr(opt.backends, back_end, stopped_in_root_lp)
     p = opt.solve_coverage(C, w, c, site, budget=budget, solver="highs" if back_end == "_highs_run" else "cbc")
     assert p.status == "greedy_only" and p.cost <= budget + 1e-9
     assert len(np.unique(site[p.chosen])) == len(p.chosen)
@@ -485,7 +485,7 @@ def test_a_solver_point_that_breaks_the_model_is_never_a_plan(monkeypatch, back_
 def test_large_models_solved_with_interior_point_lps_keep_the_optimum(monkeypatch):
     # large models switch HiGHS's LP solver to its interior point method; force it on small instances and
     # compare with brute force
-    monkeypatch.setattr(opt, "_IPM_NONZEROS", 0)
+    monkeypatch.setattr(opt.backends, "_IPM_NONZEROS", 0)
     for seed in range(4):
         C, w, c, site = make_instance(seed, n_sites=6, n_users=14)
         vals, _, ok = brute_force(C, w, c, site, budget=7)
@@ -509,11 +509,11 @@ def test_reduced_cost_fixing_and_both_passes_keep_the_optimum(monkeypatch, route
     # brute-force optimum, its cost tie-break and a closed bound, and the fixing does remove options on some
     # of these instances.  These models are tiny, so the first pass is forced on where the route asks for it.
     if route == "no_first_pass":
-        monkeypatch.setattr(opt, "_FIRST_PASS_MAX_FREE", -1)
+        monkeypatch.setattr(opt.backends, "_FIRST_PASS_MAX_FREE", -1)
     if route.startswith("first_pass"):
-        monkeypatch.setattr(opt, "_FIRST_PASS_MIN_FREE", 0)
+        monkeypatch.setattr(opt.backends, "_FIRST_PASS_MIN_FREE", 0)
     if route == "first_pass_left_open":
-        monkeypatch.setattr(opt, "_FIRST_PASS_NODES", 0)
+        monkeypatch.setattr(opt.backends, "_FIRST_PASS_NODES", 0)
     fixed = 0
     for seed in range(12):
         (C, w, c, site), best, best_cost = fixing_case(seed)

@@ -1,0 +1,239 @@
+"""Public entry points: maximum coverage, minimum cost, budget sweep, greedy, LP bound, LP file, tables."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from ..errors import SitingError
+from .assemble import _plan_from_result, _sweep_plan, _value_red
+from .backends import _highs_new, _highs_run
+from .heuristics import _greedy_plan
+from .model import _build, _pulp_problem, _start_vector
+from .problem import Plan, _Instance, _validate
+from .reductions import _reduce
+from .solve import _solve
+
+
+def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
+                   option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
+                   warm_start=True, threads=None, solver_seed=0) -> Plan:
+    """Choose options to maximise the covered user weight within a budget and/or a panel count.
+
+    Parameters
+    ----------
+    cover : scipy.sparse matrix, bool, shape (n_options, n_users)
+        ``cover[j, i]``: option j brings user i to the SNR target.
+    weight : (n_users,) demand weight of each user, >= 0.
+    cost : (n_options,) option cost [currency units], >= 0.
+    option_site : (n_options,) site index of each option; at most one option per site is chosen.
+    budget : total cost limit [currency units], or None.
+    max_count : limit on the number of panels, or None.
+    conflicts : (k, 2) int array of SITE pairs that may not both be chosen (spacing on a wall).
+    load_cap : weight one surface may carry (scalar, or one value per option); builds assignment variables.
+    option_wall : (n_options,) wall id; when given, conflicts are checked to join spots on one wall.
+    solver : 'highs' (default, model passed to highspy as arrays) or 'cbc' (through PuLP, hard timer).
+    time_limit_s : solver wall-clock limit [s].
+    mip_rel_gap : relative gap at which the solver stops and reports optimal.
+    reduce : apply the optimum-preserving reductions of the module docstring and, with HiGHS, the staged
+        solve (LP, incumbent, reduced-cost fixing); ``False`` passes the raw model to the solver as is.
+    warm_start : start from greedy + swap local search.
+    threads : solver threads (None: solver default).
+    solver_seed : the solver's random seed; the same seed gives the same plan (solve times can differ a lot
+        between seeds, see docs/MODELS.md).
+
+    Returns
+    -------
+    Plan
+        See :class:`Plan`; ``chosen`` in rank order.  Without budget and count every useful option may
+        be chosen (one per site).
+    """
+    inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
+    return _solve(inst, "max", None, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads, solver_seed)
+
+
+def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=None, max_count=None, conflicts=None,
+                   load_cap=None, option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
+                   warm_start=True, threads=None, solver_seed=0) -> Plan:
+    """Cheapest set of options covering at least ``target_weight`` of user weight.
+
+    Same arguments as :func:`solve_coverage`; ``Plan.mode == 'min_cost'`` and ``Plan.bound`` is a proven
+    lower bound on the cost.  Raises :class:`SolverError` when no plan can reach the target.  A target at
+    or below 1e-9 of the total weight counts as met by the empty plan.
+    """
+    inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
+    if not np.isscalar(target_weight) or not np.isfinite(target_weight):
+        raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
+    return _solve(inst, "min", float(target_weight), solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads,
+                  solver_seed)
+
+
+def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, conflicts=None, load_cap=None,
+                 option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
+                 warm_start=True, threads=None, solver_seed=0) -> pd.DataFrame:
+    """Covered weight against budget, for the report's curve.
+
+    Budgets are solved in increasing order on one HiGHS model (only the budget row changes), each
+    warm-started from the better of the previous plan (still feasible under a larger budget) and greedy.
+    ``time_limit_s`` applies to each budget.
+
+    Returns
+    -------
+    DataFrame with columns budget, covered_weight, bound, gap, cost, n_sites, status (in the caller's
+    budget order).
+    """
+    b = np.asarray(budgets, float).ravel()
+    if b.size == 0:
+        return pd.DataFrame(columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
+    if not np.all(np.isfinite(b)) or b.min() < 0:
+        raise SitingError(f"optimiser argument 'budgets': expected finite numbers >= 0, got {b.tolist()}")
+    order = np.argsort(b, kind="stable")
+    rows = [None] * len(b)
+    same = dict(max_count=max_count, conflicts=conflicts, load_cap=load_cap, option_wall=option_wall)
+    if solver != "highs" or b[order[-1]] == 0:
+        for k in order:
+            p = solve_coverage(cover, weight, cost, option_site, budget=float(b[k]), solver=solver,
+                               time_limit_s=time_limit_s, mip_rel_gap=mip_rel_gap, reduce=reduce,
+                               warm_start=warm_start, threads=threads, solver_seed=solver_seed, **same)
+            rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
+    else:
+        # build once with the largest budget, then lower the row bound per budget
+        inst = _validate(cover, weight, cost, option_site, float(b[order[-1]]), max_count, conflicts, load_cap,
+                         option_wall)
+        red = _reduce(inst, reduce)
+        milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
+        h = _highs_new(milp, mip_rel_gap, threads, seed=solver_seed) if milp is not None else None
+        prev = np.zeros(0, np.int64)
+        for k in order:
+            inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(b[k]), inst.max_count, inst.conflicts,
+                               inst.load_cap)
+            if h is None or red.c.min() > b[k] or inst.max_count == 0:
+                rows[k] = (b[k], 0.0, 0.0, 0.0, 0.0, 0, "empty")
+                continue
+            g_red, _ = _greedy_plan(red, float(b[k]), inst.max_count) if warm_start else (np.zeros(0, np.int64), None)
+            gval = _value_red(red, inst_k, g_red)
+            pval = _value_red(red, inst_k, prev)
+            st = prev if pval >= gval and len(prev) else g_red
+            h.changeRowBounds(milp.budget_row, -_highs_inf(), float(b[k]))
+            milp.row_hi[milp.budget_row] = float(b[k])
+            start = _start_vector(red, milp, st) if len(st) else None
+            res = _highs_run(h, start, time_limit_s)
+
+            def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, _i=inst_k):
+                return _sweep_plan(_i, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z, mip_rel_gap)
+
+            p = _plan_from_result(res, red, milp, g_red, max(gval, 0.0), plan_from, "max", None, "highs", time_limit_s)
+            prev = np.searchsorted(red.opt, p.chosen) if len(p.chosen) else prev
+            rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
+    return pd.DataFrame(rows, columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
+
+
+def _highs_inf():
+    import highspy
+
+    return highspy.kHighsInf
+
+
+def greedy(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None,
+           local_search=True) -> np.ndarray:
+    """Greedy plan: the better of the cost-effectiveness greedy and the best single option, then swaps.
+
+    Khuller, Moss and Naor, "The budgeted maximum coverage problem", Information Processing Letters 70(1),
+    1999, DOI 10.1016/S0020-0190(99)00031-9: picking by marginal weight per cost (skipping options that no
+    longer fit) and returning the better of that and the best single option.  With ``local_search`` the
+    plan is then improved by best-improvement swaps (one chosen option out, one unchosen in) while the
+    covered weight grows.  Returns the chosen option indices, sorted.
+    """
+    inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts)
+    red = _reduce(inst, True)
+    if red.C.shape[0] == 0 or red.C.shape[1] == 0:
+        return np.zeros(0, np.int64)
+    ch, _ = _greedy_plan(red, inst.budget, inst.max_count, local=local_search)
+    return np.sort(red.opt[ch]).astype(np.int64)
+
+
+def lp_relaxation_bound(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None,
+                        load_cap=None, reduce=True) -> float:
+    """Optimum of the LP relaxation of the maximum-coverage model: an upper bound on any plan's covered weight."""
+    inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap)
+    red = _reduce(inst, reduce)
+    if red.C.shape[0] == 0 or red.C.shape[1] == 0:
+        return 0.0
+    milp = _build(red, inst.budget, inst.max_count)
+    milp.obj[: milp.n_x] -= milp.eps * red.c  # drop the tie-break term: pure covered weight
+    h = _highs_new(milp, 1e-9, None, relax=True)
+    h.run()
+    return float(-h.getInfo().objective_function_value)
+
+
+def write_lp(path, cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
+             target_weight=None, reduce=True) -> str:
+    """Write the (reduced) model as a CPLEX-LP file through PuLP, for inspection or another solver.
+
+    Variables ``x<j>`` are the kept options in reduced numbering.  Returns the path written.
+    """
+    inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap)
+    red = _reduce(inst, reduce)
+    mode = "max" if target_weight is None else "min"
+    milp = _build(red, inst.budget, inst.max_count, mode=mode, target=target_weight)
+    prob, _ = _pulp_problem(milp)
+    prob.writeLP(str(path))
+    return str(path)
+
+
+def solve_tables(options: pd.DataFrame, coverage: pd.DataFrame, users: pd.DataFrame, direct: pd.DataFrame, *,
+                 target_share=None, **kwargs) -> Plan:
+    """Adapter over the pipeline tables (:mod:`siting.tables`).
+
+    ``coverage`` rows are (option_id, user_id) pairs that meet the SNR target (the caller filters).  Users
+    with ``direct.covered`` are constants: left out of the model, ``Plan.covered`` is False for them and
+    ``Plan.objective`` counts surface-covered users only.  With ``target_share`` (0..1 of the total user
+    weight, direct coverage included) the minimum-cost plan reaching that share is returned instead.
+    Other keyword arguments go to :func:`solve_coverage` / :func:`min_cost_cover`; ``option_wall`` may be
+    given as a column name of ``options``.
+    """
+    from ..tables import check
+
+    check(options, "options", "optimiser input")
+    check(users, "users", "optimiser input")
+    for col in ("option_id", "user_id"):
+        if col not in coverage.columns:
+            raise SitingError(f"table 'coverage' from optimiser input breaks its contract: missing column '{col}'")
+    for col in ("user_id", "covered"):
+        if col not in direct.columns:
+            raise SitingError(f"table 'direct' from optimiser input breaks its contract: missing column '{col}'")
+    n_opt, n_user = len(options), len(users)
+    if not np.array_equal(options["option_id"].to_numpy(), np.arange(n_opt)):
+        raise SitingError("table 'options': expected option_id == row position 0..n-1; reset the ids before solving")
+    if not np.array_equal(users["user_id"].to_numpy(), np.arange(n_user)):
+        raise SitingError("table 'users': expected user_id == row position 0..n-1; reset the ids before solving")
+    oi = coverage["option_id"].to_numpy(np.int64)
+    ui = coverage["user_id"].to_numpy(np.int64)
+    if len(oi) and (oi.min() < 0 or oi.max() >= n_opt or ui.min() < 0 or ui.max() >= n_user):
+        raise SitingError(
+            f"table 'coverage': option_id/user_id out of range (options 0..{n_opt - 1}, users 0..{n_user - 1}); "
+            f"build coverage from the same options and users tables"
+        )
+    dcov = np.zeros(n_user, bool)
+    du = direct["user_id"].to_numpy(np.int64)
+    if len(du) and (du.min() < 0 or du.max() >= n_user):
+        raise SitingError(f"table 'direct': user_id out of range 0..{n_user - 1}")
+    dcov[du] = direct["covered"].to_numpy(bool)
+    keep = ~dcov[ui]
+    cover = sp.csr_array((np.ones(int(keep.sum()), bool), (oi[keep], ui[keep])), shape=(n_opt, n_user))
+    cover.sum_duplicates()
+    w = users["weight"].to_numpy(float)
+    wall = kwargs.pop("option_wall", None)
+    if isinstance(wall, str):
+        wall = options[wall].to_numpy()
+    args = (cover, w, options["cost"].to_numpy(float), options["site_id"].to_numpy(np.int64))
+    if target_share is not None:
+        if not (0 <= float(target_share) <= 1):
+            raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
+        need = float(target_share) * float(w.sum()) - float(w[dcov].sum())
+        plan = min_cost_cover(*args, max(need, 0.0), option_wall=wall, **kwargs)
+    else:
+        plan = solve_coverage(*args, option_wall=wall, **kwargs)
+    plan.model_size["direct_weight"] = float(w[dcov].sum())
+    return plan

@@ -1,0 +1,211 @@
+"""The integer program as sparse arrays: rows, bounds, start vectors, feasibility check, PuLP export."""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from .problem import _EPS_SHARE, _INF, _TINY
+from .reductions import _Reduced, _site_local
+
+
+@dataclass
+class _Milp:
+    """min obj.x  s.t. row_lo <= A x <= row_hi, col_lo <= x <= col_hi, x[integer] integral."""
+
+    obj: np.ndarray
+    A: sp.csr_array
+    row_lo: np.ndarray
+    row_hi: np.ndarray
+    col_lo: np.ndarray
+    col_hi: np.ndarray
+    integer: np.ndarray
+    n_x: int
+    budget_row: int = -1
+    target_row: int = -1
+    delta: float = 0.0  # max value of the tie-break term (added to the bound)
+    obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective (+ tie-break)
+    eps: float = 0.0  # tie-break weight per unit cost
+
+    @property
+    def size(self):
+        return {"rows": int(self.A.shape[0]), "cols": int(self.A.shape[1]), "nonzeros": int(self.A.nnz)}
+
+
+def _site_rows(site, conflicts):
+    """Rows 'at most one option per site' (sites with 2+ options) and per conflicting site pair."""
+    n = len(site)
+    if n == 0:
+        return sp.csr_array((0, 0))
+    lookup, sidx = np.unique(site, return_inverse=True)
+    S = sp.csr_array((np.ones(n), (sidx, np.arange(n))), shape=(len(lookup), n))
+    rows = [S[np.flatnonzero(np.diff(S.indptr) > 1)]]
+    if len(conflicts):
+        known = np.isin(conflicts, lookup).all(axis=1)
+        cf = conflicts[known]
+        if len(cf):
+            a = np.searchsorted(lookup, cf[:, 0])
+            b = np.searchsorted(lookup, cf[:, 1])
+            k = len(cf)
+            P = sp.csr_array((np.ones(2 * k), (np.r_[np.arange(k), np.arange(k)], np.r_[a, b])), shape=(k, len(lookup)))
+            rows.append(sp.csr_array(P @ S))
+    return sp.csr_array(sp.vstack(rows, format="csr"))
+
+
+def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
+    C, w, c = red.C, red.w, red.c
+    n, m = C.shape
+    capped = red.cap is not None
+    # tie-break weight: whole cost term below _EPS_SHARE of the smallest positive weight
+    pos = w[w > 0]
+    wmin = pos.min() if len(pos) else 1.0
+    if n:
+        per_site_max = pd.Series(c).groupby(red.site).max().to_numpy()
+        caps = [per_site_max.sum()]
+        if budget is not None:
+            caps.append(budget)
+        if max_count is not None:
+            caps.append(np.sort(per_site_max)[::-1][:max_count].sum())
+        cost_cap = max(min(caps), _TINY)
+    else:
+        cost_cap = 1.0
+    eps = _EPS_SHARE * wmin / cost_cap if mode == "max" else 0.0
+    blocks = []
+    lo, hi = [], []
+    if not capped:
+        # users whose covering options all sit at one site: y_i = sum_j x_j exactly (at most one option per
+        # site, and maximising pushes y_i up to it), so their weight moves onto the x_j and the cover row
+        # and y_i go away.  Same LP relaxation, fewer rows.
+        loc = _site_local(red) if red.reduced else np.zeros(m, bool)
+        keep = np.flatnonzero(~loc)
+        xw = C.astype(float) @ np.where(loc, w, 0.0)  # weight each option brings through local users
+        Ck = C[:, keep]
+        wk = w[keep]
+        mk = len(keep)
+        nv = n + mk
+        obj = np.r_[eps * c - xw, -wk] if mode == "max" else np.r_[c, np.zeros(mk)]
+        col_lo = np.zeros(nv)
+        col_hi = np.ones(nv)
+        integer = np.r_[np.ones(n, bool), np.zeros(mk, bool)]
+        cov = sp.hstack([-Ck.T.astype(float), sp.eye_array(mk, format="csr")], format="csr")
+        blocks.append(cov)
+        lo.append(np.full(mk, -_INF))
+        hi.append(np.zeros(mk))
+        val_row = np.r_[xw, wk]
+    else:
+        nnz = C.nnz
+        rowj = np.repeat(np.arange(n), np.diff(C.indptr))
+        coli = C.indices
+        nv = n + nnz
+        wz = w[coli]
+        obj = np.r_[eps * c, -wz] if mode == "max" else np.r_[c, np.zeros(nnz)]
+        col_lo = np.zeros(nv)
+        col_hi = np.r_[np.ones(n), red.mult[coli].astype(float)]
+        integer = np.ones(nv, bool)
+        zk = np.arange(nnz)
+        # class rows: sum_j z_ji <= m_i
+        blocks.append(sp.csr_array((np.ones(nnz), (coli, n + zk)), shape=(m, nv)))
+        lo.append(np.full(m, -_INF))
+        hi.append(red.mult.astype(float))
+        # z_ji - m_i x_j <= 0
+        blocks.append(sp.csr_array((np.r_[np.ones(nnz), -red.mult[coli].astype(float)],
+                                    (np.r_[zk, zk], np.r_[n + zk, rowj])), shape=(nnz, nv)))
+        lo.append(np.full(nnz, -_INF))
+        hi.append(np.zeros(nnz))
+        # sum_i w_i z_ji - L_j x_j <= 0
+        blocks.append(sp.csr_array((np.r_[wz, -red.cap], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
+                                   shape=(n, nv)))
+        lo.append(np.full(n, -_INF))
+        hi.append(np.zeros(n))
+        val_row = np.r_[np.zeros(n), wz]
+    SR = _site_rows(red.site, red.conflicts)
+    if SR.shape[0]:
+        blocks.append(sp.hstack([SR, sp.csr_array((SR.shape[0], nv - n))], format="csr"))
+        lo.append(np.full(SR.shape[0], -_INF))
+        hi.append(np.ones(SR.shape[0]))
+    nrow = sum(b.shape[0] for b in blocks)
+    budget_row = target_row = -1
+    if budget is not None:
+        blocks.append(sp.csr_array(np.r_[c, np.zeros(nv - n)][None, :]))
+        lo.append([-_INF])
+        hi.append([budget])
+        budget_row = nrow
+        nrow += 1
+    if max_count is not None:
+        blocks.append(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]))
+        lo.append([-_INF])
+        hi.append([float(max_count)])
+        nrow += 1
+    if mode == "min":
+        blocks.append(sp.csr_array(val_row[None, :]))
+        lo.append([target])
+        hi.append([_INF])
+        target_row = nrow
+        nrow += 1
+    A = sp.csr_array(sp.vstack(blocks, format="csr")) if blocks else sp.csr_array((0, nv))
+    A.sort_indices()
+    return _Milp(obj, A, np.concatenate([np.asarray(v, float) for v in lo]) if lo else np.zeros(0),
+                 np.concatenate([np.asarray(v, float) for v in hi]) if hi else np.zeros(0),
+                 col_lo, col_hi, integer, n, budget_row, target_row, eps * cost_cap,
+                 -1.0 if mode == "max" else 1.0, eps)
+
+
+def _start_vector(red: _Reduced, milp: _Milp, chosen_red: np.ndarray):
+    """Full start for the uncapped model (x and y), x only (sparse, HiGHS completes it) when capped."""
+    n = milp.n_x
+    x = np.zeros(n)
+    x[chosen_red] = 1.0
+    if red.cap is not None:
+        return np.arange(n), x
+    y = np.minimum(1.0, red.C.T.astype(float) @ x)
+    if red.reduced:
+        y = y[~_site_local(red)]
+    return np.arange(len(milp.obj)), np.r_[x, y]
+
+
+def _satisfies(milp: _Milp, x, tol=1e-6) -> bool:
+    """The point meets the model's bounds, rows and integrality (within solver tolerances)."""
+    x = np.asarray(x, float)
+    if x.shape != milp.obj.shape or not np.all(np.isfinite(x)):
+        return False
+    if np.any(x < milp.col_lo - tol) or np.any(x > milp.col_hi + tol):
+        return False
+    xi = x[milp.integer]
+    if np.any(np.abs(xi - np.round(xi)) > 1e-5):
+        return False
+    act = milp.A @ x
+    slack = tol * (1.0 + np.abs(act))
+    return bool(np.all(act >= milp.row_lo - slack) and np.all(act <= milp.row_hi + slack))
+
+
+def _pulp_problem(milp: _Milp, name="siting"):
+    import pulp
+
+    prob = pulp.LpProblem(name, pulp.LpMinimize)
+    nv = len(milp.obj)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)  # PuLP 3.3 announces a 4.0 variable API
+        vs = [
+            pulp.LpVariable(f"x{j}" if j < milp.n_x else f"v{j}", lowBound=milp.col_lo[j], upBound=milp.col_hi[j],
+                            cat=pulp.LpInteger if milp.integer[j] else pulp.LpContinuous)
+            for j in range(nv)
+        ]
+    nz = np.flatnonzero(milp.obj)
+    prob += pulp.LpAffineExpression([(vs[j], float(milp.obj[j])) for j in nz])
+    A = milp.A
+    for r in range(A.shape[0]):
+        sl = slice(A.indptr[r], A.indptr[r + 1])
+        expr = pulp.LpAffineExpression([(vs[j], float(v)) for j, v in zip(A.indices[sl], A.data[sl])])
+        lo, hi = milp.row_lo[r], milp.row_hi[r]
+        if np.isfinite(lo) and np.isfinite(hi) and lo == hi:
+            prob += pulp.LpConstraint(expr, pulp.LpConstraintEQ, f"r{r}", hi)
+            continue
+        if np.isfinite(hi):
+            prob += pulp.LpConstraint(expr, pulp.LpConstraintLE, f"r{r}", hi)
+        if np.isfinite(lo):
+            prob += pulp.LpConstraint(expr, pulp.LpConstraintGE, f"r{r}g", lo)
+    return prob, vs
