@@ -440,6 +440,21 @@ def test_deterministic():
     assert opt.greedy(C, w, c, site, budget=20).tolist() == opt.greedy(C, w, c, site, budget=20).tolist()
 
 
+def test_solver_settings_object_matches_the_keywords():
+    # SolverSettings carries the five solver keywords; the same values give the same plan either way (reference:
+    # brute force), and giving both forms at once is refused rather than one silently ignored
+    C, w, c, site = make_instance(4, n_sites=6, n_users=14)
+    vals, _, ok = brute_force(C, w, c, site, budget=8)
+    s = opt.SolverSettings(name="highs", time_limit_s=30.0, mip_gap=1e-6, threads=1, seed=7)
+    a = opt.solve_coverage(C, w, c, site, budget=8, settings=s)
+    b = opt.solve_coverage(C, w, c, site, budget=8, time_limit_s=30.0, mip_rel_gap=1e-6, threads=1, solver_seed=7)
+    assert a.objective == b.objective == pytest.approx(vals[ok].max()) and a.chosen.tolist() == b.chosen.tolist()
+    with pytest.raises(SitingError, match="not both"):
+        opt.solve_coverage(C, w, c, site, budget=8, settings=s, solver_seed=3)
+    with pytest.raises(SitingError, match="time_limit_s"):
+        opt.SolverSettings(time_limit_s=0)
+
+
 def test_solver_thread_count_may_change_between_solves():
     # HiGHS starts one thread scheduler per process; asking for another count later must still solve
     # (highspy 1.16 fails such a run unless the scheduler is restarted).  Reference: brute force.
@@ -451,47 +466,51 @@ def test_solver_thread_count_may_change_between_solves():
         assert p.status == "optimal" and p.objective == pytest.approx(best), threads
 
 
-def test_a_failed_solver_run_is_an_error_not_a_certificate(monkeypatch):
+def test_a_failed_solver_run_is_an_error_not_a_certificate():
     # a run that HiGHS refuses (here: a thread count the running scheduler cannot serve) reports a dual bound
     # of 0 in its info; that must never turn into a "proven" plan
     C, w, c, site = make_instance(4, n_sites=6, n_users=14)
     opt.solve_coverage(C, w, c, site, budget=8, threads=1)
-    monkeypatch.setattr(opt.backends, "_use_highs_threads", lambda threads: None)
+
+    class SchedulerNeverRestarted(opt.HighsBackend):
+        def use_threads(self, threads):
+            pass
+
     with pytest.raises(SolverError, match="without a plan or a bound"):
-        opt.solve_coverage(C, w, c, site, budget=8, threads=2)
+        opt.solve_coverage(C, w, c, site, budget=8, threads=2, backend=SchedulerNeverRestarted())
 
 
-@pytest.mark.parametrize("back_end", ["_highs_run", "_cbc_run"])
-def test_a_solver_point_that_breaks_the_model_is_never_a_plan(monkeypatch, back_end):
+@pytest.mark.parametrize("back_end, method", [(opt.HighsBackend, "run"), (opt.CbcBackend, "solve")])
+def test_a_solver_point_that_breaks_the_model_is_never_a_plan(back_end, method):
     # CBC stopped inside its root LP writes the LP's current point with the status line "Stopped on iterations -
     # objective value ..." (seen on a 9,000-option instance: cost 7,991 against a budget of 3,000).  Such a point
     # must not become a plan: the greedy plan is returned, within budget.
     C, w, c, site = make_instance(6, n_sites=8, n_users=30)
     budget = 6.0
-    real = getattr(opt.backends, back_end)
+    real = getattr(back_end, method)
 
-    def stopped_in_root_lp(*args, **kwargs):
-        res = real(*args, **kwargs)
+    def stopped_in_root_lp(self, *args, **kwargs):
+        res = real(self, *args, **kwargs)
         bad = np.full(len(res.values), 0.6)  # fractional, and over budget
-        return opt._Result(bad, -1e9, -np.inf, "time_limit", "Stopped on iterations")
+        return opt.SolveResult(bad, -1e9, -np.inf, "time_limit", "Stopped on iterations")
 
-    monkeypatch.setattr(opt.backends, back_end, stopped_in_root_lp)
-    p = opt.solve_coverage(C, w, c, site, budget=budget, solver="highs" if back_end == "_highs_run" else "cbc")
+    stopped = type("StoppedInRootLp", (back_end,), {method: stopped_in_root_lp})
+    p = opt.solve_coverage(C, w, c, site, budget=budget, backend=stopped())
     assert p.status == "greedy_only" and p.cost <= budget + 1e-9
     assert len(np.unique(site[p.chosen])) == len(p.chosen)
     assert p.objective == pytest.approx(p.greedy_objective)
 
 
-def test_large_models_solved_with_interior_point_lps_keep_the_optimum(monkeypatch):
+def test_large_models_solved_with_interior_point_lps_keep_the_optimum():
     # large models switch HiGHS's LP solver to its interior point method; force it on small instances and
     # compare with brute force
-    monkeypatch.setattr(opt.backends, "_IPM_NONZEROS", 0)
+    ipm = opt.HighsBackend(ipm_nonzeros=0)
     for seed in range(4):
         C, w, c, site = make_instance(seed, n_sites=6, n_users=14)
         vals, _, ok = brute_force(C, w, c, site, budget=7)
-        p = opt.solve_coverage(C, w, c, site, budget=7)
+        p = opt.solve_coverage(C, w, c, site, budget=7, backend=ipm)
         assert p.status == "optimal" and p.objective == pytest.approx(vals[ok].max())
-        assert opt.lp_relaxation_bound(C, w, c, site, budget=7) >= p.objective - 1e-6
+        assert opt.lp_relaxation_bound(C, w, c, site, budget=7, backend=ipm) >= p.objective - 1e-6
 
 
 @functools.cache
@@ -503,21 +522,23 @@ def fixing_case(seed):
 
 
 @pytest.mark.parametrize("route", ["default", "no_first_pass", "first_pass", "first_pass_left_open"])
-def test_reduced_cost_fixing_and_both_passes_keep_the_optimum(monkeypatch, route):
+def test_reduced_cost_fixing_and_both_passes_keep_the_optimum(route):
     # the default HiGHS path fixes options by LP reduced costs, then (on models of middle size) solves without
     # root restarts for a few nodes and, if still open, again with HiGHS's defaults; each route gives the
     # brute-force optimum, its cost tie-break and a closed bound, and the fixing does remove options on some
     # of these instances.  These models are tiny, so the first pass is forced on where the route asks for it.
+    tuning = {}
     if route == "no_first_pass":
-        monkeypatch.setattr(opt.backends, "_FIRST_PASS_MAX_FREE", -1)
+        tuning["first_pass_max_free"] = -1
     if route.startswith("first_pass"):
-        monkeypatch.setattr(opt.backends, "_FIRST_PASS_MIN_FREE", 0)
+        tuning["first_pass_min_free"] = 0
     if route == "first_pass_left_open":
-        monkeypatch.setattr(opt.backends, "_FIRST_PASS_NODES", 0)
+        tuning["first_pass_nodes"] = 0
+    backend = opt.HighsBackend(**tuning)
     fixed = 0
     for seed in range(12):
         (C, w, c, site), best, best_cost = fixing_case(seed)
-        p = opt.solve_coverage(C, w, c, site, budget=9)
+        p = opt.solve_coverage(C, w, c, site, budget=9, backend=backend)
         assert p.status == "optimal" and p.objective == pytest.approx(best) and p.bound == pytest.approx(best)
         assert p.cost == pytest.approx(best_cost)
         fixed += p.model_size["options_fixed_by_lp"]

@@ -80,12 +80,12 @@ builds the same model through PuLP and runs the CBC binary bundled with PuLP und
 its dual bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).
 """
 
-from . import backends  # noqa: F401  (submodules: tests set their tuning constants)
 from .api import budget_sweep, greedy, lp_relaxation_bound, min_cost_cover, solve_coverage, solve_tables, write_lp
-from .backends import _Result  # noqa: F401  (private names the tests use)
-from .problem import Plan, _validate  # noqa: F401
+from .backends import Backend, CbcBackend, HighsBackend, Session, SolveResult
+from .problem import Plan, _validate  # noqa: F401  (private names the tests use)
 from .ranking import backups_for, rank_chosen
 from .reductions import _reduce, _superset_pairs  # noqa: F401
+from .settings import SolverSettings
 
 __all__ = [
     "Plan",
@@ -98,4 +98,10 @@ __all__ = [
     "solve_tables",
     "lp_relaxation_bound",
     "write_lp",
+    "SolverSettings",
+    "Backend",
+    "Session",
+    "SolveResult",
+    "HighsBackend",
+    "CbcBackend",
 ]

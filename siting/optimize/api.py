@@ -8,17 +8,19 @@ import scipy.sparse as sp
 
 from ..errors import SitingError
 from .assemble import _plan_from_result, _sweep_plan, _value_red
-from .backends import _highs_new, _highs_run
+from .backends import Backend, HighsBackend, backend_for
 from .heuristics import _greedy_plan
 from .model import _build, _pulp_problem, _start_vector
 from .problem import Plan, _Instance, _validate
 from .reductions import _reduce
+from .settings import SolverSettings, settings_from
 from .solve import _solve
 
 
 def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
                    option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                   warm_start=True, threads=None, solver_seed=0) -> Plan:
+                   warm_start=True, threads=None, solver_seed=0, settings: SolverSettings | None = None,
+                   backend: Backend | None = None) -> Plan:
     """Choose options to maximise the covered user weight within a budget and/or a panel count.
 
     Parameters
@@ -42,6 +44,10 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
     threads : solver threads (None: solver default).
     solver_seed : the solver's random seed; the same seed gives the same plan (solve times can differ a lot
         between seeds, see docs/MODELS.md).
+    settings : the five solver keywords above as one :class:`SolverSettings` (then leave those keywords at
+        their defaults).
+    backend : the solver back end object (:class:`HighsBackend`, :class:`CbcBackend` or anything with their
+        ``solve``/``open`` methods); default: the back end named by ``solver`` / ``settings.name``.
 
     Returns
     -------
@@ -50,12 +56,14 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
         be chosen (one per site).
     """
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
-    return _solve(inst, "max", None, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads, solver_seed)
+    settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
+    return _solve(inst, "max", None, settings, backend or backend_for(settings.name), reduce, warm_start)
 
 
 def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=None, max_count=None, conflicts=None,
                    load_cap=None, option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                   warm_start=True, threads=None, solver_seed=0) -> Plan:
+                   warm_start=True, threads=None, solver_seed=0, settings: SolverSettings | None = None,
+                   backend: Backend | None = None) -> Plan:
     """Cheapest set of options covering at least ``target_weight`` of user weight.
 
     Same arguments as :func:`solve_coverage`; ``Plan.mode == 'min_cost'`` and ``Plan.bound`` is a proven
@@ -65,13 +73,15 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=No
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     if not np.isscalar(target_weight) or not np.isfinite(target_weight):
         raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
-    return _solve(inst, "min", float(target_weight), solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads,
-                  solver_seed)
+    settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
+    return _solve(inst, "min", float(target_weight), settings, backend or backend_for(settings.name), reduce,
+                  warm_start)
 
 
 def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, conflicts=None, load_cap=None,
                  option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                 warm_start=True, threads=None, solver_seed=0) -> pd.DataFrame:
+                 warm_start=True, threads=None, solver_seed=0, settings: SolverSettings | None = None,
+                 backend: Backend | None = None) -> pd.DataFrame:
     """Covered weight against budget, for the report's curve.
 
     Budgets are solved in increasing order on one HiGHS model (only the budget row changes), each
@@ -88,51 +98,48 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
         return pd.DataFrame(columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
     if not np.all(np.isfinite(b)) or b.min() < 0:
         raise SitingError(f"optimiser argument 'budgets': expected finite numbers >= 0, got {b.tolist()}")
+    settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
+    backend = backend or backend_for(settings.name)
     order = np.argsort(b, kind="stable")
     rows = [None] * len(b)
-    same = dict(max_count=max_count, conflicts=conflicts, load_cap=load_cap, option_wall=option_wall)
-    if solver != "highs" or b[order[-1]] == 0:
+    # build once with the largest budget, then lower the budget row per budget where the back end keeps models
+    inst = _validate(cover, weight, cost, option_site, float(b[order[-1]]), max_count, conflicts, load_cap,
+                     option_wall)
+    red = _reduce(inst, reduce)
+    milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
+    session = backend.open(milp, settings) if milp is not None and b[order[-1]] > 0 else None
+    if session is None and (milp is not None or b[order[-1]] == 0):
+        same = dict(max_count=max_count, conflicts=conflicts, load_cap=load_cap, option_wall=option_wall)
         for k in order:
-            p = solve_coverage(cover, weight, cost, option_site, budget=float(b[k]), solver=solver,
-                               time_limit_s=time_limit_s, mip_rel_gap=mip_rel_gap, reduce=reduce,
-                               warm_start=warm_start, threads=threads, solver_seed=solver_seed, **same)
+            p = solve_coverage(cover, weight, cost, option_site, budget=float(b[k]), reduce=reduce,
+                               warm_start=warm_start, settings=settings, backend=backend, **same)
             rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
     else:
-        # build once with the largest budget, then lower the row bound per budget
-        inst = _validate(cover, weight, cost, option_site, float(b[order[-1]]), max_count, conflicts, load_cap,
-                         option_wall)
-        red = _reduce(inst, reduce)
-        milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
-        h = _highs_new(milp, mip_rel_gap, threads, seed=solver_seed) if milp is not None else None
         prev = np.zeros(0, np.int64)
         for k in order:
             inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(b[k]), inst.max_count, inst.conflicts,
                                inst.load_cap)
-            if h is None or red.c.min() > b[k] or inst.max_count == 0:
+            if session is None or red.c.min() > b[k] or inst.max_count == 0:
                 rows[k] = (b[k], 0.0, 0.0, 0.0, 0.0, 0, "empty")
                 continue
             g_red, _ = _greedy_plan(red, float(b[k]), inst.max_count) if warm_start else (np.zeros(0, np.int64), None)
             gval = _value_red(red, inst_k, g_red)
             pval = _value_red(red, inst_k, prev)
             st = prev if pval >= gval and len(prev) else g_red
-            h.changeRowBounds(milp.budget_row, -_highs_inf(), float(b[k]))
+            session.set_row_upper(milp.budget_row, float(b[k]))
             milp.row_hi[milp.budget_row] = float(b[k])
             start = _start_vector(red, milp, st) if len(st) else None
-            res = _highs_run(h, start, time_limit_s)
+            res = session.run(start)
 
             def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, _i=inst_k):
-                return _sweep_plan(_i, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z, mip_rel_gap)
+                return _sweep_plan(_i, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z,
+                                   settings.mip_gap)
 
-            p = _plan_from_result(res, red, milp, g_red, max(gval, 0.0), plan_from, "max", None, "highs", time_limit_s)
+            p = _plan_from_result(res, red, milp, g_red, max(gval, 0.0), plan_from, "max", None, backend.name,
+                                  settings.time_limit_s)
             prev = np.searchsorted(red.opt, p.chosen) if len(p.chosen) else prev
             rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
     return pd.DataFrame(rows, columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
-
-
-def _highs_inf():
-    import highspy
-
-    return highspy.kHighsInf
 
 
 def greedy(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None,
@@ -154,17 +161,18 @@ def greedy(cover, weight, cost, option_site, *, budget=None, max_count=None, con
 
 
 def lp_relaxation_bound(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None,
-                        load_cap=None, reduce=True) -> float:
-    """Optimum of the LP relaxation of the maximum-coverage model: an upper bound on any plan's covered weight."""
+                        load_cap=None, reduce=True, backend: HighsBackend | None = None) -> float:
+    """Optimum of the LP relaxation of the maximum-coverage model: an upper bound on any plan's covered weight.
+
+    Solved by HiGHS (``backend``: a :class:`HighsBackend` with other tuning, default its defaults).
+    """
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap)
     red = _reduce(inst, reduce)
     if red.C.shape[0] == 0 or red.C.shape[1] == 0:
         return 0.0
     milp = _build(red, inst.budget, inst.max_count)
     milp.obj[: milp.n_x] -= milp.eps * red.c  # drop the tie-break term: pure covered weight
-    h = _highs_new(milp, 1e-9, None, relax=True)
-    h.run()
-    return float(-h.getInfo().objective_function_value)
+    return -(backend or HighsBackend()).relaxation_value(milp)
 
 
 def write_lp(path, cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,

@@ -8,7 +8,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import SolverError
-from .backends import _Result
+from .backends import SolveResult
 from .heuristics import _prune
 from .model import _satisfies
 from .problem import _INF, _TINY, Plan, _Instance
@@ -85,7 +85,7 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
     if res.values is not None and not _satisfies(milp, res.values):
         # CBC stopped inside the root LP ("Stopped on iterations") writes the LP's current point, which can break
         # the budget and the one-size-per-site rows: never a plan
-        res = _Result(None, _INF, res.dual, res.status, res.detail + "; its point breaks the model and is ignored")
+        res = SolveResult(None, _INF, res.dual, res.status, res.detail + "; its point breaks the model and is ignored")
     if res.status in ("error", "other") and res.values is None:
         raise SolverError(f"{solver} stopped without a plan or a bound ({res.detail}); the run gives no proof, so "
                           f"no plan is reported; check the solver options (threads, time limit) or try the other "

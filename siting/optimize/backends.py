@@ -1,4 +1,8 @@
-"""Solver back ends: HiGHS through highspy and CBC through PuLP's bundled binary."""
+"""Solver back ends behind one small protocol: HiGHS through highspy, CBC through PuLP's bundled binary.
+
+A back end is an object passed in (``backend=`` of the public functions); nothing here is switched by
+patching module globals.  The tuning constants of the HiGHS path are fields of :class:`HighsBackend`.
+"""
 
 from __future__ import annotations
 
@@ -8,15 +12,22 @@ import tempfile
 import time
 import warnings
 from dataclasses import dataclass, replace
+from typing import ClassVar, Protocol
 
 import numpy as np
 
 from .model import _Milp, _pulp_problem, _satisfies
 from .problem import _INF, _TINY
+from .settings import SolverSettings
+
+# a start point: (column indices, values); HiGHS completes a partial one
+Start = tuple
 
 
 @dataclass
-class _Result:
+class SolveResult:
+    """What a back end reports for one model, in the solver's minimising form."""
+
     values: np.ndarray | None
     primal: float  # solver objective (minimise), inf if none
     dual: float  # solver dual bound (minimise), -inf if none
@@ -24,6 +35,38 @@ class _Result:
     detail: str = ""
     n_fixed: int = 0  # options set to 0 by reduced-cost fixing (staged HiGHS path)
 
+
+class Session(Protocol):
+    """One model kept in the solver between runs (the budget sweep changes one row bound per run)."""
+
+    def set_row_upper(self, row: int, value: float) -> None: ...
+
+    def run(self, start: Start | None) -> SolveResult: ...
+
+
+class Backend(Protocol):
+    """A MILP solver.
+
+    ``solve`` runs one model from an optional start within ``settings``; ``staged`` asks for the back end's
+    staged path where it has one (the reductions are on).  ``open`` keeps a model for repeated runs, or
+    returns None when the back end cannot (then the caller solves each variant afresh).
+    """
+
+    name: str
+
+    def solve(self, milp: _Milp, start: Start | None, settings: SolverSettings, staged: bool) -> SolveResult: ...
+
+    def open(self, milp: _Milp, settings: SolverSettings) -> Session | None: ...
+
+
+def backend_for(name: str) -> Backend:
+    """The back end of a solver name ('highs' or 'cbc'), with its default tuning."""
+    return CbcBackend() if name == "cbc" else HighsBackend()
+
+
+# ----------------------------------------------------------------------------------------------------
+# HiGHS
+# ----------------------------------------------------------------------------------------------------
 
 _highs_banner_done = [False]
 
@@ -52,7 +95,8 @@ def _quiet_highs():
         os.close(saved)
 
 
-_highs_threads = [None]  # thread count HiGHS's process-wide scheduler was last (re)started with
+# thread count HiGHS's process-wide scheduler was last (re)started with: the scheduler itself is process-wide
+_highs_threads = [None]
 
 
 def _use_highs_threads(threads):
@@ -68,25 +112,10 @@ def _use_highs_threads(threads):
         _highs_threads[0] = int(threads)
 
 
-# From this many nonzeros on, HiGHS solves the model's LPs with its interior point method instead of the dual
-# simplex.  Measured (docs/MODELS.md): on a 21,631-row, 483,114-nonzero coverage model the dual simplex had not
-# finished the root LP after 300 s, the interior point method took 13 s; at 192,000 nonzeros (synthetic city of
-# 5,000 buildings) the simplex was faster (19 s against 27 s to the proven optimum).
-_IPM_NONZEROS = 300_000
-
-
-def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False, seed=0):
+def _highs_lp(milp: _Milp, relax: bool):
+    """The model as a ``highspy.HighsLp`` (row-wise matrix; integrality unless ``relax``)."""
     import highspy
 
-    _use_highs_threads(threads)
-    h = _quiet_highs()
-    h.setOptionValue("output_flag", False)
-    h.setOptionValue("random_seed", int(seed))
-    h.setOptionValue("mip_rel_gap", float(mip_rel_gap))
-    if milp.A.nnz >= _IPM_NONZEROS:
-        h.setOptionValue("solver" if relax else "mip_lp_solver", "ipm")
-    if threads is not None:
-        h.setOptionValue("threads", int(threads))
     lp = highspy.HighsLp()
     nv = len(milp.obj)
     lp.num_col_ = nv
@@ -105,59 +134,126 @@ def _highs_new(milp: _Milp, mip_rel_gap, threads, relax=False, seed=0):
     if not relax and milp.integer.any():
         lp.integrality_ = [highspy.HighsVarType.kInteger if b else highspy.HighsVarType.kContinuous
                            for b in milp.integer]
-    h.passModel(lp)
-    return h
+    return lp
 
 
-def _highs_run(h, start, time_limit_s) -> _Result:
+def _highs_status(ms) -> str:
     import highspy
 
-    # HiGHS overruns its limit by a few percent: ask for a little less
-    h.setOptionValue("time_limit", max(0.05, 0.95 * float(time_limit_s)))
-    if start is not None:
-        idx, val = start
-        h.setSolution(len(idx), np.asarray(idx, np.int32), np.asarray(val, np.float64))
-    run_status = h.run()
-    ms = h.getModelStatus()
-    info = h.getInfo()
     M = highspy.HighsModelStatus
-    detail = h.modelStatusToString(ms)
-    if run_status == highspy.HighsStatus.kError:
-        # nothing was solved: its info fields (a dual bound of 0, say) are no certificate
-        return _Result(None, _INF, -_INF, "error", f"HiGHS returned an error, model status '{detail}'")
-    feasible = info.primal_solution_status == 2
-    is_mip = h.getLp().integrality_ is not None and len(h.getLp().integrality_) > 0
     if ms == M.kOptimal:
-        status = "optimal"
-    elif ms in (M.kInfeasible,):
-        status = "infeasible"
-    elif ms in (M.kTimeLimit, M.kInterrupt, M.kSolutionLimit, M.kIterationLimit):
-        status = "time_limit"
-    else:
-        status = "other"
-    vals = np.asarray(h.getSolution().col_value) if feasible else None
-    primal = info.objective_function_value if feasible else _INF
-    if is_mip and status != "other":
-        dual = info.mip_dual_bound if np.isfinite(info.mip_dual_bound) else -_INF
-    else:
-        dual = primal if status == "optimal" else -_INF
-    return _Result(vals, primal, dual, status, detail)
+        return "optimal"
+    if ms in (M.kInfeasible,):
+        return "infeasible"
+    if ms in (M.kTimeLimit, M.kInterrupt, M.kSolutionLimit, M.kIterationLimit):
+        return "time_limit"
+    return "other"
 
 
-# The staged HiGHS path first runs without root restarts and stops after this many branch-and-bound nodes;
-# only a model still open then is solved again with HiGHS's defaults.  Measured (docs/MODELS.md): after the
-# fixing, the real district closes in 3 nodes without restarts (2-3 s) but spends 6-8 s in a cascade of a
-# dozen root restarts with them; the synthetic cities need 40-550 nodes without restarts and close at the
-# root with them.
-_FIRST_PASS_NODES = 16
-# ... and only when the number of options left free by reduced-cost fixing lies between these: on larger
-# models a repeated root (LP and cuts) costs more than the first pass can save; on tiny ones root restarts are
-# cheap and close the model sooner (the demo, 69 free options: 19-25 ms with restarts, 28-38 ms without).
-_FIRST_PASS_MIN_FREE = 100
-_FIRST_PASS_MAX_FREE = 2000
+@dataclass(frozen=True)
+class HighsBackend:
+    """HiGHS through highspy; the model is passed as arrays.
+
+    Attributes
+    ----------
+    ipm_nonzeros : from this many nonzeros on, HiGHS solves the model's LPs with its interior point method
+        instead of the dual simplex.  Measured (docs/MODELS.md): on a 21,631-row, 483,114-nonzero coverage
+        model the dual simplex had not finished the root LP after 300 s, the interior point method took
+        13 s; at 192,000 nonzeros (synthetic city of 5,000 buildings) the simplex was faster (19 s against
+        27 s to the proven optimum).
+    first_pass_nodes : the staged path first runs without root restarts and stops after this many
+        branch-and-bound nodes; only a model still open then is solved again with HiGHS's defaults.
+        Measured (docs/MODELS.md): after the fixing, the real district closes in 3 nodes without restarts
+        (2-3 s) but spends 6-8 s in a cascade of a dozen root restarts with them; the synthetic cities need
+        40-550 nodes without restarts and close at the root with them.
+    first_pass_min_free, first_pass_max_free : ... and only when the number of options left free by
+        reduced-cost fixing lies between these: on larger models a repeated root (LP and cuts) costs more
+        than the first pass can save; on tiny ones root restarts are cheap and close the model sooner (the
+        demo, 69 free options: 19-25 ms with restarts, 28-38 ms without).
+    """
+
+    name: ClassVar[str] = "highs"
+    ipm_nonzeros: int = 300_000
+    first_pass_nodes: int = 16
+    first_pass_min_free: int = 100
+    first_pass_max_free: int = 2000
+
+    def solve(self, milp: _Milp, start, settings: SolverSettings, staged: bool = True) -> SolveResult:
+        if staged:
+            return _StagedSolve(self, milp, start, settings).run()
+        return self.run(self.new_model(milp, settings), start, settings.time_limit_s)
+
+    def open(self, milp: _Milp, settings: SolverSettings) -> _HighsSession:
+        return _HighsSession(self, self.new_model(milp, settings), settings.time_limit_s)
+
+    def use_threads(self, threads):
+        """Make HiGHS's process-wide scheduler serve ``threads`` (see :func:`_use_highs_threads`)."""
+        _use_highs_threads(threads)
+
+    def new_model(self, milp: _Milp, settings: SolverSettings, relax: bool = False):
+        """A ``highspy.Highs`` holding the model (its LP relaxation when ``relax``), options set."""
+        self.use_threads(settings.threads)
+        h = _quiet_highs()
+        h.setOptionValue("output_flag", False)
+        h.setOptionValue("random_seed", int(settings.seed))
+        h.setOptionValue("mip_rel_gap", float(settings.mip_gap))
+        if milp.A.nnz >= self.ipm_nonzeros:
+            h.setOptionValue("solver" if relax else "mip_lp_solver", "ipm")
+        if settings.threads is not None:
+            h.setOptionValue("threads", int(settings.threads))
+        h.passModel(_highs_lp(milp, relax))
+        return h
+
+    def run(self, h, start, time_limit_s) -> SolveResult:
+        """One run of a prepared model from an optional start."""
+        import highspy
+
+        # HiGHS overruns its limit by a few percent: ask for a little less
+        h.setOptionValue("time_limit", max(0.05, 0.95 * float(time_limit_s)))
+        if start is not None:
+            idx, val = start
+            h.setSolution(len(idx), np.asarray(idx, np.int32), np.asarray(val, np.float64))
+        run_status = h.run()
+        ms = h.getModelStatus()
+        info = h.getInfo()
+        detail = h.modelStatusToString(ms)
+        if run_status == highspy.HighsStatus.kError:
+            # nothing was solved: its info fields (a dual bound of 0, say) are no certificate
+            return SolveResult(None, _INF, -_INF, "error", f"HiGHS returned an error, model status '{detail}'")
+        feasible = info.primal_solution_status == 2
+        is_mip = h.getLp().integrality_ is not None and len(h.getLp().integrality_) > 0
+        status = _highs_status(ms)
+        vals = np.asarray(h.getSolution().col_value) if feasible else None
+        primal = info.objective_function_value if feasible else _INF
+        if is_mip and status != "other":
+            dual = info.mip_dual_bound if np.isfinite(info.mip_dual_bound) else -_INF
+        else:
+            dual = primal if status == "optimal" else -_INF
+        return SolveResult(vals, primal, dual, status, detail)
+
+    def relaxation_value(self, milp: _Milp) -> float:
+        """Optimum of the model's LP relaxation (solver's minimising form)."""
+        h = self.new_model(milp, SolverSettings(mip_gap=1e-9), relax=True)
+        h.run()
+        return float(h.getInfo().objective_function_value)
 
 
-def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) -> _Result:
+class _HighsSession:
+    """A HiGHS model kept between runs; only row bounds change."""
+
+    def __init__(self, backend: HighsBackend, h, time_limit_s):
+        self.backend, self.h, self.time_limit_s = backend, h, time_limit_s
+
+    def set_row_upper(self, row: int, value: float) -> None:
+        import highspy
+
+        self.h.changeRowBounds(row, -highspy.kHighsInf, float(value))
+
+    def run(self, start) -> SolveResult:
+        return self.backend.run(self.h, start, self.time_limit_s)
+
+
+class _StagedSolve:
     """The default HiGHS path: LP relaxation, incumbent, reduced-cost fixing, then the integer program.
 
     1. Solve the LP relaxation (bound ``z_lp`` in the solver's minimising form, reduced costs ``d``).
@@ -168,8 +264,8 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
        its upper bound becomes 0 (reduced-cost fixing: H. Crowder, E. L. Johnson and M. Padberg, "Solving
        large-scale zero-one linear programming problems", Operations Research 31(5), 1983,
        DOI 10.1287/opre.31.5.803; reference from memory, the method is textbook material).
-    4. Solve the fixed model: when ``_FIRST_PASS_MIN_FREE`` to ``_FIRST_PASS_MAX_FREE`` options are left
-       free, first without root restarts for at most ``_FIRST_PASS_NODES`` nodes; if it is still open (or
+    4. Solve the fixed model: when ``first_pass_min_free`` to ``first_pass_max_free`` options are left
+       free, first without root restarts for at most ``first_pass_nodes`` nodes; if it is still open (or
        the pass was skipped), with HiGHS's defaults from the best plan so far.  Steps 2 and 4 switch
        HiGHS's feasibility jump heuristic off whenever they pass in a feasible plan.
 
@@ -177,15 +273,17 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
     and ``z_lp`` are lower bounds of the full model; the larger is reported.  All steps are deterministic
     (node limits, not time limits, choose the path) and share ``time_limit_s``.
     """
-    import highspy
 
-    t_end = time.perf_counter() + float(time_limit_s)
+    def __init__(self, backend: HighsBackend, milp: _Milp, start, settings: SolverSettings):
+        self.backend, self.milp, self.start, self.settings = backend, milp, start, settings
+        self.t_end = time.perf_counter() + float(settings.time_limit_s)
+        self.n, self.nv = milp.n_x, len(milp.obj)
 
-    def left():
-        return max(0.05, t_end - time.perf_counter())
+    def left(self):
+        return max(0.05, self.t_end - time.perf_counter())
 
-    def new(m, feasible_start):
-        h = _highs_new(m, mip_rel_gap, threads, seed=seed)
+    def new(self, m, feasible_start):
+        h = self.backend.new_model(m, self.settings)
         if feasible_start is not None:
             # HiGHS's feasibility jump heuristic hunts for a first feasible point (B. Luteberget and G. Sartor,
             # "Feasibility Jump: an LP-free Lagrangian MIP heuristic", Mathematical Programming Computation,
@@ -194,98 +292,151 @@ def _highs_staged(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed) 
             h.setOptionValue("mip_heuristic_run_feasibility_jump", False)
         return h
 
-    n, nv = milp.n_x, len(milp.obj)
-    lp = _highs_new(milp, mip_rel_gap, threads, relax=True, seed=seed)
-    lp.setOptionValue("time_limit", left())
-    if lp.run() == highspy.HighsStatus.kError or lp.getModelStatus() != highspy.HighsModelStatus.kOptimal:
-        return _highs_run(new(milp, None), start, left())  # no LP certificate to work from: the plain solve decides
-    sol = lp.getSolution()
-    x_lp, d = np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n]
-    z_lp = float(lp.getInfo().objective_function_value)
-
-    inc = None
-    if start is not None and len(start[0]) == nv:
-        v = np.zeros(nv)
-        v[start[0]] = start[1]
-        inc = v if _satisfies(milp, v) else None
-    keep = np.r_[x_lp > 1e-6, np.ones(nv - n, bool)]
-    if start is not None:
-        idx, val = np.asarray(start[0]), np.asarray(start[1])
-        keep[idx[(idx < n) & (val > 0.5)]] = True
-    r = _highs_run(new(replace(milp, col_hi=np.where(keep, milp.col_hi, 0.0)), inc), start,
-                   min(left(), max(1.0, 0.1 * float(time_limit_s))))
-    from_solver = False  # the incumbent is a solver's plan, not the warm start
-    if r.values is not None and _satisfies(milp, r.values) and (inc is None or milp.obj @ r.values < milp.obj @ inc):
-        inc, from_solver = r.values, True
-
-    fixed, first = milp, start
-    if inc is not None:
+    def run(self) -> SolveResult:
+        milp, n, nv = self.milp, self.n, self.nv
+        lp = self.lp_relaxation()
+        if lp is None:  # no LP certificate to work from: the plain solve decides
+            return self.backend.run(self.new(milp, None), self.start, self.left())
+        x_lp, d, z_lp = lp
+        inc, from_solver = self.incumbent(x_lp)
+        if inc is None:
+            return self.fixed_model(milp, self.start, lambda res: res)
         z_inc = float(milp.obj @ inc)
-        if z_inc - z_lp <= mip_rel_gap * max(abs(z_inc), _TINY):
-            return _Result(inc, z_inc, z_lp, "optimal", "the LP bound meets the incumbent")
+        if z_inc - z_lp <= self.settings.mip_gap * max(abs(z_inc), _TINY):
+            return SolveResult(inc, z_inc, z_lp, "optimal", "the LP bound meets the incumbent")
         drop = (x_lp <= 1e-9) & (d > z_inc - z_lp + 1e-6 * (1.0 + abs(z_lp)))
         fixed = replace(milp, col_hi=np.where(np.r_[drop, np.zeros(nv - n, bool)], 0.0, milp.col_hi))
-        first = (np.arange(nv), inc)
 
-    def merged(res):
-        if inc is None:
-            return res
+        def merged(res):
+            return self.merged(res, inc, z_inc, z_lp, from_solver, int(drop.sum()))
+
+        return self.fixed_model(fixed, (np.arange(nv), inc), merged)
+
+    def lp_relaxation(self):
+        """(x, reduced costs, objective) of the LP relaxation's options, or None without an optimal LP."""
+        import highspy
+
+        lp = self.backend.new_model(self.milp, self.settings, relax=True)
+        lp.setOptionValue("time_limit", self.left())
+        if lp.run() == highspy.HighsStatus.kError or lp.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+            return None
+        sol = lp.getSolution()
+        n = self.n
+        return np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n], float(lp.getInfo().objective_function_value)
+
+    def incumbent(self, x_lp):
+        """Step 2: (the best feasible point, whether a solver found it rather than the warm start)."""
+        milp, start, n, nv = self.milp, self.start, self.n, self.nv
+        inc = None
+        if start is not None and len(start[0]) == nv:
+            v = np.zeros(nv)
+            v[start[0]] = start[1]
+            inc = v if _satisfies(milp, v) else None
+        keep = np.r_[x_lp > 1e-6, np.ones(nv - n, bool)]
+        if start is not None:
+            idx, val = np.asarray(start[0]), np.asarray(start[1])
+            keep[idx[(idx < n) & (val > 0.5)]] = True
+        r = self.backend.run(self.new(replace(milp, col_hi=np.where(keep, milp.col_hi, 0.0)), inc), start,
+                             min(self.left(), max(1.0, 0.1 * float(self.settings.time_limit_s))))
+        if r.values is not None and _satisfies(milp, r.values) and (inc is None or milp.obj @ r.values < milp.obj @ inc):
+            return r.values, True
+        return inc, False
+
+    def fixed_model(self, fixed: _Milp, first, merged) -> SolveResult:
+        """Step 4: the first pass without root restarts where it pays, then HiGHS's defaults if still open."""
+        import highspy
+
+        b = self.backend
+        if b.first_pass_min_free <= np.count_nonzero(fixed.col_hi[: self.n] > 0) <= b.first_pass_max_free:
+            h = self.new(fixed, first)
+            h.setOptionValue("mip_allow_restart", False)
+            h.setOptionValue("mip_max_nodes", b.first_pass_nodes)
+            res = b.run(h, first, self.left())
+            if h.getModelStatus() != highspy.HighsModelStatus.kSolutionLimit:  # closed, or out of time
+                return merged(res)
+            if res.values is not None and _satisfies(self.milp, res.values):
+                first = (np.arange(self.nv), res.values)
+        return merged(b.run(self.new(fixed, first), first, self.left()))
+
+    def merged(self, res, inc, z_inc, z_lp, from_solver, n_fixed) -> SolveResult:
+        """A result of the fixed model against the incumbent: the better plan, the larger valid bound."""
+        milp = self.milp
         vals = res.values
         if vals is None or not _satisfies(milp, vals) or milp.obj @ vals > z_inc + 1e-9 * (1.0 + abs(z_inc)):
             # a warm start the solvers could not improve goes back as no solver plan ('greedy_only')
             vals = inc if from_solver else None
         dual = max(z_lp, min(res.dual, z_inc))
-        return _Result(vals, _INF if vals is None else float(milp.obj @ vals), dual, res.status, res.detail,
-                       int(drop.sum()))
-
-    if _FIRST_PASS_MIN_FREE <= np.count_nonzero(fixed.col_hi[:n] > 0) <= _FIRST_PASS_MAX_FREE:
-        h = new(fixed, first)
-        h.setOptionValue("mip_allow_restart", False)
-        h.setOptionValue("mip_max_nodes", _FIRST_PASS_NODES)
-        res = _highs_run(h, first, left())
-        if h.getModelStatus() != highspy.HighsModelStatus.kSolutionLimit:  # closed, or out of time
-            return merged(res)
-        if res.values is not None and _satisfies(milp, res.values):
-            first = (np.arange(nv), res.values)
-    return merged(_highs_run(new(fixed, first), first, left()))
+        return SolveResult(vals, _INF if vals is None else float(milp.obj @ vals), dual, res.status, res.detail,
+                           n_fixed)
 
 
-def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed=0) -> _Result:
-    import pulp
+# ----------------------------------------------------------------------------------------------------
+# CBC
+# ----------------------------------------------------------------------------------------------------
 
-    prob, vs = _pulp_problem(milp)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)  # the bundled-binary class is kept for its path
-        solver = pulp.PULP_CBC_CMD(msg=False)
-    with tempfile.TemporaryDirectory(prefix="siting_cbc_") as tmp:
-        mps, sol, mst = (os.path.join(tmp, f) for f in ("m.mps", "m.sol", "m.mst"))
-        vs_, vnames, cnames, _ = prob.writeMPS(mps, rename=1)
-        args = [solver.path, mps, "-sec", f"{float(time_limit_s):g}", "-ratio", f"{float(mip_rel_gap):g}",
-                "-randomSeed", str(int(seed) + 1), "-randomCbcSeed", str(int(seed) + 1)]
-        if threads is not None:
-            args += ["-threads", str(int(threads))]
-        if start is not None:
-            idx, val = start
-            full = np.zeros(len(vs))
-            full[idx] = val
-            for v, x in zip(vs, full):
-                v.setInitialValue(float(x), check=False)
-            solver.writesol(mst, prob, vs_, vnames, cnames)
-            args += ["-mips", mst]
-        args += ["-solve", "-solution", sol]
-        proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL,
-                                text=True)
-        try:
-            out, _ = proc.communicate(timeout=float(time_limit_s) * 1.05 + 5.0)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.communicate()
-            return _Result(None, _INF, -_INF, "killed", "CBC stopped by the hard timer")
-        if not os.path.exists(sol):
-            return _Result(None, _INF, -_INF, "other", out[-300:])
-        with open(sol) as f:
-            head = f.readline()
-        status, values, *_ = solver.readsol_MPS(sol, prob, vs_, vnames, cnames)
+
+@dataclass(frozen=True)
+class CbcBackend:
+    """CBC, the binary bundled with PuLP, on an MPS file under a hard wall-clock timer.
+
+    CBC ignores its own limit during the root LP, so the process is killed at 1.05 times the limit plus 5 s.
+    The status is read from CBC's solution file and its printed bound, never from PuLP's status string
+    (PuLP reports "Optimal" for time-limited runs).
+    """
+
+    name: ClassVar[str] = "cbc"
+
+    def open(self, milp: _Milp, settings: SolverSettings) -> None:
+        return None  # every run starts the binary afresh
+
+    def solve(self, milp: _Milp, start, settings: SolverSettings, staged: bool = True) -> SolveResult:
+        import pulp
+
+        prob, vs = _pulp_problem(milp)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DeprecationWarning)  # the bundled-binary class is kept for its path
+            solver = pulp.PULP_CBC_CMD(msg=False)
+        t = float(settings.time_limit_s)
+        with tempfile.TemporaryDirectory(prefix="siting_cbc_") as tmp:
+            mps, sol, mst = (os.path.join(tmp, f) for f in ("m.mps", "m.sol", "m.mst"))
+            vs_, vnames, cnames, _ = prob.writeMPS(mps, rename=1)
+            args = [solver.path, mps, *_cbc_options(settings)]
+            if start is not None:
+                idx, val = start
+                full = np.zeros(len(vs))
+                full[idx] = val
+                for v, x in zip(vs, full):
+                    v.setInitialValue(float(x), check=False)
+                solver.writesol(mst, prob, vs_, vnames, cnames)
+                args += ["-mips", mst]
+            args += ["-solve", "-solution", sol]
+            proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                                    stdin=subprocess.DEVNULL, text=True)
+            try:
+                out, _ = proc.communicate(timeout=t * 1.05 + 5.0)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.communicate()
+                return SolveResult(None, _INF, -_INF, "killed", "CBC stopped by the hard timer")
+            if not os.path.exists(sol):
+                return SolveResult(None, _INF, -_INF, "other", out[-300:])
+            with open(sol) as f:
+                head = f.readline()
+            status, values, *_ = solver.readsol_MPS(sol, prob, vs_, vnames, cnames)
+        return _cbc_result(head, out, values, vs)
+
+
+def _cbc_options(settings: SolverSettings) -> list:
+    seed = str(int(settings.seed) + 1)
+    args = ["-sec", f"{float(settings.time_limit_s):g}", "-ratio", f"{float(settings.mip_gap):g}",
+            "-randomSeed", seed, "-randomCbcSeed", seed]
+    if settings.threads is not None:
+        args += ["-threads", str(int(settings.threads))]
+    return args
+
+
+def _cbc_result(head: str, out: str, values: dict, vs) -> SolveResult:
+    """Status, point and bounds from the solution file's first line and CBC's printed output."""
     words = head.split()
     # the first line says how CBC stopped, e.g. "Optimal - objective value -12.0",
     # "Stopped on time - objective value -10.0", "Infeasible - objective value ...",
@@ -302,7 +453,7 @@ def _cbc_run(milp: _Milp, start, time_limit_s, mip_rel_gap, threads, seed=0) -> 
             except (ValueError, IndexError):
                 pass
     if head.startswith("Optimal"):
-        return _Result(x, primal, primal, "optimal", head.strip())
+        return SolveResult(x, primal, primal, "optimal", head.strip())
     if head.startswith("Infeasible") or head.startswith("Integer infeasible"):
-        return _Result(None, _INF, _INF, "infeasible", head.strip())
-    return _Result(x, primal, dual, "time_limit", head.strip())
+        return SolveResult(None, _INF, _INF, "infeasible", head.strip())
+    return SolveResult(x, primal, dual, "time_limit", head.strip())

@@ -6,25 +6,21 @@ import time
 
 import numpy as np
 
-from ..errors import SitingError, SolverError
-from . import backends
+from ..errors import SolverError
 from .assemble import _capped_served, _covered_users, _finish_gap, _message, _plan_from_result
+from .backends import Backend
 from .heuristics import _greedy_plan, _min_cost_greedy
 from .model import _build, _start_vector
 from .problem import Plan, _Instance, _raw_size
 from .ranking import rank_chosen
 from .reductions import _components, _reduce
+from .settings import SolverSettings
 
 
-def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, reduce, warm_start, threads, seed):
+def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Backend, reduce, warm_start):
     t = {}
     t0 = time.perf_counter()
-    if solver not in ("highs", "cbc"):
-        raise SitingError(f"optimiser argument 'solver': expected 'highs' or 'cbc', got {solver!r}")
-    if not (np.isfinite(time_limit_s) and time_limit_s > 0):
-        raise SitingError(f"optimiser argument 'time_limit_s': expected a positive number, got {time_limit_s!r}")
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2**31:
-        raise SitingError(f"optimiser argument 'solver_seed': expected an integer from 0 to 2**31 - 1, got {seed!r}")
+    solver, time_limit_s, mip_rel_gap = backend.name, settings.time_limit_s, settings.mip_gap
     red = _reduce(inst, reduce)
     t["reduce"] = time.perf_counter() - t0
     raw_size = _raw_size(inst)
@@ -104,12 +100,7 @@ def _solve(inst: _Instance, mode, target, solver, time_limit_s, mip_rel_gap, red
     t["build"] = time.perf_counter() - t2
     start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
     t3 = time.perf_counter()
-    if solver == "cbc":
-        res = backends._cbc_run(milp, start, time_limit_s, mip_rel_gap, threads, seed)
-    elif reduce:
-        res = backends._highs_staged(milp, start, time_limit_s, mip_rel_gap, threads, seed)
-    else:
-        res = backends._highs_run(backends._highs_new(milp, mip_rel_gap, threads, seed=seed), start, time_limit_s)
+    res = backend.solve(milp, start, settings, staged=reduce)
     t["solve"] = time.perf_counter() - t3
     red.stats["options_fixed_by_lp"] = res.n_fixed
     return _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s)
