@@ -407,6 +407,23 @@ def test_budget_below_cheapest_option_is_an_optimal_empty_plan():
     p = opt.solve_coverage(C, w, c, site, budget=0.5 * c.min())
     assert p.status == "optimal" and len(p.chosen) == 0 and p.objective == 0 and p.cost == 0
     assert "budget" in p.message and not p.covered.any()
+    assert p.empty_reason == "nothing_affordable"
+
+
+@pytest.mark.parametrize("solver", ["highs", "cbc"])
+def test_sweep_and_single_solve_agree_on_every_status(solver):
+    # the sweep assembles its points exactly as solve_coverage does: same status at every budget, including
+    # budgets below the cheapest option (an empty plan proven optimal: nothing is affordable) and a zero budget;
+    # reference for the values: brute force over all subsets
+    C, w, c, site = make_instance(8, n_sites=8, n_users=30)
+    budgets = [0.0, 0.5 * c.min(), c.min(), 6.0, 12.0]
+    df = opt.budget_sweep(C, w, c, site, budgets, solver=solver)
+    for b, status, v in zip(budgets, df["status"], df["covered_weight"]):
+        p = opt.solve_coverage(C, w, c, site, budget=b, solver=solver)
+        vals, _, ok = brute_force(C, w, c, site, budget=b)
+        assert status == p.status == "optimal" and v == p.objective == pytest.approx(vals[ok].max()), b
+        if b < c.min():
+            assert p.empty_reason == "nothing_affordable" and len(p.chosen) == 0
 
 
 def test_no_options_and_zero_weights_and_single_user():

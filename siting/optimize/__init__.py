@@ -81,8 +81,9 @@ its dual bound, never from a status string alone (PuLP reports "Optimal" for tim
 """
 
 from .api import budget_sweep, greedy, lp_relaxation_bound, min_cost_cover, solve_coverage, solve_tables, write_lp
+from .assemble import Plan
 from .backends import Backend, CbcBackend, HighsBackend, Session, SolveResult
-from .problem import Plan, _validate  # noqa: F401  (private names the tests use)
+from .problem import _validate  # noqa: F401  (private names the tests use)
 from .ranking import backups_for, rank_chosen
 from .reductions import _reduce, _superset_pairs  # noqa: F401
 from .settings import SolverSettings

@@ -7,14 +7,16 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..errors import SitingError
-from .assemble import _plan_from_result, _sweep_plan, _value_red
+from .assemble import Plan
 from .backends import Backend, HighsBackend, backend_for
 from .heuristics import _greedy_plan
-from .model import _build, _pulp_problem, _start_vector
-from .problem import Plan, _Instance, _validate
+from .model import _build, _pulp_problem
+from .problem import _validate
 from .reductions import _reduce
 from .settings import SolverSettings, settings_from
-from .solve import _solve
+from .solve import _solve, _sweep
+
+_SWEEP_COLUMNS = ["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"]
 
 
 def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
@@ -84,9 +86,11 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
                  backend: Backend | None = None) -> pd.DataFrame:
     """Covered weight against budget, for the report's curve.
 
-    Budgets are solved in increasing order on one HiGHS model (only the budget row changes), each
-    warm-started from the better of the previous plan (still feasible under a larger budget) and greedy.
-    ``time_limit_s`` applies to each budget.
+    Budgets are solved in increasing order on one model where the back end keeps models (HiGHS: only the
+    budget row changes), each warm-started from the better of the previous plan (still feasible under a
+    larger budget) and greedy; with other back ends each budget is solved afresh.  ``time_limit_s`` applies
+    to each budget.  Every point is assembled exactly as :func:`solve_coverage` assembles its plan, so the
+    statuses agree (a budget below the cheapest useful option: 'optimal' with nothing chosen).
 
     Returns
     -------
@@ -95,51 +99,14 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
     """
     b = np.asarray(budgets, float).ravel()
     if b.size == 0:
-        return pd.DataFrame(columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
+        return pd.DataFrame(columns=_SWEEP_COLUMNS)
     if not np.all(np.isfinite(b)) or b.min() < 0:
         raise SitingError(f"optimiser argument 'budgets': expected finite numbers >= 0, got {b.tolist()}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
-    backend = backend or backend_for(settings.name)
-    order = np.argsort(b, kind="stable")
-    rows = [None] * len(b)
-    # build once with the largest budget, then lower the budget row per budget where the back end keeps models
-    inst = _validate(cover, weight, cost, option_site, float(b[order[-1]]), max_count, conflicts, load_cap,
-                     option_wall)
-    red = _reduce(inst, reduce)
-    milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
-    session = backend.open(milp, settings) if milp is not None and b[order[-1]] > 0 else None
-    if session is None and (milp is not None or b[order[-1]] == 0):
-        same = dict(max_count=max_count, conflicts=conflicts, load_cap=load_cap, option_wall=option_wall)
-        for k in order:
-            p = solve_coverage(cover, weight, cost, option_site, budget=float(b[k]), reduce=reduce,
-                               warm_start=warm_start, settings=settings, backend=backend, **same)
-            rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
-    else:
-        prev = np.zeros(0, np.int64)
-        for k in order:
-            inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(b[k]), inst.max_count, inst.conflicts,
-                               inst.load_cap)
-            if session is None or red.c.min() > b[k] or inst.max_count == 0:
-                rows[k] = (b[k], 0.0, 0.0, 0.0, 0.0, 0, "empty")
-                continue
-            g_red, _ = _greedy_plan(red, float(b[k]), inst.max_count) if warm_start else (np.zeros(0, np.int64), None)
-            gval = _value_red(red, inst_k, g_red)
-            pval = _value_red(red, inst_k, prev)
-            st = prev if pval >= gval and len(prev) else g_red
-            session.set_row_upper(milp.budget_row, float(b[k]))
-            milp.row_hi[milp.budget_row] = float(b[k])
-            start = _start_vector(red, milp, st) if len(st) else None
-            res = session.run(start)
-
-            def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, _i=inst_k):
-                return _sweep_plan(_i, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z,
-                                   settings.mip_gap)
-
-            p = _plan_from_result(res, red, milp, g_red, max(gval, 0.0), plan_from, "max", None, backend.name,
-                                  settings.time_limit_s)
-            prev = np.searchsorted(red.opt, p.chosen) if len(p.chosen) else prev
-            rows[k] = (b[k], p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status)
-    return pd.DataFrame(rows, columns=["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"])
+    inst = _validate(cover, weight, cost, option_site, float(b.max()), max_count, conflicts, load_cap, option_wall)
+    plans = _sweep(inst, b, settings, backend or backend_for(settings.name), reduce, warm_start)
+    rows = [(x, p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status) for x, p in zip(b, plans)]
+    return pd.DataFrame(rows, columns=_SWEEP_COLUMNS)
 
 
 def greedy(cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None,

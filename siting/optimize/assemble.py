@@ -1,8 +1,15 @@
-"""From chosen options to a :class:`Plan`: covered users, bound, gap, status and message."""
+"""From chosen options to a :class:`Plan`: the one assembly path of maximum coverage, minimum cost and the sweep.
+
+Every plan (solver plan, warm start, or a plan settled without a solve) goes through :meth:`Assembly.plan`:
+covered users, objective, cost, bound and gap, status, ranking, message and model size are computed there
+and nowhere else.
+"""
 
 from __future__ import annotations
 
 import math
+import time
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sp
@@ -10,9 +17,56 @@ import scipy.sparse as sp
 from ..errors import SolverError
 from .backends import SolveResult
 from .heuristics import _prune
-from .model import _satisfies
-from .problem import _INF, _TINY, Plan, _Instance
-from .reductions import _Reduced
+from .model import _Milp, _satisfies
+from .problem import _INF, _TINY, _Instance, _raw_size
+from .ranking import rank_chosen
+from .reductions import _components, _Reduced
+
+_NO_MODEL = {"rows": 0, "cols": 0, "nonzeros": 0}
+
+
+@dataclass
+class Plan:
+    """Result of an optimisation.
+
+    Attributes
+    ----------
+    chosen : option indices (into the caller's option arrays), in rank order (see :func:`rank_chosen`).
+    covered : bool per user of the caller: covered by the chosen options (with a load cap: served).
+    objective : covered weight of the plan, surface-covered users only [weight units].
+    bound : proven upper bound on ``objective`` (maximum coverage) or proven lower bound on ``cost``
+        (minimum cost, ``mode == 'min_cost'``).
+    gap : relative distance between plan and bound, 0 when proven optimal.
+    status : 'optimal', 'time_limit' (usable plan, gap reported), 'greedy_only' (the solver found
+        nothing better than the warm start in time), 'empty' (nothing to choose: no candidate option
+        covers a user who needs coverage).
+    solver : 'highs', 'cbc' or 'greedy'.
+    cost : plan cost [currency units].
+    greedy_objective : covered weight of the greedy + local search plan.
+    message : plain sentence for the report.
+    model_size : rows, cols, nonzeros before and after reductions, users/options dropped, components.
+    timings_s : wall-clock seconds per step.
+    mode : 'max_coverage' or 'min_cost'.
+    empty_reason : why a plan proven optimal (or 'empty') chooses nothing, '' otherwise:
+        'nothing_affordable' (no option within the budget adds covered weight; a budget below the cheapest
+        useful option is one case), 'count_zero' (the panel count is 0), 'target_met' (minimum cost: the
+        target is met without surfaces), 'no_candidates' (status 'empty').
+    """
+
+    chosen: np.ndarray
+    covered: np.ndarray
+    objective: float
+    bound: float
+    gap: float
+    status: str
+    solver: str
+    cost: float
+    greedy_objective: float
+    message: str
+    model_size: dict = field(default_factory=dict)
+    timings_s: dict = field(default_factory=dict)
+    mode: str = "max_coverage"
+    empty_reason: str = ""
 
 
 def _covered_users(inst: _Instance, chosen: np.ndarray) -> np.ndarray:
@@ -80,8 +134,104 @@ def _finish_gap(mode, objective, cost, bound):
     return bound, (cost - bound) / max(cost, _TINY) if cost > 0 else 0.0
 
 
-def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s):
-    n = milp.n_x
+def covered_weight(inst: _Instance, red: _Reduced, chosen_red: np.ndarray) -> float:
+    """Covered (with a load cap: served) weight of options given in reduced numbering."""
+    if len(chosen_red) == 0:
+        return 0.0
+    if inst.load_cap is not None:
+        return float(inst.w[_capped_served(inst, red, chosen_red, None)].sum())
+    return float(inst.w[_covered_users(inst, red.opt[chosen_red])].sum())
+
+
+@dataclass
+class Assembly:
+    """What turning chosen options into a :class:`Plan` needs besides the options: one per solve.
+
+    ``mode`` is 'max' (maximum coverage) or 'min' (minimum cost, ``target`` weight).  ``sizes`` holds the
+    parts of ``Plan.model_size`` that do not depend on the budget (raw model size, components), computed
+    once and shared by the budgets of a sweep.
+    """
+
+    inst: _Instance
+    red: _Reduced
+    mode: str
+    target: float | None
+    mip_gap: float
+    solver: str
+    timings: dict
+    t0: float
+    sizes: dict
+
+    @classmethod
+    def start(cls, inst, red, mode, target, mip_gap, solver, reduce, timings, t0) -> Assembly:
+        sizes = {"raw": _raw_size(inst), "components": _components(red) if reduce else None}
+        return cls(inst, red, mode, target, mip_gap, solver, timings, t0, sizes)
+
+    def for_budget(self, budget: float) -> Assembly:
+        """The same assembly for another budget (sweep), with its own timings."""
+        inst = _Instance(self.inst.C, self.inst.w, self.inst.c, self.inst.site, float(budget), self.inst.max_count,
+                         self.inst.conflicts, self.inst.load_cap)
+        return Assembly(inst, self.red, self.mode, self.target, self.mip_gap, self.solver, {}, time.perf_counter(),
+                        self.sizes)
+
+    @property
+    def plan_mode(self) -> str:
+        return "min_cost" if self.mode == "min" else "max_coverage"
+
+    def plan(self, chosen_red, status, bound_raw, greedy_obj, z=None, milp: _Milp | None = None,
+             empty_reason="", reason="") -> Plan:
+        """The plan of options ``chosen_red`` (reduced numbering); ``bound_raw`` before it meets the plan."""
+        inst, red = self.inst, self.red
+        chosen = red.opt[chosen_red] if len(chosen_red) else np.zeros(0, np.int64)
+        covered = _capped_served(inst, red, chosen_red, z) if inst.load_cap is not None else _covered_users(inst, chosen)
+        objective = float(inst.w[covered].sum())
+        cost = float(inst.c[chosen].sum()) if len(chosen) else 0.0
+        m = self.plan_mode
+        bound, gap = _finish_gap(m, objective, cost, bound_raw)
+        if status == "optimal" and gap > max(self.mip_gap, 1e-9) * 1.0001:
+            status = "time_limit"
+        if len(chosen):
+            chosen = rank_chosen(chosen, inst.C, inst.w)["option"].to_numpy(np.int64)
+        elif status == "optimal" and not empty_reason:
+            empty_reason = "target_met" if m == "min_cost" else "nothing_affordable"
+            reason = reason or ("the target is already met without surfaces" if m == "min_cost"
+                                else "no affordable option adds covered weight")
+        msg = _message(m, status, objective, bound, gap, cost, len(chosen), float(inst.w.sum()), self.solver,
+                       self.target, reason)
+        size = {"raw": self.sizes["raw"], "reduced": milp.size if milp is not None else dict(_NO_MODEL)}
+        size.update(red.stats)
+        size["components"] = self.sizes["components"]
+        self.timings["total"] = time.perf_counter() - self.t0
+        return Plan(chosen, covered, objective, float(bound), float(gap), status, self.solver, cost,
+                    float(greedy_obj), msg, size, self.timings, m, empty_reason if len(chosen) == 0 else "")
+
+
+def settled_plan(asm: Assembly) -> Plan | None:
+    """The plan when no solve is needed (nothing to choose, nothing affordable, target met), else None."""
+    inst, red, mode, target = asm.inst, asm.red, asm.mode, asm.target
+    empty = np.zeros(0, np.int64)
+    n, m = red.C.shape
+    if mode == "min" and target <= 1e-9 * float(inst.w.sum()):  # zero within floating-point noise of the total
+        return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="target_met", reason="the target weight is already met")
+    if n == 0 or m == 0:
+        if mode == "min":
+            raise SolverError(
+                f"no plan can cover the target weight {target:g}: no candidate option covers a user who needs "
+                f"coverage; lower the target or add candidate spots"
+            )
+        return asm.plan(empty, "empty", 0.0, 0.0, empty_reason="no_candidates",
+                        reason="no candidate option covers any user who still needs coverage")
+    if mode == "max" and inst.max_count == 0:
+        return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="count_zero", reason="the panel count is 0")
+    if mode == "max" and inst.budget is not None and red.c.min() > inst.budget:
+        return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="nothing_affordable",
+                        reason=f"the budget {inst.budget:g} is below the cheapest useful option ({red.c.min():g})")
+    return None
+
+
+def _checked(res: SolveResult, asm: Assembly, milp: _Milp) -> SolveResult:
+    """The result with a point that breaks the model removed; errors for runs that prove nothing."""
+    solver = asm.solver
     if res.values is not None and not _satisfies(milp, res.values):
         # CBC stopped inside the root LP ("Stopped on iterations") writes the LP's current point, which can break
         # the budget and the one-size-per-site rows: never a plan
@@ -91,14 +241,18 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
                           f"no plan is reported; check the solver options (threads, time limit) or try the other "
                           f"solver ('highs' or 'cbc')")
     if res.status == "infeasible":
-        if mode == "min":
+        if asm.mode == "min":
             raise SolverError(
-                f"no plan can cover the target weight {target:g} under the given constraints ({solver} proved the "
-                f"model infeasible); lower the target, raise the budget or count, or add candidate spots"
+                f"no plan can cover the target weight {asm.target:g} under the given constraints ({solver} proved "
+                f"the model infeasible); lower the target, raise the budget or count, or add candidate spots"
             )
         raise SolverError(f"{solver} reported the coverage model infeasible, which should not happen; "
                           f"check the budget and count arguments")
-    # bound on the plan's objective (covered weight, or cost for min-cost)
+    return res
+
+
+def _bound_raw(res: SolveResult, red: _Reduced, milp: _Milp, mode: str) -> float:
+    """Bound on the plan's objective (covered weight, or cost for min-cost) from the solver's dual bound."""
     if mode == "max":
         # without a solver bound (stopped before the root LP), the weight of every coverable user is one
         bound_raw = -res.dual + milp.delta if np.isfinite(res.dual) else float((red.w * red.mult).sum())
@@ -106,46 +260,32 @@ def _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, t
             bound_raw = min(bound_raw, float(red.w.sum()))
         if np.isfinite(bound_raw) and np.all(np.mod(red.w, 1) == 0):
             bound_raw = math.floor(bound_raw + 1e-6)  # integral weights: the bound is an integer
-    else:
-        bound_raw = res.dual if np.isfinite(res.dual) else 0.0
-        if np.all(np.mod(red.c, 1) == 0):
-            bound_raw = math.ceil(bound_raw - 1e-6)
+        return bound_raw
+    bound_raw = res.dual if np.isfinite(res.dual) else 0.0
+    if np.all(np.mod(red.c, 1) == 0):
+        bound_raw = math.ceil(bound_raw - 1e-6)
+    return bound_raw
+
+
+def plan_from_result(res: SolveResult, asm: Assembly, milp: _Milp, greedy_red, greedy_obj, time_limit_s) -> Plan:
+    """The plan of a solver run: its point, or the warm start when that is better or the run found none."""
+    res = _checked(res, asm, milp)
+    red, mode, n = asm.red, asm.mode, milp.n_x
+    bound_raw = _bound_raw(res, red, milp, mode)
+    has_greedy = greedy_red is not None and len(greedy_red) > 0
     if res.values is not None:
-        x = res.values[:n] > 0.5
-        chosen_red = np.flatnonzero(x)
+        chosen_red = np.flatnonzero(res.values[:n] > 0.5)
         z = res.values[n:] if red.cap is not None else None
         if mode == "max" and red.cap is None:
             chosen_red = _prune(red, chosen_red)
-        p = plan_from(chosen_red, "optimal" if res.status == "optimal" else "time_limit", bound_raw, greedy_obj,
-                      solver, z=z, milp=milp)
+        p = asm.plan(chosen_red, "optimal" if res.status == "optimal" else "time_limit", bound_raw, greedy_obj,
+                     z=z, milp=milp)
         # never return less than the warm start (a time-limited solver may not have used it)
-        if mode == "max" and greedy_red is not None and len(greedy_red) and greedy_obj > p.objective + 1e-9:
-            return plan_from(greedy_red, "greedy_only", bound_raw, greedy_obj, solver, milp=milp)
-        return p
-    if greedy_red is not None and len(greedy_red):
-        return plan_from(greedy_red, "greedy_only", bound_raw, greedy_obj, solver, milp=milp)
+        if not (mode == "max" and has_greedy and greedy_obj > p.objective + 1e-9):
+            return p
+    if has_greedy:
+        return asm.plan(greedy_red, "greedy_only", bound_raw, greedy_obj, milp=milp)
     raise SolverError(
-        f"{solver} found no plan within {time_limit_s:g} s ({res.detail}) and there is no warm start; "
+        f"{asm.solver} found no plan within {time_limit_s:g} s ({res.detail}) and there is no warm start; "
         f"raise time_limit_s or keep warm_start=True"
     )
-
-
-def _value_red(red, inst, chosen_red):
-    if len(chosen_red) == 0:
-        return 0.0
-    if inst.load_cap is not None:
-        return float(inst.w[_capped_served(inst, red, chosen_red, None)].sum())
-    return float(inst.w[_covered_users(inst, red.opt[chosen_red])].sum())
-
-
-def _sweep_plan(inst, red, chosen_red, status, bound_raw, greedy_obj, solver_name, z, mip_rel_gap):
-    chosen = red.opt[chosen_red] if len(chosen_red) else np.zeros(0, np.int64)
-    covered = _capped_served(inst, red, chosen_red, z) if inst.load_cap is not None else _covered_users(inst, chosen)
-    objective = float(inst.w[covered].sum())
-    cost = float(inst.c[chosen].sum()) if len(chosen) else 0.0
-    bound, gap = _finish_gap("max_coverage", objective, cost, bound_raw)
-    if status == "optimal" and gap > max(mip_rel_gap, 1e-9) * 1.0001:
-        status = "time_limit"
-    if len(chosen) == 0 and status == "optimal":
-        status = "empty"
-    return Plan(chosen, covered, objective, bound, gap, status, solver_name, cost, greedy_obj, "", {}, {})

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -14,44 +14,6 @@ from ..errors import SitingError
 _INF = math.inf
 _TINY = 1e-12
 _EPS_SHARE = 1e-4  # whole tie-break cost term < this share of the smallest positive user weight
-
-
-@dataclass
-class Plan:
-    """Result of an optimisation.
-
-    Attributes
-    ----------
-    chosen : option indices (into the caller's option arrays), in rank order (see :func:`rank_chosen`).
-    covered : bool per user of the caller: covered by the chosen options (with a load cap: served).
-    objective : covered weight of the plan, surface-covered users only [weight units].
-    bound : proven upper bound on ``objective`` (maximum coverage) or proven lower bound on ``cost``
-        (minimum cost, ``mode == 'min_cost'``).
-    gap : relative distance between plan and bound, 0 when proven optimal.
-    status : 'optimal', 'time_limit' (usable plan, gap reported), 'greedy_only' (the solver found
-        nothing better than the warm start in time), 'empty' (nothing to choose).
-    solver : 'highs', 'cbc' or 'greedy'.
-    cost : plan cost [currency units].
-    greedy_objective : covered weight of the greedy + local search plan.
-    message : plain sentence for the report.
-    model_size : rows, cols, nonzeros before and after reductions, users/options dropped, components.
-    timings_s : wall-clock seconds per step.
-    mode : 'max_coverage' or 'min_cost'.
-    """
-
-    chosen: np.ndarray
-    covered: np.ndarray
-    objective: float
-    bound: float
-    gap: float
-    status: str
-    solver: str
-    cost: float
-    greedy_objective: float
-    message: str
-    model_size: dict = field(default_factory=dict)
-    timings_s: dict = field(default_factory=dict)
-    mode: str = "max_coverage"
 
 
 @dataclass

@@ -1,4 +1,4 @@
-"""One solve: reduce, warm start, build, run the back end, assemble the plan."""
+"""Solving: reduce, warm start, build, run the back end, assemble; one budget at a time or a sweep over budgets."""
 
 from __future__ import annotations
 
@@ -6,101 +6,116 @@ import time
 
 import numpy as np
 
-from ..errors import SolverError
-from .assemble import _capped_served, _covered_users, _finish_gap, _message, _plan_from_result
-from .backends import Backend
+from .assemble import Assembly, Plan, covered_weight, plan_from_result, settled_plan
+from .backends import Backend, Session
 from .heuristics import _greedy_plan, _min_cost_greedy
-from .model import _build, _start_vector
-from .problem import Plan, _Instance, _raw_size
-from .ranking import rank_chosen
-from .reductions import _components, _reduce
+from .model import _build, _Milp, _start_vector
+from .problem import _Instance
+from .reductions import _reduce, _Reduced
 from .settings import SolverSettings
 
+_NONE = np.zeros(0, np.int64)
 
-def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Backend, reduce, warm_start):
-    t = {}
+
+def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Backend, reduce, warm_start,
+           red: _Reduced | None = None) -> Plan:
+    """One plan: maximum coverage (``mode='max'``) or minimum cost for ``target`` weight (``mode='min'``).
+
+    ``red`` is the reduced instance when the caller has it already (the reductions do not depend on the
+    budget or the count).
+    """
     t0 = time.perf_counter()
-    solver, time_limit_s, mip_rel_gap = backend.name, settings.time_limit_s, settings.mip_gap
-    red = _reduce(inst, reduce)
-    t["reduce"] = time.perf_counter() - t0
-    raw_size = _raw_size(inst)
-    total_w = float(inst.w.sum())
-    empty = np.zeros(0, np.int64)
-    base = dict(solver=solver, timings_s=t, mode="min_cost" if mode == "min" else "max_coverage")
+    timings = {}
+    red = _reduce(inst, reduce) if red is None else red
+    timings["reduce"] = time.perf_counter() - t0
+    asm = Assembly.start(inst, red, mode, target, settings.mip_gap, backend.name, reduce, timings, t0)
+    plan = settled_plan(asm)
+    if plan is not None:
+        return plan
+    model_target = _model_target(inst, mode, target)
 
-    def plan_from(chosen_red, status, bound_raw, greedy_obj, solver_name, z=None, milp=None, reason=""):
-        chosen = red.opt[chosen_red] if len(chosen_red) else empty
-        if inst.load_cap is not None:
-            covered = _capped_served(inst, red, chosen_red, z)
-        else:
-            covered = _covered_users(inst, chosen)
-        objective = float(inst.w[covered].sum())
-        cost = float(inst.c[chosen].sum()) if len(chosen) else 0.0
-        m = base["mode"]
-        bound, gap = _finish_gap(m, objective, cost, bound_raw)
-        if status == "optimal" and gap > max(mip_rel_gap, 1e-9) * 1.0001:
-            status = "time_limit"
-        if len(chosen):
-            rk = rank_chosen(chosen, inst.C, inst.w)
-            chosen = rk["option"].to_numpy(np.int64)
-        if len(chosen) == 0 and status == "optimal" and not reason:
-            reason = ("the target is already met without surfaces" if m == "min_cost"
-                      else "no affordable option adds covered weight")
-        msg = _message(m, status, objective, bound, gap, cost, len(chosen), total_w, solver_name, target, reason)
-        size = {"raw": raw_size, "reduced": milp.size if milp is not None else {"rows": 0, "cols": 0, "nonzeros": 0}}
-        size.update(red.stats)
-        size["components"] = _components(red) if reduce else None
-        t["total"] = time.perf_counter() - t0
-        return Plan(chosen, covered, objective, float(bound), float(gap), status, solver_name, cost,
-                    float(greedy_obj), msg, size, t, m)
-
-    n, m = red.C.shape
-    if mode == "min" and target <= 1e-9 * total_w:  # zero within floating-point noise of the total weight
-        return plan_from(empty, "optimal", 0.0, 0.0, solver, reason="the target weight is already met")
-    if n == 0 or m == 0:
-        if mode == "min":
-            raise SolverError(
-                f"no plan can cover the target weight {target:g}: no candidate option covers a user who needs "
-                f"coverage; lower the target or add candidate spots"
-            )
-        return plan_from(empty, "empty", 0.0, 0.0, solver,
-                         reason="no candidate option covers any user who still needs coverage")
-    if mode == "max" and inst.max_count == 0:
-        return plan_from(empty, "optimal", 0.0, 0.0, solver, reason="the panel count is 0")
-    if mode == "max" and inst.budget is not None and red.c.min() > inst.budget:
-        return plan_from(empty, "optimal", 0.0, 0.0, solver,
-                         reason=f"the budget {inst.budget:g} is below the cheapest useful option ({red.c.min():g})")
-    model_target = target
-    if mode == "min":
-        # any plan that covers some weight covers at least the smallest positive user weight, so a smaller
-        # target is the same target; raising it keeps the target row far above the solvers' feasibility
-        # tolerances (a target of 1e-6 was met within tolerance by a point covering nobody)
-        model_target = max(target, float(inst.w[inst.w > 0].min()))
-
-    # warm start
     t1 = time.perf_counter()
-    greedy_red = np.zeros(0, np.int64)
-    greedy_obj = 0.0
-    if warm_start:
-        if mode == "max":
-            greedy_red, g = _greedy_plan(red, inst.budget, inst.max_count, ls_time_s=max(1.0, 0.1 * time_limit_s))
-        else:
-            greedy_red, g = _min_cost_greedy(red, model_target, inst.budget, inst.max_count)
-        if len(greedy_red):
-            if inst.load_cap is not None:
-                greedy_obj = float(inst.w[_capped_served(inst, red, greedy_red, None)].sum())
-            else:
-                greedy_obj = float(inst.w[_covered_users(inst, red.opt[greedy_red])].sum())
-        if mode == "min" and greedy_obj < model_target * (1 - 1e-12):
-            greedy_red = None  # greedy could not reach the target: no usable start
-    t["greedy"] = time.perf_counter() - t1
+    greedy_red, greedy_obj = _warm_start(inst, red, mode, model_target, settings) if warm_start else (_NONE, 0.0)
+    timings["greedy"] = time.perf_counter() - t1
 
     t2 = time.perf_counter()
-    milp = _build(red, inst.budget, inst.max_count, mode="max" if mode == "max" else "min", target=model_target)
-    t["build"] = time.perf_counter() - t2
+    milp = _build(red, inst.budget, inst.max_count, mode=mode, target=model_target)
+    timings["build"] = time.perf_counter() - t2
     start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
     t3 = time.perf_counter()
     res = backend.solve(milp, start, settings, staged=reduce)
-    t["solve"] = time.perf_counter() - t3
+    timings["solve"] = time.perf_counter() - t3
     red.stats["options_fixed_by_lp"] = res.n_fixed
-    return _plan_from_result(res, red, milp, greedy_red, greedy_obj, plan_from, mode, target, solver, time_limit_s)
+    return plan_from_result(res, asm, milp, greedy_red, greedy_obj, settings.time_limit_s)
+
+
+def _model_target(inst: _Instance, mode, target):
+    """The target row's right-hand side (minimum cost only)."""
+    if mode != "min":
+        return target
+    # any plan that covers some weight covers at least the smallest positive user weight, so a smaller
+    # target is the same target; raising it keeps the target row far above the solvers' feasibility
+    # tolerances (a target of 1e-6 was met within tolerance by a point covering nobody)
+    return max(target, float(inst.w[inst.w > 0].min()))
+
+
+def _warm_start(inst: _Instance, red: _Reduced, mode, model_target, settings: SolverSettings):
+    """(greedy plan in reduced numbering or None when it misses the target, its covered weight)."""
+    if mode == "max":
+        ls_time_s = max(1.0, 0.1 * settings.time_limit_s)
+        greedy_red, _ = _greedy_plan(red, inst.budget, inst.max_count, ls_time_s=ls_time_s)
+    else:
+        greedy_red, _ = _min_cost_greedy(red, model_target, inst.budget, inst.max_count)
+    greedy_obj = covered_weight(inst, red, greedy_red)
+    if mode == "min" and greedy_obj < model_target * (1 - 1e-12):
+        return None, greedy_obj  # greedy could not reach the target: no usable start
+    return greedy_red, greedy_obj
+
+
+def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backend: Backend, reduce,
+           warm_start) -> list[Plan]:
+    """Plans for each budget (``inst`` holds the largest); one plan per budget, in the order given.
+
+    Where the back end keeps a model (:meth:`Backend.open`), it is built once with the largest budget and
+    only the budget row changes; budgets are solved in increasing order, each warm-started from the better
+    of the previous plan (still feasible under a larger budget) and greedy.  Otherwise each budget is
+    solved afresh on the shared reduced instance.
+    """
+    red = _reduce(inst, reduce)
+    milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
+    session = backend.open(milp, settings) if milp is not None and budgets.max() > 0 else None
+    order = np.argsort(budgets, kind="stable")
+    plans = [None] * len(budgets)
+    if session is None:
+        for k in order:
+            inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(budgets[k]), inst.max_count, inst.conflicts,
+                               inst.load_cap)
+            plans[k] = _solve(inst_k, "max", None, settings, backend, reduce, warm_start, red=red)
+        return plans
+    asm = Assembly.start(inst, red, "max", None, settings.mip_gap, backend.name, reduce, {}, time.perf_counter())
+    prev = _NONE
+    for k in order:
+        plans[k] = _sweep_step(asm.for_budget(budgets[k]), milp, session, prev, settings, warm_start)
+        if len(plans[k].chosen):
+            prev = np.sort(np.searchsorted(red.opt, plans[k].chosen))
+    return plans
+
+
+def _sweep_step(asm: Assembly, milp: _Milp, session: Session, prev, settings: SolverSettings, warm_start) -> Plan:
+    """One budget of the sweep on the kept model (budget row lowered to ``asm.inst.budget``)."""
+    plan = settled_plan(asm)
+    if plan is not None:
+        return plan
+    inst, red, budget = asm.inst, asm.red, asm.inst.budget
+    t1 = time.perf_counter()
+    g_red = _greedy_plan(red, budget, inst.max_count)[0] if warm_start else _NONE
+    gval = covered_weight(inst, red, g_red)
+    start_red = prev if covered_weight(inst, red, prev) >= gval and len(prev) else g_red
+    asm.timings["greedy"] = time.perf_counter() - t1
+    session.set_row_upper(milp.budget_row, budget)
+    milp.row_hi[milp.budget_row] = budget
+    start = _start_vector(red, milp, start_red) if len(start_red) else None
+    t3 = time.perf_counter()
+    res = session.run(start)
+    asm.timings["solve"] = time.perf_counter() - t3
+    return plan_from_result(res, asm, milp, g_red, max(gval, 0.0), settings.time_limit_s)
