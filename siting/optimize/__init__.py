@@ -72,12 +72,29 @@ The default path builds the HiGHS model directly from the sparse arrays (``highs
 lazy greedy plus swap local search: the better of the cost-effectiveness greedy and the best single
 option, as in S. Khuller, A. Moss and J. Naor, "The budgeted maximum coverage problem", Information
 Processing Letters 70(1), 1999, DOI 10.1016/S0020-0190(99)00031-9.  With ``reduce=True`` it is staged
-(:func:`_highs_staged`): LP relaxation; the warm start improved by an exact solve over the options the LP
+(:class:`HighsBackend`, see ``backends._StagedSolve``): LP relaxation; the warm start improved by an exact solve over the options the LP
 uses; reduced-cost fixing against that incumbent (5. in the list above); then the integer program with
 HiGHS's defaults, preceded on models of middle size by a few nodes without root restarts.  ``solver="cbc"``
 builds the same model through PuLP and runs the CBC binary bundled with PuLP under a hard wall-clock timer
 (CBC ignores its own limit during the root LP).  The status is read from the solver's solution status and
 its dual bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).
+
+The solver is chosen by passing a back end object (``backend=HighsBackend(...)`` or ``CbcBackend()``, or
+anything with their ``solve``/``open`` methods, see :class:`Backend`); the solver keywords may be given as
+one :class:`SolverSettings`.
+
+Modules
+-------
+``problem``     argument checks, the validated instance
+``settings``    :class:`SolverSettings`
+``reductions``  reductions 1-4 and the component count
+``model``       the integer program as sparse arrays (rows, start vectors, feasibility check, PuLP export)
+``backends``    the :class:`Backend` protocol, :class:`HighsBackend` (staged path), :class:`CbcBackend`
+``heuristics``  greedy, swap local search, the min-cost greedy, pruning of a solver plan
+``assemble``    :class:`Plan` and the one assembly path from chosen options to a plan
+``solve``       one solve, and the sweep over budgets
+``ranking``     ranking of the chosen options and backup spots
+``api``         the public functions
 """
 
 from .api import budget_sweep, greedy, lp_relaxation_bound, min_cost_cover, solve_coverage, solve_tables, write_lp

@@ -183,7 +183,10 @@ class Assembly:
         """The plan of options ``chosen_red`` (reduced numbering); ``bound_raw`` before it meets the plan."""
         inst, red = self.inst, self.red
         chosen = red.opt[chosen_red] if len(chosen_red) else np.zeros(0, np.int64)
-        covered = _capped_served(inst, red, chosen_red, z) if inst.load_cap is not None else _covered_users(inst, chosen)
+        if inst.load_cap is not None:
+            covered = _capped_served(inst, red, chosen_red, z)
+        else:
+            covered = _covered_users(inst, chosen)
         objective = float(inst.w[covered].sum())
         cost = float(inst.c[chosen].sum()) if len(chosen) else 0.0
         m = self.plan_mode
@@ -212,7 +215,8 @@ def settled_plan(asm: Assembly) -> Plan | None:
     empty = np.zeros(0, np.int64)
     n, m = red.C.shape
     if mode == "min" and target <= 1e-9 * float(inst.w.sum()):  # zero within floating-point noise of the total
-        return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="target_met", reason="the target weight is already met")
+        return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="target_met",
+                        reason="the target weight is already met")
     if n == 0 or m == 0:
         if mode == "min":
             raise SolverError(

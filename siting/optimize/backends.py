@@ -338,7 +338,8 @@ class _StagedSolve:
             keep[idx[(idx < n) & (val > 0.5)]] = True
         r = self.backend.run(self.new(replace(milp, col_hi=np.where(keep, milp.col_hi, 0.0)), inc), start,
                              min(self.left(), max(1.0, 0.1 * float(self.settings.time_limit_s))))
-        if r.values is not None and _satisfies(milp, r.values) and (inc is None or milp.obj @ r.values < milp.obj @ inc):
+        feasible = r.values is not None and _satisfies(milp, r.values)
+        if feasible and (inc is None or milp.obj @ r.values < milp.obj @ inc):
             return r.values, True
         return inc, False
 

@@ -27,7 +27,10 @@ class _Greedy:
     def __init__(self, C, w, c, site, budget, max_count, conflicts):
         self.C, self.w, self.c = C, w, c
         self.n = C.shape[0]
-        self.lookup, self.sidx = np.unique(site, return_inverse=True) if len(site) else (np.zeros(0, int), np.zeros(0, int))
+        if len(site):
+            self.lookup, self.sidx = np.unique(site, return_inverse=True)
+        else:
+            self.lookup, self.sidx = np.zeros(0, int), np.zeros(0, int)
         ns = len(self.lookup)
         cf = np.zeros((0, 2), np.int64)
         if len(conflicts) and ns:

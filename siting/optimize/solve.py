@@ -41,7 +41,8 @@ def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Bac
     t2 = time.perf_counter()
     milp = _build(red, inst.budget, inst.max_count, mode=mode, target=model_target)
     timings["build"] = time.perf_counter() - t2
-    start = _start_vector(red, milp, greedy_red) if (warm_start and greedy_red is not None and len(greedy_red)) else None
+    usable = warm_start and greedy_red is not None and len(greedy_red) > 0
+    start = _start_vector(red, milp, greedy_red) if usable else None
     t3 = time.perf_counter()
     res = backend.solve(milp, start, settings, staged=reduce)
     timings["solve"] = time.perf_counter() - t3
