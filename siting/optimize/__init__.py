@@ -72,9 +72,10 @@ The default path builds the HiGHS model directly from the sparse arrays (``highs
 lazy greedy plus swap local search: the better of the cost-effectiveness greedy and the best single
 option, as in S. Khuller, A. Moss and J. Naor, "The budgeted maximum coverage problem", Information
 Processing Letters 70(1), 1999, DOI 10.1016/S0020-0190(99)00031-9.  With ``reduce=True`` it is staged
-(:class:`HighsBackend`, see ``backends._StagedSolve``): LP relaxation; the warm start improved by an exact solve over the options the LP
-uses; reduced-cost fixing against that incumbent (5. in the list above); then the integer program with
-HiGHS's defaults, preceded on models of middle size by a few nodes without root restarts.  ``solver="cbc"``
+(:class:`HighsBackend`, ``backends._StagedSolve``): LP relaxation; the warm start improved by an exact
+solve over the options the LP uses; reduced-cost fixing against that incumbent (5. in the list above); then
+the integer program with HiGHS's defaults, preceded on models of middle size by a few nodes without root
+restarts.  ``solver="cbc"``
 builds the same model through PuLP and runs the CBC binary bundled with PuLP under a hard wall-clock timer
 (CBC ignores its own limit during the root LP).  The status is read from the solver's solution status and
 its dual bound, never from a status string alone (PuLP reports "Optimal" for time-limited runs).

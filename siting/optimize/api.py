@@ -168,6 +168,25 @@ def solve_tables(options: pd.DataFrame, coverage: pd.DataFrame, users: pd.DataFr
     Other keyword arguments go to :func:`solve_coverage` / :func:`min_cost_cover`; ``option_wall`` may be
     given as a column name of ``options``.
     """
+    cover, dcov = _table_arrays(options, coverage, users, direct)
+    w = users["weight"].to_numpy(float)
+    wall = kwargs.pop("option_wall", None)
+    if isinstance(wall, str):
+        wall = options[wall].to_numpy()
+    args = (cover, w, options["cost"].to_numpy(float), options["site_id"].to_numpy(np.int64))
+    if target_share is not None:
+        if not (0 <= float(target_share) <= 1):
+            raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
+        need = float(target_share) * float(w.sum()) - float(w[dcov].sum())
+        plan = min_cost_cover(*args, max(need, 0.0), option_wall=wall, **kwargs)
+    else:
+        plan = solve_coverage(*args, option_wall=wall, **kwargs)
+    plan.model_size["direct_weight"] = float(w[dcov].sum())
+    return plan
+
+
+def _table_arrays(options, coverage, users, direct):
+    """(cover relation without directly covered users, directly covered per user) from the pipeline tables."""
     from ..tables import check
 
     check(options, "options", "optimiser input")
@@ -198,17 +217,4 @@ def solve_tables(options: pd.DataFrame, coverage: pd.DataFrame, users: pd.DataFr
     keep = ~dcov[ui]
     cover = sp.csr_array((np.ones(int(keep.sum()), bool), (oi[keep], ui[keep])), shape=(n_opt, n_user))
     cover.sum_duplicates()
-    w = users["weight"].to_numpy(float)
-    wall = kwargs.pop("option_wall", None)
-    if isinstance(wall, str):
-        wall = options[wall].to_numpy()
-    args = (cover, w, options["cost"].to_numpy(float), options["site_id"].to_numpy(np.int64))
-    if target_share is not None:
-        if not (0 <= float(target_share) <= 1):
-            raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
-        need = float(target_share) * float(w.sum()) - float(w[dcov].sum())
-        plan = min_cost_cover(*args, max(need, 0.0), option_wall=wall, **kwargs)
-    else:
-        plan = solve_coverage(*args, option_wall=wall, **kwargs)
-    plan.model_size["direct_weight"] = float(w[dcov].sum())
-    return plan
+    return cover, dcov

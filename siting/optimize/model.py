@@ -57,13 +57,62 @@ def _site_rows(site, conflicts):
 
 
 def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
-    C, w, c = red.C, red.w, red.c
-    n, m = C.shape
-    capped = red.cap is not None
-    # tie-break weight: whole cost term below _EPS_SHARE of the smallest positive weight
+    """The model of the package docstring: maximum coverage (``mode='max'``) or minimum cost for ``target``."""
+    c = red.c
+    n = red.C.shape[0]
+    eps, cost_cap = _tie_break(red, budget, max_count, mode)
+    rows = _Rows()
+    if red.cap is None:
+        obj, col_hi, integer, val_row = _cover_rows(red, eps, mode, rows)
+    else:
+        obj, col_hi, integer, val_row = _assignment_rows(red, eps, mode, rows)
+    nv = len(obj)
+    SR = _site_rows(red.site, red.conflicts)
+    if SR.shape[0]:
+        rows.add(sp.hstack([SR, sp.csr_array((SR.shape[0], nv - n))], format="csr"), np.full(SR.shape[0], -_INF),
+                 np.ones(SR.shape[0]))
+    budget_row = target_row = -1
+    if budget is not None:
+        budget_row = rows.add(sp.csr_array(np.r_[c, np.zeros(nv - n)][None, :]), [-_INF], [budget])
+    if max_count is not None:
+        rows.add(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]), [-_INF], [float(max_count)])
+    if mode == "min":
+        target_row = rows.add(sp.csr_array(val_row[None, :]), [target], [_INF])
+    A, row_lo, row_hi = rows.stacked(nv)
+    return _Milp(obj, A, row_lo, row_hi, np.zeros(nv), col_hi, integer, n, budget_row, target_row, eps * cost_cap,
+                 -1.0 if mode == "max" else 1.0, eps)
+
+
+class _Rows:
+    """Row blocks of a model with their bounds, stacked at the end."""
+
+    def __init__(self):
+        self.blocks, self.lo, self.hi, self.n = [], [], [], 0
+
+    def add(self, block, lo, hi) -> int:
+        """Append a block of rows; returns the index of its first row."""
+        first = self.n
+        self.blocks.append(block)
+        self.lo.append(lo)
+        self.hi.append(hi)
+        self.n += block.shape[0]
+        return first
+
+    def stacked(self, nv):
+        A = sp.csr_array(sp.vstack(self.blocks, format="csr")) if self.blocks else sp.csr_array((0, nv))
+        A.sort_indices()
+        lo = np.concatenate([np.asarray(v, float) for v in self.lo]) if self.lo else np.zeros(0)
+        hi = np.concatenate([np.asarray(v, float) for v in self.hi]) if self.hi else np.zeros(0)
+        return A, lo, hi
+
+
+def _tie_break(red: _Reduced, budget, max_count, mode):
+    """(tie-break weight per unit cost, the largest cost a plan can have): the whole cost term stays below
+    ``_EPS_SHARE`` of the smallest positive weight (maximum coverage only; 0 for minimum cost)."""
+    w, c = red.w, red.c
     pos = w[w > 0]
     wmin = pos.min() if len(pos) else 1.0
-    if n:
+    if red.C.shape[0]:
         per_site_max = pd.Series(c).groupby(red.site).max().to_numpy()
         caps = [per_site_max.sum()]
         if budget is not None:
@@ -73,85 +122,55 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
         cost_cap = max(min(caps), _TINY)
     else:
         cost_cap = 1.0
-    eps = _EPS_SHARE * wmin / cost_cap if mode == "max" else 0.0
-    blocks = []
-    lo, hi = [], []
-    if not capped:
-        # users whose covering options all sit at one site: y_i = sum_j x_j exactly (at most one option per
-        # site, and maximising pushes y_i up to it), so their weight moves onto the x_j and the cover row
-        # and y_i go away.  Same LP relaxation, fewer rows.
-        loc = _site_local(red) if red.reduced else np.zeros(m, bool)
-        keep = np.flatnonzero(~loc)
-        xw = C.astype(float) @ np.where(loc, w, 0.0)  # weight each option brings through local users
-        Ck = C[:, keep]
-        wk = w[keep]
-        mk = len(keep)
-        nv = n + mk
-        obj = np.r_[eps * c - xw, -wk] if mode == "max" else np.r_[c, np.zeros(mk)]
-        col_lo = np.zeros(nv)
-        col_hi = np.ones(nv)
-        integer = np.r_[np.ones(n, bool), np.zeros(mk, bool)]
-        cov = sp.hstack([-Ck.T.astype(float), sp.eye_array(mk, format="csr")], format="csr")
-        blocks.append(cov)
-        lo.append(np.full(mk, -_INF))
-        hi.append(np.zeros(mk))
-        val_row = np.r_[xw, wk]
-    else:
-        nnz = C.nnz
-        rowj = np.repeat(np.arange(n), np.diff(C.indptr))
-        coli = C.indices
-        nv = n + nnz
-        wz = w[coli]
-        obj = np.r_[eps * c, -wz] if mode == "max" else np.r_[c, np.zeros(nnz)]
-        col_lo = np.zeros(nv)
-        col_hi = np.r_[np.ones(n), red.mult[coli].astype(float)]
-        integer = np.ones(nv, bool)
-        zk = np.arange(nnz)
-        # class rows: sum_j z_ji <= m_i
-        blocks.append(sp.csr_array((np.ones(nnz), (coli, n + zk)), shape=(m, nv)))
-        lo.append(np.full(m, -_INF))
-        hi.append(red.mult.astype(float))
-        # z_ji - m_i x_j <= 0
-        blocks.append(sp.csr_array((np.r_[np.ones(nnz), -red.mult[coli].astype(float)],
-                                    (np.r_[zk, zk], np.r_[n + zk, rowj])), shape=(nnz, nv)))
-        lo.append(np.full(nnz, -_INF))
-        hi.append(np.zeros(nnz))
-        # sum_i w_i z_ji - L_j x_j <= 0
-        blocks.append(sp.csr_array((np.r_[wz, -red.cap], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
-                                   shape=(n, nv)))
-        lo.append(np.full(n, -_INF))
-        hi.append(np.zeros(n))
-        val_row = np.r_[np.zeros(n), wz]
-    SR = _site_rows(red.site, red.conflicts)
-    if SR.shape[0]:
-        blocks.append(sp.hstack([SR, sp.csr_array((SR.shape[0], nv - n))], format="csr"))
-        lo.append(np.full(SR.shape[0], -_INF))
-        hi.append(np.ones(SR.shape[0]))
-    nrow = sum(b.shape[0] for b in blocks)
-    budget_row = target_row = -1
-    if budget is not None:
-        blocks.append(sp.csr_array(np.r_[c, np.zeros(nv - n)][None, :]))
-        lo.append([-_INF])
-        hi.append([budget])
-        budget_row = nrow
-        nrow += 1
-    if max_count is not None:
-        blocks.append(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]))
-        lo.append([-_INF])
-        hi.append([float(max_count)])
-        nrow += 1
-    if mode == "min":
-        blocks.append(sp.csr_array(val_row[None, :]))
-        lo.append([target])
-        hi.append([_INF])
-        target_row = nrow
-        nrow += 1
-    A = sp.csr_array(sp.vstack(blocks, format="csr")) if blocks else sp.csr_array((0, nv))
-    A.sort_indices()
-    return _Milp(obj, A, np.concatenate([np.asarray(v, float) for v in lo]) if lo else np.zeros(0),
-                 np.concatenate([np.asarray(v, float) for v in hi]) if hi else np.zeros(0),
-                 col_lo, col_hi, integer, n, budget_row, target_row, eps * cost_cap,
-                 -1.0 if mode == "max" else 1.0, eps)
+    return (_EPS_SHARE * wmin / cost_cap if mode == "max" else 0.0), cost_cap
+
+
+def _cover_rows(red: _Reduced, eps, mode, rows: _Rows):
+    """Without a load cap: variables x (options) and y (user classes), the cover rows ``y_i <= sum_j C x_j``.
+
+    Users whose covering options all sit at one site: y_i = sum_j x_j exactly (at most one option per site,
+    and maximising pushes y_i up to it), so their weight moves onto the x_j and the cover row and y_i go
+    away.  Same LP relaxation, fewer rows.  Returns (objective, column upper bounds, integrality, weight row).
+    """
+    C, w, c = red.C, red.w, red.c
+    n, m = C.shape
+    loc = _site_local(red) if red.reduced else np.zeros(m, bool)
+    keep = np.flatnonzero(~loc)
+    xw = C.astype(float) @ np.where(loc, w, 0.0)  # weight each option brings through local users
+    Ck = C[:, keep]
+    wk = w[keep]
+    mk = len(keep)
+    obj = np.r_[eps * c - xw, -wk] if mode == "max" else np.r_[c, np.zeros(mk)]
+    integer = np.r_[np.ones(n, bool), np.zeros(mk, bool)]
+    rows.add(sp.hstack([-Ck.T.astype(float), sp.eye_array(mk, format="csr")], format="csr"), np.full(mk, -_INF),
+             np.zeros(mk))
+    return obj, np.ones(n + mk), integer, np.r_[xw, wk]
+
+
+def _assignment_rows(red: _Reduced, eps, mode, rows: _Rows):
+    """With a load cap: variables x (options) and z_ji (class i assigned to option j), their three row blocks.
+
+    Returns (objective, column upper bounds, integrality, weight row).
+    """
+    C, w, c = red.C, red.w, red.c
+    n, m = C.shape
+    nnz = C.nnz
+    rowj = np.repeat(np.arange(n), np.diff(C.indptr))
+    coli = C.indices
+    nv = n + nnz
+    wz = w[coli]
+    obj = np.r_[eps * c, -wz] if mode == "max" else np.r_[c, np.zeros(nnz)]
+    col_hi = np.r_[np.ones(n), red.mult[coli].astype(float)]
+    zk = np.arange(nnz)
+    # class rows: sum_j z_ji <= m_i
+    rows.add(sp.csr_array((np.ones(nnz), (coli, n + zk)), shape=(m, nv)), np.full(m, -_INF), red.mult.astype(float))
+    # z_ji - m_i x_j <= 0
+    rows.add(sp.csr_array((np.r_[np.ones(nnz), -red.mult[coli].astype(float)], (np.r_[zk, zk], np.r_[n + zk, rowj])),
+                          shape=(nnz, nv)), np.full(nnz, -_INF), np.zeros(nnz))
+    # sum_i w_i z_ji - L_j x_j <= 0
+    rows.add(sp.csr_array((np.r_[wz, -red.cap], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
+                          shape=(n, nv)), np.full(n, -_INF), np.zeros(n))
+    return obj, col_hi, np.ones(nv, bool), np.r_[np.zeros(n), wz]
 
 
 def _start_vector(red: _Reduced, milp: _Milp, chosen_red: np.ndarray):

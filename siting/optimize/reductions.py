@@ -104,12 +104,14 @@ def _dominated(k, j, nnz, c, site, cap, pinned, alive):
 
 
 def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
+    """The instance after reductions 1-4 of the package docstring (``reduce=False``: unchanged, one class per user)."""
     C, w = inst.C, inst.w
     n_opt, n_user = C.shape
     stats = {"options_in": n_opt, "users_in": n_user}
     if not reduce:
         return _Reduced(np.arange(n_opt), np.arange(n_user), C, w.copy(), np.ones(n_user, np.int64), inst.c,
                         inst.site, inst.load_cap, inst.conflicts, stats, reduced=False)
+    # 1-2. users of zero weight or covered by no option, then options covering none of the rest
     col_cnt = np.bincount(C.indices, minlength=n_user)
     users = np.flatnonzero((col_cnt > 0) & (w > 0))
     Cu = C[:, users]
@@ -118,6 +120,28 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     stats["users_dropped"] = int(n_user - len(users))
     stats["options_empty_dropped"] = int(n_opt - len(opts))
     cap = None if inst.load_cap is None else inst.load_cap[opts]
+    # 3. dominated options
+    alive = _undominated(inst, opts, Cu, cap)
+    stats["options_dominated_dropped"] = int(len(opts) - alive.sum())
+    opts = opts[alive]
+    Cu = sp.csr_array(Cu[np.flatnonzero(alive)])
+    cap = None if cap is None else cap[alive]
+    # 4. users with identical covering sets (and, with a load cap, identical weight) merged into classes
+    wu = w[users]
+    cls, first, Cm = _user_classes(Cu, wu, inst.load_cap is not None)
+    n_cls = len(first)
+    mult = np.bincount(cls, minlength=n_cls).astype(np.int64)
+    wc = np.bincount(cls, weights=wu, minlength=n_cls)
+    if inst.load_cap is not None:
+        wc = wu[first]  # per-user weight, identical within a class
+    user_class = np.full(n_user, -1, np.int64)
+    user_class[users] = cls
+    stats["users_merged"] = int(len(users) - n_cls)
+    return _Reduced(opts, user_class, Cm, wc, mult, inst.c[opts], inst.site[opts], cap, inst.conflicts, stats)
+
+
+def _undominated(inst: _Instance, opts, Cu, cap) -> np.ndarray:
+    """Bool per kept option: not dropped by rounds of reduction 3 (``opts``: caller's indices, ``Cu``: rows)."""
     pinned_sites = np.unique(inst.conflicts) if len(inst.conflicts) else np.zeros(0, inst.site.dtype)
     # the superset relation between two options does not depend on the others: find the pairs once
     pk, pj = _superset_pairs(Cu)
@@ -129,12 +153,15 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
         if not dom.any():
             break
         alive &= ~dom
-    n_dom = int(len(opts) - alive.sum())
-    opts = opts[alive]
-    Cu = sp.csr_array(Cu[np.flatnonzero(alive)])
-    cap = None if cap is None else cap[alive]
-    stats["options_dominated_dropped"] = n_dom
-    # merge users with identical covering sets: two independent 64-bit random hashes per column
+    return alive
+
+
+def _user_classes(Cu, wu, by_weight: bool):
+    """(class per user, first user of each class, options x classes relation) for users of equal columns.
+
+    Columns are grouped by two independent 64-bit random hashes and their length (and the weight when
+    ``by_weight``), then the grouping is verified exactly.
+    """
     Cc = sp.csc_array(Cu)
     rng = np.random.default_rng(20240521)
     r1 = rng.integers(1, 2**62, size=Cu.shape[0], dtype=np.int64).astype(np.uint64)
@@ -147,8 +174,7 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
         np.add.at(h2, colid, r2[Cc.indices] * r1[Cc.indices])
     col_n = np.diff(Cc.indptr)
     keys = [h1, h2, col_n.astype(np.uint64)]
-    wu = w[users]
-    if inst.load_cap is not None:
+    if by_weight:
         keys.append(wu.view(np.uint64))
     key = np.stack(keys, axis=1)
     _, first, cls = np.unique(key, axis=0, return_index=True, return_inverse=True)
@@ -158,23 +184,16 @@ def _reduce(inst: _Instance, reduce: bool) -> _Reduced:
     R = sp.csr_array((np.ones(len(cls)), (np.arange(len(cls)), cls)), shape=(len(cls), len(first)))
     Cm = sp.csr_array((Cu.astype(np.float64) @ R) > 0)
     if not np.array_equal(np.bincount(Cm.indices, minlength=len(first)), col_n[first]):  # pragma: no cover
-        cls = np.arange(len(users))
+        cls = np.arange(len(wu))
         Cm = Cu
-        first = np.arange(len(users))
-    n_cls = len(first)
-    mult = np.bincount(cls, minlength=n_cls).astype(np.int64)
-    wc = np.bincount(cls, weights=wu, minlength=n_cls)
-    if inst.load_cap is not None:
-        wc = wu[first]  # per-user weight, identical within a class
-    user_class = np.full(n_user, -1, np.int64)
-    user_class[users] = cls
-    stats["users_merged"] = int(len(users) - n_cls)
+        first = np.arange(len(wu))
     Cm = sp.csr_array(Cm, dtype=bool)
     Cm.sort_indices()
-    return _Reduced(opts, user_class, Cm, wc, mult, inst.c[opts], inst.site[opts], cap, inst.conflicts, stats)
+    return cls, first, Cm
 
 
 def _components(red: _Reduced) -> int:
+    """Connected components of the option-class graph, joined through sites and conflicts (options only)."""
     n, m = red.C.shape
     if n == 0:
         return 0
