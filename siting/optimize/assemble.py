@@ -70,6 +70,7 @@ class Plan:
 
 
 def _covered_users(inst: _Instance, chosen: np.ndarray) -> np.ndarray:
+    """Bool per caller's user: covered by one of the options ``chosen`` (caller's numbering)."""
     cov = np.zeros(inst.C.shape[1], bool)
     if len(chosen):
         cov[inst.C[chosen].indices] = True
@@ -109,6 +110,7 @@ def _capped_served(inst: _Instance, red: _Reduced, chosen_red: np.ndarray, z: np
 
 
 def _message(mode, status, objective, bound, gap, cost, n, total, solver, target=None, reason=""):
+    """The plan in one plain sentence for the report."""
     share = objective / total if total > 0 else 0.0
     if n == 0 and reason:
         return f"No surface is placed: {reason}."
@@ -127,6 +129,7 @@ def _message(mode, status, objective, bound, gap, cost, n, total, solver, target
 
 
 def _finish_gap(mode, objective, cost, bound):
+    """(bound, relative gap) once the plan is known: a bound never weaker than the plan itself."""
     if mode == "max_coverage":
         bound = max(bound, objective)
         return bound, (bound - objective) / max(bound, _TINY) if bound > 0 else 0.0

@@ -21,7 +21,7 @@ from .problem import _INF, _TINY
 from .settings import SolverSettings
 
 # a start point: (column indices, values); HiGHS completes a partial one
-Start = tuple
+Start = tuple[np.ndarray, np.ndarray]
 
 
 @dataclass
@@ -306,11 +306,9 @@ class _StagedSolve:
             return SolveResult(inc, z_inc, z_lp, "optimal", "the LP bound meets the incumbent")
         drop = (x_lp <= 1e-9) & (d > z_inc - z_lp + 1e-6 * (1.0 + abs(z_lp)))
         fixed = replace(milp, col_hi=np.where(np.r_[drop, np.zeros(nv - n, bool)], 0.0, milp.col_hi))
-
-        def merged(res):
-            return self.merged(res, inc, z_inc, z_lp, from_solver, int(drop.sum()))
-
-        return self.fixed_model(fixed, (np.arange(nv), inc), merged)
+        n_fixed = int(drop.sum())
+        return self.fixed_model(fixed, (np.arange(nv), inc),
+                                lambda res: self.merged(res, inc, z_inc, z_lp, from_solver, n_fixed))
 
     def lp_relaxation(self):
         """(x, reduced costs, objective) of the LP relaxation's options, or None without an optimal LP."""

@@ -13,6 +13,7 @@ from .reductions import _Reduced
 
 
 def _conflict_adj(site, conflicts, n_sites):
+    """Symmetric boolean site adjacency of the conflict pairs (pairs beyond ``n_sites`` ignored), or None."""
     if len(conflicts) == 0:
         return None
     a, b = conflicts[:, 0], conflicts[:, 1]
@@ -161,6 +162,7 @@ class _Greedy:
 
 
 def _greedy_plan(red: _Reduced, budget, max_count, local=True, ls_time_s=10.0):
+    """(sorted greedy plan in reduced numbering, the greedy object): Khuller's rule, then swaps if ``local``."""
     g = _Greedy(red.C, red.w * red.mult if red.cap is not None else red.w, red.c, red.site, budget, max_count,
                 red.conflicts)
     ch = g.khuller()
