@@ -314,7 +314,7 @@ def combined_level_quantile_db(direct_db, sigma_direct_db, surface_db, sigma_sur
     q_s = s - ss * z
     out = np.maximum(q_d, q_s)                         # one path absent: the other alone
     both = np.isfinite(d) & np.isfinite(s)
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):
         fixed = both & (sd == 0.0) & (ss == 0.0)
         if coherent:
             det = 20.0 * np.log10(10.0 ** ((d - out) / 20.0) + 10.0 ** ((s - out) / 20.0)) + out
