@@ -4,7 +4,8 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from siting.radio import RadioInputError, bs_gain_toward_dbi, local_angles_deg, sector_gain_dbi
+from siting.radio import (RadioInputError, array_size_for_gain, bs_beam_gain_dbi, bs_gain_toward_dbi,
+                          local_angles_deg, sector_gain_dbi)
 
 
 def test_boresight_is_max_gain():
@@ -111,7 +112,6 @@ def test_bad_input():
 
 def test_array_size_for_gain():
     # smallest square n x n with 8 + 10 log10(n^2) >= G (TR 38.901 Table 7.3-1 element of 8 dBi)
-    from siting.radio import array_size_for_gain
     assert array_size_for_gain(5.0) == (1, 1)
     assert array_size_for_gain(8.0) == (1, 1)
     assert array_size_for_gain(20.0) == (4, 4)                       # 8 + 12.04 >= 20 > 8 + 10 log10(9)
@@ -131,7 +131,6 @@ def test_beam_worked_array_factor_4x4():
     # uniform planar array factor (C. A. Balanis, Antenna Theory, uniform array; equation number from memory):
     # lambda/2 spacing, 4 columns, broadside beam, target at sin(az) = 0.25: psi = pi/8,
     # |AF|^2 / N^2 = (sin(4 psi) / (4 sin psi))^2 = 0.42678 -> -3.698 dB, plus the element A of TR 38.901 Table 7.3-1
-    from siting.radio import bs_beam_gain_dbi
     az = np.degrees(np.arcsin(0.25))
     af_db = 10 * np.log10((np.sin(4 * np.pi / 8) / (4 * np.sin(np.pi / 8))) ** 2)
     assert af_db == pytest.approx(-3.698, abs=1e-3)
@@ -147,7 +146,6 @@ def test_beam_worked_array_factor_4x4():
 def test_beam_never_above_envelope_and_equal_at_steering():
     # property (seeded random): gain toward any target <= TR 38.901 envelope toward that target; at the
     # steering point the beam equals the envelope bs_gain_toward_dbi
-    from siting.radio import bs_beam_gain_dbi
     rng = np.random.default_rng(21)
     n = 5000
     tgt = rng.normal(size=(3, n)) * [[200], [200], [15]]
@@ -168,7 +166,6 @@ def test_beam_never_above_envelope_and_equal_at_steering():
 
 def test_beam_omni_and_single_element():
     # omni: max gain everywhere (no beam); a 1 x 1 array (G <= 8 dBi) is the envelope itself
-    from siting.radio import bs_beam_gain_dbi
     rng = np.random.default_rng(2)
     tgt = rng.normal(size=(3, 50)) * 100
     steer = rng.normal(size=(3, 50)) * 100

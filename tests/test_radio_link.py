@@ -3,9 +3,11 @@
 import numpy as np
 import pytest
 from scipy import constants
+from scipy.integrate import quad
 
-from siting.radio import (SHANNON_DL, RadioInputError, coherent_snr_db, db_to_linear, linear_to_db,
-                          noise_power_dbm, spectral_efficiency_bps_hz)
+from siting.radio import (SHANNON_DL, RadioInputError, band_average_two_path_power, coherent_snr_db,
+                          db_to_linear, linear_to_db, noise_power_dbm, power_sum_snr_db,
+                          spectral_efficiency_bps_hz)
 
 
 @pytest.mark.parametrize("b_hz, nf_db, expected", [
@@ -84,7 +86,6 @@ def test_db_round_trip():
 
 def test_power_sum_adds_powers():
     # SNR = P (beta_d + beta_s) / sigma^2 (power sum, channel average over a wide band): equal paths -> +3.01 dB
-    from siting.radio import power_sum_snr_db
     one = power_sum_snr_db(20.0, -100.0, -np.inf, -90.0)
     both = power_sum_snr_db(20.0, -100.0, -100.0, -90.0)
     assert one == pytest.approx(10.0)
@@ -105,8 +106,6 @@ def test_power_sum_adds_powers():
 
 def _band_average_quad(a, b, tau, bw, phi):
     # direct numerical integration of (1/B) int_{-B/2}^{B/2} |a e^{j phi} + b e^{j 2 pi f tau}|^2 df (scipy quad)
-    from scipy.integrate import quad
-
     def integrand(f):
         return abs(a * np.exp(1j * phi) + b * np.exp(2j * np.pi * f * tau)) ** 2
 
@@ -115,7 +114,6 @@ def _band_average_quad(a, b, tau, bw, phi):
 
 def test_band_average_whole_cycles_is_power_sum():
     # mathematics: the cross term vanishes when B tau is a whole number; checked by scipy quad as well
-    from siting.radio import band_average_two_path_power
     a, b = 0.8 - 0.3j, 0.5 + 0.4j
     bw = 400e6
     for cycles in (1, 3, 101):
@@ -127,7 +125,6 @@ def test_band_average_whole_cycles_is_power_sum():
 
 def test_band_average_matches_quad_random():
     # closed form |a|^2 + |b|^2 + 2 Re(a conj(b) e^{j phi}) sinc(B tau) against scipy.integrate.quad
-    from siting.radio import band_average_two_path_power
     rng = np.random.default_rng(9)
     for _ in range(25):
         a = complex(*rng.normal(size=2))

@@ -17,9 +17,8 @@ from .link import (SHANNON_DL, THERMAL_NOISE_DBM_HZ, band_average_two_path_power
                    linear_to_db, noise_power_dbm, power_sum_snr_db, spectral_efficiency_bps_hz)
 from .nearfield import (element_gain_exact, irs_gain_exact, mirror_limit_gain, n_max_far_field,
                         planar_array_gain, planar_array_gain_broadside)
-from .pathloss import (MODELS, breakpoint_distance_m, direct_path_loss_db, free_space_path_loss_db,
-                       fresnel_radius_m, direct_model_fit, los_excess_db,
-                       los_probability_uma, los_probability_umi, uma_los_db, uma_nlos_db,
+from .pathloss import (MODELS, breakpoint_distance_m, direct_model_fit, direct_path_loss_db,
+                       free_space_path_loss_db, fresnel_radius_m, los_excess_db, los_probability_uma, los_probability_umi, uma_los_db, uma_nlos_db,
                        umi_street_canyon_los_db, umi_street_canyon_nlos_db)
 from .surface import (element_sum_gain, far_field_gain, fraunhofer_distance_m, quantisation_efficiency,
                       surface_gain, tile_counts)
@@ -37,7 +36,7 @@ __all__ = [
     "element_gain_exact", "irs_gain_exact", "mirror_limit_gain", "n_max_far_field",
     "planar_array_gain", "planar_array_gain_broadside",
     "MODELS", "breakpoint_distance_m", "direct_path_loss_db", "free_space_path_loss_db",
-    "fresnel_radius_m", "direct_model_fit", "los_excess_db",
+    "direct_model_fit", "fresnel_radius_m", "los_excess_db",
     "los_probability_uma", "los_probability_umi", "uma_los_db", "uma_nlos_db",
     "umi_street_canyon_los_db", "umi_street_canyon_nlos_db",
     "element_sum_gain", "far_field_gain", "fraunhofer_distance_m", "quantisation_efficiency",

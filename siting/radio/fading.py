@@ -182,7 +182,7 @@ def _solve_rows(d, sd, s, ss, p, m):
     """Exact quantile for rows with both paths finite and at least one sigma > 0."""
     z, z2 = ndtri(p), ndtri(0.5 * p)
     lo = np.maximum(d - sd * z, s - ss * z)
-    hi = np.maximum(d - sd * z2, s - ss * z2) + 10.0 * np.log10(2.0) * (m / 10.0)   # + 3.01 (power) or + 6.02 dB (amplitude)
+    hi = np.maximum(d - sd * z2, s - ss * z2) + 10.0 * np.log10(2.0) * (m / 10.0)   # + 3.01 / + 6.02 dB
     swap = sd < ss                                  # quadrature over the path with the smaller sigma
     c, s_c = np.where(swap, s, d), np.where(swap, ss, sd)
     q, s_q = np.where(swap, d, s), np.where(swap, sd, ss)
