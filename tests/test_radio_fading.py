@@ -142,6 +142,13 @@ def test_quantile_table_path_agrees_with_direct_solution_and_timing():
     idx = rng.choice(n, 2000, replace=False)
     small = combined_level_quantile_db(d[idx], sd[idx], s[idx], ss[idx], 0.9)   # below the table threshold
     np.testing.assert_allclose(big[idx], small, atol=1e-3)
+    # amplitude sum, level differences far beyond the table span (single-path quantile used there)
+    m = 50_000
+    s_wide = rng.uniform(-400, 200, m)
+    big = combined_level_quantile_db(d[:m], sd[:m], s_wide, ss[:m], 0.95, "coherent")
+    j = rng.choice(m, 500, replace=False)
+    small = combined_level_quantile_db(d[j], sd[j], s_wide[j], ss[j], 0.95, "coherent")
+    np.testing.assert_allclose(big[j], small, atol=2e-3)
 
 
 def test_quantile_shapes_and_errors():
