@@ -1,4 +1,4 @@
-"""Base station antenna patterns: the 3GPP sector element pattern and an omnidirectional antenna.
+"""Base station antenna patterns: the 3GPP sector element pattern, a steered planar array beam, omnidirectional.
 
 Azimuths are degrees clockwise from north; downtilt is positive below the horizontal; offsets (dx, dy, dz) are
 metres east, north and up from the antenna to the target.

@@ -195,7 +195,7 @@ def _solve_rows(d, sd, s, ss, p, m):
 
 
 def _keys(*cols):
-    """Distinct rows of equal-length float columns: (unique values per column, inverse index per row)."""
+    """Distinct rows of equal-length float columns: (index of one row per distinct row, key index per row)."""
     uniq, codes = zip(*(np.unique(c, return_inverse=True) for c in cols))
     key = np.zeros(cols[0].size, dtype=np.int64)
     for u, c in zip(uniq, codes):

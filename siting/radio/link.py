@@ -1,10 +1,11 @@
-"""Link budget: thermal noise, coherent SNR of direct plus surface path, spectral efficiency.
+"""Link budget: thermal noise, SNR of direct plus surface path (power sum or co-phased), spectral efficiency.
 
 References
 ----------
 .. [1] E. Björnson, Ö. Özdogan and E. G. Larsson, "Intelligent Reflecting Surface vs. Decode-and-Forward:
    How Large Surfaces Are Needed to Beat Relaying?", IEEE Wireless Commun. Lett., 2020, arXiv:1906.03949
-   (SNR with co-phased direct and surface paths; noise -174 dBm/Hz + 10 log10 B + NF).
+   (SNR with co-phased direct and surface paths, the single-frequency upper bound; noise -174 dBm/Hz +
+   10 log10 B + NF).
 .. [2] 3GPP TR 36.942, "Evolved Universal Terrestrial Radio Access (E-UTRA); Radio Frequency (RF) system
    scenarios", Annex A.2 (truncated Shannon bound).  The parameter values (alpha = 0.6, SNR_min = -10 dB,
    Thr_max = 4.4 bit/s/Hz) are quoted from memory and were not checked against the TR text; they are overridable.

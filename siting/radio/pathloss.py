@@ -1,4 +1,4 @@
-"""Path loss of the direct base station -> user path: free space and 3GPP TR 38.901 UMi / UMa.
+"""Path loss of the direct base station -> user path: free space and 3GPP TR 38.901 UMi / UMa; Fresnel zone.
 
 All functions are vectorised: scalars in give a float out, arrays broadcast against each other.
 Losses are positive dB (gain = -loss).
@@ -15,7 +15,7 @@ Decisions for the 3GPP models (documented once here, repeated in each docstring)
 * Outside 0.5-100 GHz the formulas are evaluated as published with a :class:`RadioValidityWarning`.
 * The LOS/NLOS choice is deterministic (from the building geometry, DESIGN.md section 4), not drawn with the
   LOS probability; :func:`los_probability_umi` and :func:`los_probability_uma` are for information.
-* Shadow fading is not drawn; planners add a margin.
+* Shadow fading is not drawn; margins and coverage quantiles are in :mod:`siting.radio.fading`.
 
 References
 ----------
