@@ -4,7 +4,8 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from siting.radio import RadioInputError, bs_gain_toward_dbi, local_angles_deg, sector_gain_dbi
+from siting.radio import (RadioInputError, array_size_for_gain, bs_beam_gain_dbi, bs_gain_toward_dbi,
+                          local_angles_deg, sector_gain_dbi)
 
 
 def test_boresight_is_max_gain():
@@ -105,3 +106,72 @@ def test_bad_input():
         bs_gain_toward_dbi(1.0, 1.0, 0.0, 0.0, 0.0, 10.0, omni="yes")
     with pytest.raises(RadioInputError, match="max_gain_dbi"):
         sector_gain_dbi(0.0, 0.0, np.nan)
+
+
+# ------------------------------------------------------------------------------- steered planar array beam
+
+def test_array_size_for_gain():
+    # smallest square n x n with 8 + 10 log10(n^2) >= G (TR 38.901 Table 7.3-1 element of 8 dBi)
+    assert array_size_for_gain(5.0) == (1, 1)
+    assert array_size_for_gain(8.0) == (1, 1)
+    assert array_size_for_gain(20.0) == (4, 4)                       # 8 + 12.04 >= 20 > 8 + 10 log10(9)
+    assert array_size_for_gain(8 + 10 * np.log10(16)) == (4, 4)      # exact power stays 4 x 4
+    r, c = array_size_for_gain(np.array([14.0, 25.0, 30.0]))
+    np.testing.assert_array_equal(r, [2, 8, 13])
+    assert np.all(8 + 10 * np.log10(r * c) >= [14.0, 25.0, 30.0])
+    assert np.all(8 + 10 * np.log10((r - 1) ** 2) < [14.0, 25.0, 30.0])
+
+
+def _direction(az_deg, el_deg):
+    a, e = np.radians(az_deg), np.radians(el_deg)
+    return np.cos(e) * np.sin(a), np.cos(e) * np.cos(a), np.sin(e)
+
+
+def test_beam_worked_array_factor_4x4():
+    # uniform planar array factor (C. A. Balanis, Antenna Theory, uniform array; equation number from memory):
+    # lambda/2 spacing, 4 columns, broadside beam, target at sin(az) = 0.25: psi = pi/8,
+    # |AF|^2 / N^2 = (sin(4 psi) / (4 sin psi))^2 = 0.42678 -> -3.698 dB, plus the element A of TR 38.901 Table 7.3-1
+    az = np.degrees(np.arcsin(0.25))
+    af_db = 10 * np.log10((np.sin(4 * np.pi / 8) / (4 * np.sin(np.pi / 8))) ** 2)
+    assert af_db == pytest.approx(-3.698, abs=1e-3)
+    got = bs_beam_gain_dbi(*_direction(90 + az, 0.0), *_direction(90.0, 0.0), 90.0, 0.0, 20.0, rows=4, cols=4)
+    assert got == pytest.approx(20.0 - 12 * (az / 65) ** 2 + af_db, abs=1e-9)
+    # broadside (steered at boresight, target at boresight): the full boresight gain
+    assert bs_beam_gain_dbi(*_direction(90.0, 0.0), *_direction(90.0, 0.0), 90.0, 0.0, 20.0) == pytest.approx(20.0)
+    # first null of 4 elements at sin(az) = 0.5 (psi = pi/4): floored at G_max - 30 dB (decision)
+    got = bs_beam_gain_dbi(*_direction(120.0, 0.0), *_direction(90.0, 0.0), 90.0, 0.0, 20.0, rows=4, cols=4)
+    assert got == pytest.approx(-10.0)
+
+
+def test_beam_never_above_envelope_and_equal_at_steering():
+    # property (seeded random): gain toward any target <= TR 38.901 envelope toward that target; at the
+    # steering point the beam equals the envelope bs_gain_toward_dbi
+    rng = np.random.default_rng(21)
+    n = 5000
+    tgt = rng.normal(size=(3, n)) * [[200], [200], [15]]
+    steer = rng.normal(size=(3, n)) * [[200], [200], [15]]
+    az = rng.uniform(0, 360, n)
+    tilt = rng.uniform(-5, 15, n)
+    g = rng.uniform(5, 30, n)
+    beam = bs_beam_gain_dbi(*tgt, *steer, az, tilt, g)
+    env = bs_gain_toward_dbi(*tgt, az, tilt, g)
+    assert np.all(beam <= env + 1e-9)
+    assert np.all(beam >= g - 30.0 - 1e-9)
+    at_steer = bs_beam_gain_dbi(*steer, *steer, az, tilt, g)
+    np.testing.assert_allclose(at_steer, bs_gain_toward_dbi(*steer, az, tilt, g), atol=1e-9)
+    # with explicit array sizes too
+    beam2 = bs_beam_gain_dbi(*tgt, *steer, az, tilt, g, rows=2, cols=8)
+    assert np.all(beam2 <= env + 1e-9)
+
+
+def test_beam_omni_and_single_element():
+    # omni: max gain everywhere (no beam); a 1 x 1 array (G <= 8 dBi) is the envelope itself
+    rng = np.random.default_rng(2)
+    tgt = rng.normal(size=(3, 50)) * 100
+    steer = rng.normal(size=(3, 50)) * 100
+    np.testing.assert_array_equal(bs_beam_gain_dbi(*tgt, *steer, 30.0, 5.0, 12.0, omni=True), np.full(50, 12.0))
+    np.testing.assert_allclose(bs_beam_gain_dbi(*tgt, *steer, 30.0, 5.0, 8.0), bs_gain_toward_dbi(*tgt, 30.0, 5.0, 8.0),
+                               atol=1e-12)
+    assert isinstance(bs_beam_gain_dbi(10.0, 0.0, 0.0, 0.0, 10.0, 0.0, 0.0, 0.0, 20.0), float)
+    with pytest.raises(RadioInputError):
+        bs_beam_gain_dbi(10.0, 0.0, 0.0, 0.0, 10.0, 0.0, 0.0, 0.0, 20.0, rows=4)

@@ -3,9 +3,11 @@
 import numpy as np
 import pytest
 from scipy import constants
+from scipy.integrate import quad
 
-from siting.radio import (SHANNON_DL, RadioInputError, coherent_snr_db, db_to_linear, linear_to_db,
-                          noise_power_dbm, spectral_efficiency_bps_hz)
+from siting.radio import (SHANNON_DL, RadioInputError, band_average_two_path_power, coherent_snr_db,
+                          db_to_linear, linear_to_db, noise_power_dbm, power_sum_snr_db,
+                          spectral_efficiency_bps_hz)
 
 
 @pytest.mark.parametrize("b_hz, nf_db, expected", [
@@ -78,3 +80,63 @@ def test_db_round_trip():
     assert linear_to_db(0.0) == -np.inf
     with pytest.raises(RadioInputError):
         linear_to_db(-1.0)
+
+
+# ------------------------------------------------------------------------------- power sum, band average
+
+def test_power_sum_adds_powers():
+    # SNR = P (beta_d + beta_s) / sigma^2 (power sum, channel average over a wide band): equal paths -> +3.01 dB
+    one = power_sum_snr_db(20.0, -100.0, -np.inf, -90.0)
+    both = power_sum_snr_db(20.0, -100.0, -100.0, -90.0)
+    assert one == pytest.approx(10.0)
+    assert both - one == pytest.approx(10 * np.log10(2), abs=1e-12)
+    bd, bs = db_to_linear(-95.0), db_to_linear(-101.0)
+    want = 10 * np.log10(db_to_linear(20.0) * (bd + bs) / db_to_linear(-90.0))
+    assert power_sum_snr_db(20.0, -95.0, -101.0, -90.0) == pytest.approx(want, abs=1e-12)
+    assert power_sum_snr_db(30.0, -np.inf, -np.inf, -80.0) == -np.inf
+    np.testing.assert_allclose(power_sum_snr_db(30.0, np.array([-np.inf, -90.0]), np.array([-90.0, -np.inf]), -80.0),
+                               [20.0, 20.0])
+    # never above the co-phased amplitude sum of arXiv:1906.03949 (the upper bound)
+    rng = np.random.default_rng(5)
+    gd, gs = rng.uniform(-130, -80, 200), rng.uniform(-130, -80, 200)
+    assert np.all(power_sum_snr_db(20.0, gd, gs, -90.0) <= coherent_snr_db(20.0, gd, gs, -90.0) + 1e-12)
+    with pytest.raises(RadioInputError):
+        power_sum_snr_db(30.0, np.inf, -90.0, -80.0)
+
+
+def _band_average_quad(a, b, tau, bw, phi):
+    # direct numerical integration of (1/B) int_{-B/2}^{B/2} |a e^{j phi} + b e^{j 2 pi f tau}|^2 df (scipy quad)
+    def integrand(f):
+        return abs(a * np.exp(1j * phi) + b * np.exp(2j * np.pi * f * tau)) ** 2
+
+    return quad(integrand, -bw / 2, bw / 2, limit=400, epsabs=1e-13, epsrel=1e-11)[0] / bw
+
+
+def test_band_average_whole_cycles_is_power_sum():
+    # mathematics: the cross term vanishes when B tau is a whole number; checked by scipy quad as well
+    a, b = 0.8 - 0.3j, 0.5 + 0.4j
+    bw = 400e6
+    for cycles in (1, 3, 101):
+        tau = cycles / bw
+        got = band_average_two_path_power(a, b, tau, bw, phase_rad=0.7)
+        assert got == pytest.approx(abs(a) ** 2 + abs(b) ** 2, abs=1e-12)
+        assert _band_average_quad(a, b, tau, bw, 0.7) == pytest.approx(abs(a) ** 2 + abs(b) ** 2, abs=1e-9)
+
+
+def test_band_average_matches_quad_random():
+    # closed form |a|^2 + |b|^2 + 2 Re(a conj(b) e^{j phi}) sinc(B tau) against scipy.integrate.quad
+    rng = np.random.default_rng(9)
+    for _ in range(25):
+        a = complex(*rng.normal(size=2))
+        b = complex(*rng.normal(size=2))
+        bw = rng.uniform(1e6, 400e6)
+        tau = rng.uniform(-5.0, 5.0) / bw
+        phi = rng.uniform(-np.pi, np.pi)
+        got = band_average_two_path_power(a, b, tau, bw, phi)
+        assert got == pytest.approx(_band_average_quad(a, b, tau, bw, phi), rel=1e-9, abs=1e-12)
+    # narrow band limit (B tau -> 0): the co-phased amplitude sum |a| + |b| squared
+    assert band_average_two_path_power(0.6, 0.3, 0.0, 1e6) == pytest.approx(0.9 ** 2)
+    # mathematics: B = 400 MHz, tau = 253.5 ns -> |sinc| < 1 / (pi B tau) = 0.31 %
+    x = band_average_two_path_power(1.0, 1.0, 253.5e-9, 400e6) - 2.0
+    assert abs(x) <= 2.0 / (np.pi * 400e6 * 253.5e-9)
+    assert isinstance(band_average_two_path_power(1.0, 1.0, 1e-9, 1e8), float)

@@ -4,11 +4,13 @@ import warnings
 
 import numpy as np
 import pytest
+from scipy.constants import c
 
 from siting.errors import SitingError
-from siting.radio import (RadioInputError, RadioValidityWarning, breakpoint_distance_m, direct_path_loss_db,
-                          free_space_path_loss_db, los_probability_uma, los_probability_umi, uma_los_db,
-                          uma_nlos_db, umi_street_canyon_los_db, umi_street_canyon_nlos_db)
+from siting.radio import (RadioInputError, RadioValidityWarning, breakpoint_distance_m, direct_model_fit,
+                          direct_path_loss_db, free_space_path_loss_db, fresnel_radius_m, los_excess_db,
+                          los_probability_uma, los_probability_umi, uma_los_db, uma_nlos_db,
+                          umi_street_canyon_los_db, umi_street_canyon_nlos_db)
 
 
 # ------------------------------------------------------------------------------------------- free space
@@ -236,3 +238,61 @@ def test_dispatcher_bad_model_and_los():
         direct_path_loss_db("umi", np.array([1, 0]), 100.0, 10.0, 1.5, 28e9)
     with pytest.raises(RadioInputError, match="h_ut_m"):
         direct_path_loss_db("umi", True, 100.0, 10.0, -1.5, 28e9)
+
+
+# ------------------------------------------------------------------------ LOS excess, model fit, Fresnel
+
+def test_los_excess_umi_worked_value():
+    # 3GPP TR 38.901 Table 7.4.1-1 UMi LOS, 28 GHz, hBS 10 m, hUT 1.5 m, d2D 100 m: PL_LOS = 103.376 dB;
+    # free space over d3D (ITU-R P.525 exact 20 log10(4 pi d f / c))
+    d3d = np.hypot(100.0, 8.5)
+    fspl = 20 * np.log10(4 * np.pi * d3d * 28e9 / c)
+    assert los_excess_db("umi", 100.0, 10.0, 1.5, 28e9) == pytest.approx(103.376 - fspl, abs=1e-3)
+    assert los_excess_db("umi", 100.0, 10.0, 1.5, 28e9) == pytest.approx(1.954, abs=1e-3)
+
+
+def test_los_excess_non_negative_and_free_space_zero():
+    # property: max(0, .) is never negative; UMa LOS below free space at short range (published constant) -> 0
+    rng = np.random.default_rng(4)
+    d = rng.uniform(0, 2000, 300)
+    hb = rng.uniform(3, 40, 300)
+    hu = rng.uniform(1.5, 20, 300)
+    f = rng.uniform(1e9, 90e9, 300)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RadioValidityWarning)
+        for model in ("umi", "uma"):
+            ex = los_excess_db(model, d, hb, hu, f)
+            assert ex.shape == (300,) and np.all(ex >= 0.0)
+        assert los_excess_db("uma", 50.0, 25.0, 1.5, 28e9) == 0.0
+    np.testing.assert_array_equal(los_excess_db("free_space", d, hb, hu, f), np.zeros(300))
+    with pytest.raises(RadioInputError):
+        los_excess_db("rma", 100.0, 10.0, 1.5, 28e9)
+
+
+def test_direct_model_fit_heights():
+    # TR 38.901 Table 7.4.1-1: UMi-Street Canyon defined for hBS = 10 m, UMa for hBS = 25 m (decision: flags
+    # above 20 m / below 15 m)
+    assert direct_model_fit("umi", [6.0, 10.0, 20.0]) is None
+    assert direct_model_fit("uma", 25.0) is None
+    assert direct_model_fit("free_space", 80.0) is None
+    msg = direct_model_fit("umi", [10.0, 30.0])
+    assert isinstance(msg, str) and '"uma"' in msg and "30 m" in msg
+    msg = direct_model_fit("uma", 8.0)
+    assert isinstance(msg, str) and '"umi"' in msg
+
+
+@pytest.mark.parametrize("d1, d2, f, expected", [
+    (50.0, 50.0, 28e9, 0.5174), (10.0, 90.0, 28e9, 0.3104), (50.0, 50.0, 3.5e9, 1.4633)])
+def test_fresnel_radius_worked_values(d1, d2, f, expected):
+    # ITU-R P.530 / P.526 first Fresnel zone F1 = sqrt(lambda d1 d2 / (d1 + d2)), worked by hand
+    assert fresnel_radius_m(d1, d2, f) == pytest.approx(expected, abs=1e-4)
+
+
+def test_fresnel_radius_properties():
+    # symmetric in d1, d2; maximum at mid-path; 0 at the ends; both ends at 0 raises
+    x = np.linspace(0, 100, 101)
+    r = fresnel_radius_m(x, 100 - x, 28e9)
+    np.testing.assert_allclose(r, r[::-1], rtol=1e-12)
+    assert np.argmax(r) == 50 and r[0] == 0.0
+    with pytest.raises(RadioInputError):
+        fresnel_radius_m(0.0, 0.0, 28e9)

@@ -1,4 +1,4 @@
-"""Base station antenna patterns: the 3GPP sector element pattern and an omnidirectional antenna.
+"""Base station antenna patterns: the 3GPP sector element pattern, a steered planar array beam, omnidirectional.
 
 Azimuths are degrees clockwise from north; downtilt is positive below the horizontal; offsets (dx, dy, dz) are
 metres east, north and up from the antenna to the target.
@@ -8,6 +8,8 @@ References
 .. [1] 3GPP TR 38.901 v19.4.0, "Study on channel model for frequencies from 0.5 to 100 GHz",
    Table 7.3-1 (radiation power pattern of a single antenna element) and section 7.1 (coordinate
    rotation, Eqs. 7.1-7 and 7.1-8).
+.. [2] C. A. Balanis, "Antenna Theory: Analysis and Design", Wiley, uniform linear and planar array factors
+   (chapter 6; section and equation numbers from memory).
 """
 
 from __future__ import annotations
@@ -16,7 +18,11 @@ import numpy as np
 
 from ._checks import RadioInputError, as_float, scalar_or_array
 
-__all__ = ["sector_gain_dbi", "bs_gain_toward_dbi", "local_angles_deg"]
+__all__ = ["sector_gain_dbi", "bs_gain_toward_dbi", "local_angles_deg", "bs_beam_gain_dbi", "array_size_for_gain",
+           "ELEMENT_GAIN_DBI"]
+
+#: Maximum directional gain of one antenna element [dBi], [1], Table 7.3-1.
+ELEMENT_GAIN_DBI = 8.0
 
 
 def sector_gain_dbi(az_offset_deg, el_offset_deg, max_gain_dbi, hpbw_h_deg=65.0, hpbw_v_deg=65.0,
@@ -151,3 +157,108 @@ def bs_gain_toward_dbi(dx_m, dy_m, dz_m, azimuth_deg, downtilt_deg, max_gain_dbi
     g = np.asarray(sector_gain_dbi(az, el, max_gain_dbi, **pattern))
     gmax = as_float("max_gain_dbi", max_gain_dbi)
     return scalar_or_array(np.where(omni_arr, gmax, g))
+
+
+def array_size_for_gain(max_gain_dbi):
+    r"""Smallest square array of 8 dBi elements whose boresight gain reaches ``max_gain_dbi``.
+
+    Parameters
+    ----------
+    max_gain_dbi : float or array_like
+        Boresight gain of the whole antenna [dBi].
+
+    Returns
+    -------
+    (rows, cols) : tuple of int or ndarray of int
+        n x n with n the smallest integer such that 8 + 10 log10(n^2) >= max_gain_dbi; (1, 1) when
+        max_gain_dbi <= 8 dBi ([1], Table 7.3-1 element).
+    """
+    g = as_float("max_gain_dbi", max_gain_dbi)
+    need = 10.0 ** ((g - ELEMENT_GAIN_DBI) / 10.0)                     # elements needed
+    n = np.maximum(np.ceil(np.sqrt(need) - 1e-9), 1.0).astype(int)    # 1e-9: exact powers stay exact
+    if n.ndim == 0:
+        return int(n), int(n)
+    return n, n.copy()
+
+
+def _ula_factor(x, n):
+    """|sum_k exp(j 2 k x)|^2 / n^2 = (sin(n x) / (n sin x))^2, the normalised uniform array factor ([2])."""
+    sx = np.sin(x)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.sin(n * x) / (n * sx)
+    return np.where(np.abs(sx) < 1e-12, 1.0, r * r)   # grating/main lobe: x a multiple of pi
+
+
+def bs_beam_gain_dbi(dx_m, dy_m, dz_m, steer_dx_m, steer_dy_m, steer_dz_m, azimuth_deg, downtilt_deg,
+                     max_gain_dbi, omni=False, rows=None, cols=None):
+    r"""Gain toward targets of a base station beam steered at another point.
+
+    Parameters
+    ----------
+    dx_m, dy_m, dz_m : float or array_like
+        Offset from the antenna to the target: east, north, up [m].
+    steer_dx_m, steer_dy_m, steer_dz_m : float or array_like
+        Offset from the antenna to the point the beam is steered at [m].
+    azimuth_deg, downtilt_deg : float or array_like
+        Boresight azimuth (clockwise from north) and downtilt (positive below the horizontal) [deg].
+    max_gain_dbi : float or array_like
+        Boresight gain of the whole antenna [dBi].
+    omni : bool or array_like of bool, default False
+        True: omnidirectional antenna, ``max_gain_dbi`` everywhere (no beam).
+    rows, cols : int or array_like of int, optional
+        Array size (vertical x horizontal elements); default :func:`array_size_for_gain`.
+
+    Returns
+    -------
+    float or ndarray
+        Gain [dBi]; all arguments broadcast.
+
+    Notes
+    -----
+    A uniform planar array of rows x cols elements at half-wavelength spacing lies in the plane normal to
+    boresight; every element has the pattern of [1], Table 7.3-1 (8 dBi, 65 deg, 30 dB).  With the target and
+    steering directions u and s in the antenna frame (:func:`local_angles_deg`), u_h = cos(el) sin(az) and
+    u_v = sin(el), the phase-steered array factor normalised to 1 at the steering direction is ([2])
+
+    .. math::
+        |AF|^2 = \left(\frac{\sin(N_c \psi_h)}{N_c \sin\psi_h}\right)^2
+                 \left(\frac{\sin(N_r \psi_v)}{N_r \sin\psi_v}\right)^2,
+        \qquad \psi = \frac{\pi}{2}(u - s)
+
+    and the gain is
+
+    .. math:: G = G_{max} + A(u) + 10\log_{10}|AF|^2,
+
+    i.e. element pattern plus array gain 10 log10(N) |AF|^2, offset so that the steered direction gets the
+    envelope :func:`bs_gain_toward_dbi` toward it, G_max + A(s).  Since |AF| <= 1, the result never exceeds the
+    envelope toward the target.  Decision: the gain is floored at G_max - 30 dB (the A_max of [1]) so that
+    exact nulls of the ideal array do not remove a path.
+
+    References
+    ----------
+    .. [1] 3GPP TR 38.901 v19.4.0, Table 7.3-1 and section 7.1.
+    .. [2] C. A. Balanis, "Antenna Theory", uniform planar array factor (equation number from memory).
+    """
+    omni_arr = np.asarray(omni)
+    if omni_arr.dtype != bool:
+        raise RadioInputError(f"omni: expected booleans, got dtype {omni_arr.dtype}; pass pattern == 'omni'")
+    g = as_float("max_gain_dbi", max_gain_dbi)
+    if (rows is None) != (cols is None):
+        raise RadioInputError("rows, cols: give both array dimensions or neither")
+    if rows is None:
+        rows, cols = array_size_for_gain(g)
+    n_r = as_float("rows", rows, min_value=1.0)
+    n_c = as_float("cols", cols, min_value=1.0)
+    az, el = local_angles_deg(dx_m, dy_m, dz_m, azimuth_deg, downtilt_deg)
+    saz, sel = local_angles_deg(steer_dx_m, steer_dy_m, steer_dz_m, azimuth_deg, downtilt_deg)
+    env = np.asarray(sector_gain_dbi(az, el, g))                    # [1]: G_max + A(u)
+    az, el, saz, sel = (np.radians(v) for v in (az, el, saz, sel))
+    psi_h = 0.5 * np.pi * (np.cos(el) * np.sin(az) - np.cos(sel) * np.sin(saz))   # [2], lambda/2 spacing
+    psi_v = 0.5 * np.pi * (np.sin(el) - np.sin(sel))
+    af = _ula_factor(psi_h, n_c) * _ula_factor(psi_v, n_r)          # [2], separable planar array
+    with np.errstate(divide="ignore"):
+        beam = np.maximum(env + 10.0 * np.log10(af), g - _FLOOR_DB)
+    return scalar_or_array(np.where(omni_arr, g, beam))
+
+
+_FLOOR_DB = 30.0   # decision: beam gain floor below the boresight gain (A_max of [1], Table 7.3-1)

@@ -1,4 +1,4 @@
-"""Path loss of the direct base station -> user path: free space and 3GPP TR 38.901 UMi / UMa.
+"""Path loss of the direct base station -> user path: free space and 3GPP TR 38.901 UMi / UMa; Fresnel zone.
 
 All functions are vectorised: scalars in give a float out, arrays broadcast against each other.
 Losses are positive dB (gain = -loss).
@@ -15,13 +15,15 @@ Decisions for the 3GPP models (documented once here, repeated in each docstring)
 * Outside 0.5-100 GHz the formulas are evaluated as published with a :class:`RadioValidityWarning`.
 * The LOS/NLOS choice is deterministic (from the building geometry, DESIGN.md section 4), not drawn with the
   LOS probability; :func:`los_probability_umi` and :func:`los_probability_uma` are for information.
-* Shadow fading is not drawn; planners add a margin.
+* Shadow fading is not drawn; margins and coverage quantiles are in :mod:`siting.radio.fading`.
 
 References
 ----------
 .. [1] 3GPP TR 38.901 v19.4.0, "Study on channel model for frequencies from 0.5 to 100 GHz",
    Table 7.4.1-1 (path loss, NOTE 1 breakpoint) and Table 7.4.2-1 (LOS probability).
 .. [2] ITU-R P.525-5, "Calculation of free-space attenuation", 2024.
+.. [3] ITU-R P.530, "Propagation data and prediction methods required for the design of terrestrial
+   line-of-sight systems", and ITU-R P.526, "Propagation by diffraction" (first Fresnel zone radius).
 """
 
 from __future__ import annotations
@@ -41,6 +43,9 @@ __all__ = [
     "los_probability_umi",
     "los_probability_uma",
     "breakpoint_distance_m",
+    "los_excess_db",
+    "direct_model_fit",
+    "fresnel_radius_m",
     "MODELS",
 ]
 
@@ -416,3 +421,133 @@ def los_probability_uma(d2d_m, h_ut_m):
     p = (18.0 / dd + np.exp(-dd / 63.0) * (1.0 - 18.0 / dd)) * (
         1.0 + c * 1.25 * (dd / 100.0) ** 3 * np.exp(-dd / 150.0))  # [1], Table 7.4.2-1
     return scalar_or_array(np.where(d <= 18.0, 1.0, np.minimum(p, 1.0)))
+
+
+def los_excess_db(model: str, d2d_m, h_bs_m, h_ut_m, freq_hz):
+    r"""Extra loss that a model's LOS law puts on a line-of-sight hop beyond free space.
+
+    Parameters
+    ----------
+    model : {"umi", "uma", "free_space"}
+        Direct-path model (as :func:`direct_path_loss_db`).
+    d2d_m, h_bs_m, h_ut_m, freq_hz
+        As :func:`umi_street_canyon_los_db`.  For a surface hop pass the higher end as ``h_bs_m`` (the
+        models place the base station above the terminal).
+
+    Returns
+    -------
+    float or ndarray
+        :math:`\max(0, PL_{LOS} - L_{bf}(d_{3D}))` [dB], >= 0; 0 for "free_space".
+
+    Notes
+    -----
+    Adding this excess to the free-space loss of each surface hop puts the hops on the same LOS law as the
+    direct path (the same model for every line-of-sight link).  PL_LOS is the model's LOS loss with the
+    short-range and validity decisions of :func:`umi_street_canyon_los_db`; L_bf is the exact free-space loss
+    over d3D = sqrt(d2D^2 + (hBS - hUT)^2) (floored at 1 cm, as in :func:`direct_path_loss_db`).  UMa LOS
+    falls below free space at short range by its published constant ([1]); the excess is then 0.
+
+    References
+    ----------
+    .. [1] 3GPP TR 38.901 v19.4.0, Table 7.4.1-1.
+    .. [2] ITU-R P.525-5.
+    """
+    if model not in MODELS:
+        raise RadioInputError(f"direct path model: expected one of {MODELS}, got {model!r}; fix the job's radio model")
+    d2d = as_float("d2d_m", d2d_m, min_value=0.0)
+    hbs = as_float("h_bs_m", h_bs_m, min_value=0.0)
+    hut = as_float("h_ut_m", h_ut_m, min_value=0.0)
+    f = as_float("freq_hz", freq_hz, min_value=0.0, strict=True)
+    shape = np.broadcast_shapes(d2d.shape, hbs.shape, hut.shape, f.shape)
+    if model == "free_space":
+        return scalar_or_array(np.zeros(shape))
+    pl_los = _los_nlos(model, d2d, hbs, hut, f)[0]
+    fspl = free_space_path_loss_db(np.maximum(_d3d(d2d, hbs, hut), 0.01), f)   # [2]
+    return scalar_or_array(np.maximum(pl_los - fspl, 0.0))
+
+
+#: Decision: heights at which a model is flagged as unsuited ([1], Table 7.4.1-1: UMi-Street Canyon is
+#: defined for hBS = 10 m, UMa for hBS = 25 m).  The thresholds sit between the two fitted heights.
+_FIT_UMI_MAX_M = 20.0
+_FIT_UMA_MIN_M = 15.0
+
+
+def direct_model_fit(model: str, bs_height_m):
+    """Check that the base station heights suit the chosen direct-path model.
+
+    Parameters
+    ----------
+    model : {"umi", "uma", "free_space"}
+        Direct-path model.
+    bs_height_m : float or array_like
+        Base station antenna heights above ground [m].
+
+    Returns
+    -------
+    str or None
+        None when every height suits the model, else a short message for the user that suggests the other
+        model.
+
+    Notes
+    -----
+    3GPP TR 38.901 Table 7.4.1-1 fits UMi-Street Canyon to hBS = 10 m (below rooftops) and UMa to hBS = 25 m
+    (above rooftops) ([1]).  Decision: "umi" is flagged above 20 m and "uma" below 15 m; "free_space" has no
+    height condition.
+
+    References
+    ----------
+    .. [1] 3GPP TR 38.901 v19.4.0, Table 7.4.1-1.
+    """
+    if model not in MODELS:
+        raise RadioInputError(f"direct path model: expected one of {MODELS}, got {model!r}; fix the job's radio model")
+    h = np.atleast_1d(as_float("bs_height_m", bs_height_m, min_value=0.0)).ravel()
+    if model == "free_space" or h.size == 0:
+        return None
+    if model == "umi":
+        bad = h > _FIT_UMI_MAX_M
+        if not bad.any():
+            return None
+        return (f"{int(bad.sum())} of {h.size} base station(s) stand above {_FIT_UMI_MAX_M:g} m (highest "
+                f"{h.max():g} m), but the UMi-Street Canyon model is defined for antennas at 10 m, below the "
+                f"rooftops; for rooftop stations set the direct model to \"uma\" (defined for 25 m)")
+    bad = h < _FIT_UMA_MIN_M
+    if not bad.any():
+        return None
+    return (f"{int(bad.sum())} of {h.size} base station(s) stand below {_FIT_UMA_MIN_M:g} m (lowest "
+            f"{h.min():g} m), but the UMa model is defined for antennas at 25 m, above the rooftops; for "
+            f"street-level stations set the direct model to \"umi\" (defined for 10 m)")
+
+
+def fresnel_radius_m(d1_m, d2_m, freq_hz):
+    r"""Radius of the first Fresnel zone at a point on a link.
+
+    Parameters
+    ----------
+    d1_m, d2_m : float or array_like
+        Distances from the point to the two ends [m], >= 0, not both 0.
+    freq_hz : float or array_like
+        Frequency [Hz], > 0.
+
+    Returns
+    -------
+    float or ndarray
+        F1 [m].
+
+    Notes
+    -----
+    .. math:: F_1 = \sqrt{\lambda\, d_1 d_2 / (d_1 + d_2)},\qquad \lambda = c / f
+
+    (the definition of [3]).  Clearance of 0.6 F1 is the usual rule for a hop to count as free space
+    (common practice).
+
+    References
+    ----------
+    .. [3] ITU-R P.530 and ITU-R P.526 (first Fresnel zone radius).
+    """
+    d1 = as_float("d1_m", d1_m, min_value=0.0)
+    d2 = as_float("d2_m", d2_m, min_value=0.0)
+    f = as_float("freq_hz", freq_hz, min_value=0.0, strict=True)
+    if np.any(d1 + d2 <= 0.0):
+        raise RadioInputError("d1_m, d2_m: both distances are 0 for some rows; a point on a link needs d1 + d2 > 0")
+    lam = SPEED_OF_LIGHT_M_S / f
+    return scalar_or_array(np.sqrt(lam * d1 * d2 / (d1 + d2)))  # [3]
