@@ -723,24 +723,35 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
         rot = np.cos(rd) - 1j * np.sin(rd)                  # rotation from one node to the next
         du, dv = (dk * hu) * uu, (dk * hv) * vv
         acc = np.zeros(sl.stop - sl.start)
-        if 0.5 * n_nodes * max(float(np.max(np.abs(du))), float(np.max(np.abs(dv)))) <= _SINC_SQUINT_MAX:
-            # the in-tile sinc factors change by at most _SINC_SQUINT_MAX rad in argument across the band:
-            # keep them at the band centre and rotate the phasors only
-            z *= (np.sin(_reduce(tu + 0.5 * (n_nodes - 1) * du)) * np.sin(_reduce(tv + 0.5 * (n_nodes - 1) * dv))
-                  / ((tu + 0.5 * (n_nodes - 1) * du) * (tv + 0.5 * (n_nodes - 1) * dv)))
+        # rows (triples) whose in-tile sinc arguments move by at most _SINC_SQUINT_MAX rad across the band keep
+        # the sinc factors at the band centre and only rotate the phasors (decided per triple, so the result
+        # does not depend on how triples are grouped)
+        move = 0.5 * n_nodes * np.maximum(np.max(np.abs(du), axis=(1, 2)), np.max(np.abs(dv), axis=(1, 2)))
+        fixed = move <= _SINC_SQUINT_MAX
+        if fixed.any():
+            zf = z[fixed]
+            tc = tu[fixed] + 0.5 * (n_nodes - 1) * du[fixed]
+            vc = tv[fixed] + 0.5 * (n_nodes - 1) * dv[fixed]
+            zf *= np.sin(_reduce(tc)) * np.sin(_reduce(vc)) / (tc * vc)
+            rf = rot[fixed]
+            af = np.zeros(zf.shape[0])
             for _ in range(n_nodes):  # loop over frequency nodes, vectorised over triples and tiles
-                fld = np.sum(z, axis=(1, 2))
-                acc += fld.real ** 2 + fld.imag ** 2
+                fld = np.sum(zf, axis=(1, 2))
+                af += fld.real ** 2 + fld.imag ** 2
+                zf *= rf
+            acc[fixed] = af
+        if not fixed.all():
+            moving = ~fixed
+            z, rot, tu, tv, du, dv = (x[moving] for x in (z, rot, tu, tv, du, dv))
+            am = np.zeros(z.shape[0])
+            for _ in range(n_nodes):  # loop over frequency nodes, vectorised over triples and tiles
+                st = (np.sin(tu.astype(np.float32)) * np.sin(tv.astype(np.float32))) / (tu * tv)
+                fld = np.sum(z * st, axis=(1, 2))
+                am += fld.real ** 2 + fld.imag ** 2
                 z *= rot
-            out[sl] = acc / n_nodes
-            continue
-        for _ in range(n_nodes):  # loop over frequency nodes, vectorised over triples and tiles
-            st = (np.sin(tu.astype(np.float32)) * np.sin(tv.astype(np.float32))) / (tu * tv)
-            fld = np.sum(z * st, axis=(1, 2))
-            acc += fld.real ** 2 + fld.imag ** 2
-            z *= rot
-            tu -= du
-            tv -= dv
+                tu -= du
+                tv -= dv
+            acc[moving] = am
         out[sl] = acc / n_nodes
     return out
 
