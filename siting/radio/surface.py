@@ -66,10 +66,11 @@ __all__ = [
 DEFAULT_ELEMENT_Q = 1.0
 
 _CONTROLS = ("focus", "beams")
-# Band averaging (beam squint): one node when pi B tau is below this [rad]; else ceil(a omega) + b nodes.
-_SQUINT_OMEGA_MIN = 0.05
-_SQUINT_NODES_PER_RAD = 0.6
-_SQUINT_NODES_EXTRA = 2
+# Band averaging (beam squint), near field: Gauss-Legendre in frequency, one node when omega = pi B tau is below
+# _SQUINT_OMEGA_MIN [rad], else ceil(a omega) + b nodes (calibrated against a dense average).
+_SQUINT_OMEGA_MIN = 0.2
+_SQUINT_NODES_PER_RAD = 0.5
+_SQUINT_NODES_EXTRA = 1
 _SINC_EPS = 1e-9
 # Band averaging keeps the in-tile sinc factors at the band centre when their argument moves by less than this
 # across the band [rad] (power change below 0.4 % near the main lobe).
@@ -78,6 +79,7 @@ _SINC_SQUINT_MAX = 0.1
 # (within 0.03 dB of a dense average up to omega = 10, checked numerically).
 _FAR_OMEGA_MIN = 0.3
 _TWO_PI = 2.0 * np.pi
+_TINY32 = np.float32(1e-18)
 # Beams: tile side divided by this factor relative to tile_counts (in-tile quadratic phase error / factor^2).
 _BEAM_TILE_REFINE = 1.0
 _NODE_LADDER = np.array([1, 2, 3, 4, 5, 6, 8, 10, 12, 16, 20, 24, 32, 40, 48, 64, 80, 96, 128], dtype=np.int64)
@@ -575,16 +577,28 @@ def _band_nodes(n):
 def _node_counts(loc, w, h, bw):
     """Frequency nodes per triple from the band-edge phase spread omega = pi B tau.
 
-    tau bounds the spread of the path length L = r_in + r_out over the aperture: for each hop the farthest
-    corner minus the nearest panel point.  The integrand |sum_t a_t exp(-j x pi B Delta_t / c)|^2 over
-    x in [-1, 1] holds frequencies up to omega; the node count is calibrated against dense quadrature.
+    tau = spread / c bounds the spread (max - min) of the path length L = r_in + r_out over the aperture:
+    the linear part from the centre, |u_i + u_o| w + |v_i + v_o| h, plus twice the largest second-order
+    remainder, (w^2 + h^2) / 4 (1 / r_in,min + 1 / r_out,min) (the Hessian of a distance r has norm at most
+    1 / r), capped by the corner bound (farthest corner minus nearest panel point, per hop).  The
+    integrand |sum_t a_t exp(-j x pi B Delta_t / c)|^2 over x in [-1, 1] holds frequencies up to omega; the
+    node count is calibrated against dense quadrature.
     """
     lu_i, lv_i, ln_i, lu_o, lv_o, ln_o = loc
     hw, hh = 0.5 * w, 0.5 * h
-    spread = 0.0
+    corner = 0.0
+    curv = 0.0
+    lin_u = 0.0
+    lin_v = 0.0
     for lu, lv, ln in ((lu_i, lv_i, ln_i), (lu_o, lv_o, ln_o)):
+        r0 = np.sqrt(lu * lu + lv * lv + ln * ln)
         r_max = np.sqrt((np.abs(lu) + hw) ** 2 + (np.abs(lv) + hh) ** 2 + ln * ln)
-        spread = spread + r_max - _min_distance_to_panel(lu, lv, ln, w, h)
+        r_min = _min_distance_to_panel(lu, lv, ln, w, h)
+        corner = corner + r_max - r_min
+        curv = curv + 1.0 / r_min
+        lin_u = lin_u + lu / r0
+        lin_v = lin_v + lv / r0
+    spread = np.minimum(corner, np.abs(lin_u) * w + np.abs(lin_v) * h + 0.25 * (hw * hw + hh * hh) * 4.0 * curv)
     return _node_count_from_omega(np.pi * bw * spread / SPEED_OF_LIGHT_M_S)
 
 
@@ -645,27 +659,39 @@ def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
     # far field: closed form times the band-averaged separable array factor
     fi = np.flatnonzero(far)
     if fi.size:
-        wf, hf, kf, bwf = (np.broadcast_to(x, (m,))[fi] for x in (w, h, k0, bw))
-        uif, vif, uof, vof = ui[fi], vi[fi], uo[fi], vo[fi]
-        au0 = 0.5 * wf * kf * (us[fi] - uof)                # sinc arguments at f0
-        av0 = 0.5 * hf * kf * (vs[fi] - vof)
+        every = fi.size == m  # no gathers when every triple is in the far field (0-d parameters stay 0-d)
+
+        def take(x, rows=fi):
+            return x if (np.ndim(x) == 0 or (every and rows is fi)) else x[rows]
+
+        wf, hf, kf, bwf = take(w), take(h), take(k0), take(bw)
+        uof, vof = take(uo), take(vo)
+        au0 = (0.5 * kf * wf) * (take(us) - uof)            # sinc arguments at f0
+        av0 = (0.5 * kf * hf) * (take(vs) - vof)
+        nf = None
         if squint:  # exact linear delay spread of the far-field aperture: |u_i + u_o| w + |v_i + v_o| h
-            gu, gv = 0.5 * wf * (uif + uof), 0.5 * hf * (vif + vof)
-            omega = np.pi * bwf * 2.0 * (np.abs(gu) + np.abs(gv)) / SPEED_OF_LIGHT_M_S
+            gu, gv = (0.5 * wf) * (take(ui) + uof), (0.5 * hf) * (take(vi) + vof)
+            omega = (2.0 * np.pi / SPEED_OF_LIGHT_M_S) * bwf * (np.abs(gu) + np.abs(gv))
             nf = np.where(omega < _FAR_OMEGA_MIN, 1, np.ceil(0.5 * omega) + 1).astype(np.int64)
-        if not squint or nf.max() == 1:
+            nf = np.broadcast_to(nf, (fi.size,))
+        if nf is None or nf.max() == 1:
             af = (_sinc_small(au0) * _sinc_small(av0)) ** 2                          # [4], array factor
         else:
             af = np.empty(fi.size)
-            for g in _groups(nf):  # one iteration per node count
-                x, wt = np.polynomial.legendre.leggauss(int(nf[g[0]]))             # Gauss-Legendre in f
-                kap = (np.pi / SPEED_OF_LIGHT_M_S) * bwf[g, None] * x[None, :]       # (k, n) [rad/m]
-                au = au0[g, None] - kap * gu[g, None]
-                av = av0[g, None] - kap * gv[g, None]
+            for n in np.flatnonzero(np.bincount(nf)):  # one iteration per node count
+                g = np.flatnonzero(nf == n)
+                x, wt = np.polynomial.legendre.leggauss(int(n))                     # Gauss-Legendre in f
+                kap = (np.pi / SPEED_OF_LIGHT_M_S) * np.reshape(take(bwf, g), (-1, 1)) * x[None, :]  # (k, n)
+                au = np.reshape(take(au0, g), (-1, 1)) - kap * np.reshape(take(gu, g), (-1, 1))
+                av = np.reshape(take(av0, g), (-1, 1)) - kap * np.reshape(take(gv, g), (-1, 1))
                 af[g] = (_sinc_small(au) * _sinc_small(av)) ** 2 @ (0.5 * wt)
-        p = d1[fi] * d2[fi]
-        cc = ln_i[fi] * ln_o[fi] / p
-        beta[fi] = (wf * hf / (4.0 * np.pi * p)) ** 2 * (cc if q == 1.0 else cc ** q) * af  # [2], Eq. 48
+        p = take(d1) * take(d2)
+        cc = take(ln_i) * take(ln_o) / p
+        val = ((wf * hf / (4.0 * np.pi)) ** 2 / (p * p)) * (cc if q == 1.0 else cc ** q) * af  # [2], Eq. 48
+        if every:
+            beta = np.broadcast_to(val, (m,)).astype(float)
+        else:
+            beta[fi] = val
 
     # near field: complex tile sum with the profile's phase errors and in-tile sinc factors
     ni = np.flatnonzero(front & ~far)
@@ -692,11 +718,11 @@ def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
 def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
     r"""Band-averaged |sum_t A_t e^{-j e_t} sinc sinc|^2 over an nx x ny tile grid (see :func:`surface_gain`).
 
-    pu, pv None means focusing (no phase error at f0).  1-D arrays of m triples; ints nx, ny, n_nodes.  The
-    frequency nodes are equally spaced, so the phasors of node j + 1 are those of node j times a fixed
-    rotation.  Phases are reduced to [-pi, pi] in double precision before single-precision cos/sin (absolute
-    error below 1e-6); the sinc arguments t = g h / 2 stay below about 1e4, where single-precision sin(t) / t
-    is accurate to better than 1e-3 of its envelope 1 / t.
+    pu, pv None means focusing (no phase error at f0).  1-D arrays of m triples; ints nx, ny, n_nodes
+    (Gauss-Legendre nodes in frequency).  Phases at f0 are reduced to [-pi, pi] in double precision; the node
+    loop runs in single precision (cos/sin absolute error below 1e-6, the frequency offset adds at most
+    omega = pi B tau rad).  The sinc arguments t = g h / 2 stay below about 1e4, where single-precision
+    sin(t) / t is accurate to better than 1e-3 of its envelope 1 / t.
     """
     lu_i, lv_i, ln_i, lu_o, lv_o, ln_o = loc
     m = lu_i.shape[0]
@@ -704,7 +730,8 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
     per = max(1, _TILE_CHUNK_ENTRIES // (nx * ny))
     ga = (np.arange(nx) + 0.5) / nx - 0.5
     gb = (np.arange(ny) + 0.5) / ny - 0.5
-    x0 = -1.0 + 1.0 / n_nodes                                # first midpoint node; step 2 / n
+    x_nodes, w_nodes = np.polynomial.legendre.leggauss(n_nodes)
+    w_nodes = 0.5 * w_nodes                                 # mean over the band
     for s in range(0, m, per):  # loop over memory chunks, not over triples
         sl = slice(s, min(s + per, m))
         a = w[sl, None] * ga[None, :]                       # (k, nx) tile centres along u
@@ -729,61 +756,62 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
         vv = evi * inv_i + evo * inv_o
         delta = (r_i + r_o) - dsum[sl, None, None]          # path length minus the centre's [m]
         kk = k0[sl, None, None]
-        kmax = (np.pi / SPEED_OF_LIGHT_M_S) * bw[sl, None, None]   # kappa at the band edge [rad/m]
-        k_first = kmax * x0
-        # sinc arguments t = g h / 2 at the first node (+ a 1e-9 shift so that sinc(0) needs no branch)
+        # phase error e_t and sinc arguments t = g h / 2 at f0 (+ 1e-9 so that sinc(0) needs no branch)
         if pu is None:                                      # focus: no error at f0
-            e = k_first * delta
-            tu = (-k_first * hu) * uu + _SINC_EPS
-            tv = (-k_first * hv) * vv + _SINC_EPS
+            e = None
+            tu = np.full(uu.shape, _SINC_EPS)
+            tv = tu
         else:
-            e = kk * (delta + (pu[sl, None, None] * a[:, :, None] + pv[sl, None, None] * b[:, None, :])) \
-                + k_first * delta
-            tu = (kk * pu[sl, None, None] * hu + _SINC_EPS) - ((kk + k_first) * hu) * uu
-            tv = (kk * pv[sl, None, None] * hv + _SINC_EPS) - ((kk + k_first) * hv) * vv
-        er = _reduce(e)
+            e = kk * (delta + (pu[sl, None, None] * a[:, :, None] + pv[sl, None, None] * b[:, None, :]))
+            tu = (kk * pu[sl, None, None] * hu + _SINC_EPS) - (kk * hu) * uu
+            tv = (kk * pv[sl, None, None] * hv + _SINC_EPS) - (kk * hv) * vv
         if n_nodes == 1:
+            if e is None:
+                out[sl] = np.sum(amp, axis=(1, 2)) ** 2
+                continue
+            er = _reduce(e)
             t = amp * ((np.sin(tu.astype(np.float32)) * np.sin(tv.astype(np.float32))) / (tu * tv))
             re = np.sum(t * np.cos(er), axis=(1, 2))
             im = np.sum(t * np.sin(er), axis=(1, 2))
             out[sl] = re * re + im * im
             continue
-        dk = kmax * (2.0 / n_nodes)
-        z = amp * (np.cos(er) - 1j * np.sin(er))            # tile phasor at the first node
-        rd = _reduce(dk * delta)
-        rot = np.cos(rd) - 1j * np.sin(rd)                  # rotation from one node to the next
-        du, dv = (dk * hu) * uu, (dk * hv) * vv
+        # node loop in single precision: at x in [-1, 1] (f = f0 + x B / 2) the phase is e + x kmax Delta and
+        # the sinc arguments t - x kmax h U ([4], squint of a phase-only aperture)
+        kmax = (np.pi / SPEED_OF_LIGHT_M_S) * bw[sl, None, None]   # kappa at the band edge [rad/m]
+        er = np.zeros(delta.shape, np.float32) if e is None else _reduce(e)
+        dph = (kmax * delta).astype(np.float32)
+        su = ((kmax * hu) * uu).astype(np.float32)
+        sv = ((kmax * hv) * vv).astype(np.float32)
+        amp32 = amp.astype(np.float32)
+        tu32, tv32 = tu.astype(np.float32), tv.astype(np.float32)
         acc = np.zeros(sl.stop - sl.start)
-        # rows (triples) whose in-tile sinc arguments move by at most _SINC_SQUINT_MAX rad across the band keep
-        # the sinc factors at the band centre and only rotate the phasors (decided per triple, so the result
-        # does not depend on how triples are grouped)
-        move = 0.5 * n_nodes * np.maximum(np.max(np.abs(du), axis=(1, 2)), np.max(np.abs(dv), axis=(1, 2)))
+        # rows (triples) whose in-tile sinc arguments move by at most _SINC_SQUINT_MAX rad at the band edges
+        # keep the sinc factors at f0 (decided per triple, so the result does not depend on the grouping)
+        move = np.maximum(np.max(np.abs(su), axis=(1, 2)), np.max(np.abs(sv), axis=(1, 2)))
         fixed = move <= _SINC_SQUINT_MAX
-        if fixed.any():
-            zf = z[fixed]
-            tc = tu[fixed] + 0.5 * (n_nodes - 1) * du[fixed]
-            vc = tv[fixed] + 0.5 * (n_nodes - 1) * dv[fixed]
-            zf *= np.sin(_reduce(tc)) * np.sin(_reduce(vc)) / (tc * vc)
-            rf = rot[fixed]
-            af = np.zeros(zf.shape[0])
-            for _ in range(n_nodes):  # loop over frequency nodes, vectorised over triples and tiles
-                fld = np.sum(zf, axis=(1, 2))
-                af += fld.real ** 2 + fld.imag ** 2
-                zf *= rf
-            acc[fixed] = af
-        if not fixed.all():
-            moving = ~fixed
-            z, rot, tu, tv, du, dv = (x[moving] for x in (z, rot, tu, tv, du, dv))
-            am = np.zeros(z.shape[0])
-            for _ in range(n_nodes):  # loop over frequency nodes, vectorised over triples and tiles
-                st = (np.sin(tu.astype(np.float32)) * np.sin(tv.astype(np.float32))) / (tu * tv)
-                fld = np.sum(z * st, axis=(1, 2))
-                am += fld.real ** 2 + fld.imag ** 2
-                z *= rot
-                tu -= du
-                tv -= dv
-            acc[moving] = am
-        out[sl] = acc / n_nodes
+        for rows, keep in ((np.flatnonzero(fixed), True), (np.flatnonzero(~fixed), False)):
+            if not rows.size:
+                continue
+            whole = rows.size == fixed.size
+            pick = (lambda x: x) if whole else (lambda x: x[rows])
+            e_r, d_r, a_r = pick(er), pick(dph), pick(amp32)
+            tu_r, tv_r = pick(tu32), pick(tv32)
+            if keep:
+                t = a_r * (np.sin(tu_r) * np.sin(tv_r) / (tu_r * tv_r))
+            else:
+                su_r, sv_r = pick(su), pick(sv)
+            acc_r = np.zeros(rows.size)
+            for xj, wj in zip(x_nodes, w_nodes):  # loop over frequency nodes, vectorised over triples and tiles
+                ph = e_r + np.float32(xj) * d_r
+                if not keep:
+                    a_u = tu_r - np.float32(xj) * su_r + _TINY32   # sinc(0) = 1 where t lands on 0
+                    a_v = tv_r - np.float32(xj) * sv_r + _TINY32
+                    t = a_r * (np.sin(a_u) * np.sin(a_v) / (a_u * a_v))
+                re = np.sum(t * np.cos(ph), axis=(1, 2), dtype=np.float64)
+                im = np.sum(t * np.sin(ph), axis=(1, 2), dtype=np.float64)
+                acc_r += wj * (re * re + im * im)
+            acc[rows] = acc_r
+        out[sl] = acc
     return out
 
 
