@@ -442,12 +442,15 @@ def surface_gain(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, width_m, height_m, f
     ripples and a neighbour can be several dB better (up to about 7 dB measured), so the model is conservative
     there.
 
-    The power is averaged over the band [f0 - B/2, f0 + B/2]: far field by Gauss-Legendre quadrature in
-    frequency (1 node when pi B tau < 0.3, else ceil(pi B tau / 2) + 1; tau = (|u_i + u_o| w + |v_i + v_o| h)
-    / c), near field by the midpoint rule with ceil(0.6 pi B tau) + 2 nodes (1 node when pi B tau < 0.05;
-    tau bounded from the panel corners), which stays within about 0.05 dB of a dense average.  Squint never
-    raises a focused link's gain; a beam's band average can exceed its centre-frequency value (part of the
-    band squints toward a user between grid beams).
+    The power is averaged over the band [f0 - B/2, f0 + B/2] by Gauss-Legendre quadrature in frequency with
+    a node count from omega = pi B tau (tau: delay spread of L over the aperture): far field 1 node when
+    omega < 0.3, else ceil(omega / 2) + 1, with tau = (|u_i + u_o| w + |v_i + v_o| h) / c; near field 1 node
+    when omega < 0.2, else ceil(omega / 2) + 1 (rounded up to a short ladder), with tau bounded by the linear
+    spread plus the curvature term (w^2 + h^2) / 4 (1 / r_in,min + 1 / r_out,min).  Against a dense average
+    this stays within 0.06 dB (3000 random triples, 0.2-1 m panels, 3.5 and 28 GHz, 50 MHz-1 GHz).  Triples
+    whose in-tile sinc arguments move by at most 0.1 rad across the band keep the sinc factors at f0.  Squint
+    never raises a focused link's gain; a beam's band average can exceed its centre-frequency value (part of
+    the band squints toward a user between grid beams).
     ``control="focus"`` with ``bandwidth_hz=0`` is exactly the co-phased model above (bit for bit as before
     these options existed).
 
@@ -569,11 +572,6 @@ def nearest_beam(u, v, width_m, height_m, freq_hz, beam_oversampling=2):
     return scalar_or_array(su * np.rint(uu / su)), scalar_or_array(sv * np.rint(vv / sv))
 
 
-def _band_nodes(n):
-    """Midpoint-rule nodes x_j on [-1, 1] (f = f0 + x B / 2), equally weighted (mean over the band)."""
-    return -1.0 + (2.0 * np.arange(n) + 1.0) / n
-
-
 def _node_counts(loc, w, h, bw):
     """Frequency nodes per triple from the band-edge phase spread omega = pi B tau.
 
@@ -607,34 +605,10 @@ def _reduce(x):
     return (x - _TWO_PI * np.rint(x * (1.0 / _TWO_PI))).astype(np.float32)
 
 
-def _sin(x):
-    """sin x: argument reduced in double precision, sine in single precision (abs. error < 1e-6)."""
-    return np.sin(_reduce(x))
-
-
-def _cos(x):
-    """cos x, as :func:`_sin`."""
-    return np.cos(_reduce(x))
-
-
-def _sinc(x):
-    """sin(x) / x (unnormalised); x is shifted by 1e-9 so that sinc(0) = 1 without a branch."""
-    xe = x + _SINC_EPS
-    return _sin(xe) / xe
-
-
-def _node_count_from_omega(omega):
-    """Midpoint nodes for a band-edge phase spread omega = pi B tau [rad] (1 node below _SQUINT_OMEGA_MIN)."""
-    n = np.where(omega < _SQUINT_OMEGA_MIN, 1.0, np.ceil(_SQUINT_NODES_PER_RAD * omega) + _SQUINT_NODES_EXTRA)
-    top = len(_NODE_LADDER) - 1
-    i = np.minimum(np.searchsorted(_NODE_LADDER, n), top)
-    return np.maximum(_NODE_LADDER[i], np.minimum(n, 1024)).astype(np.int64)
-
-
 def _sinc_small(x):
     """sin(x) / x for |x| below about 1e3 (single-precision sine, no reduction), sinc(0) = 1."""
     xe = x + _SINC_EPS
-    return np.sin(xe.astype(np.float32)) / xe
+    return np.minimum(np.sin(xe.astype(np.float32)) / xe, 1.0)  # single-precision rounding never above 1
 
 
 def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
@@ -773,7 +747,8 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
             t = amp * ((np.sin(tu.astype(np.float32)) * np.sin(tv.astype(np.float32))) / (tu * tv))
             re = np.sum(t * np.cos(er), axis=(1, 2))
             im = np.sum(t * np.sin(er), axis=(1, 2))
-            out[sl] = re * re + im * im
+            # |sum| <= sum |A_t| (co-phased value) holds exactly; the clip only removes single-precision rounding
+            out[sl] = np.minimum(re * re + im * im, np.sum(amp, axis=(1, 2)) ** 2)
             continue
         # node loop in single precision: at x in [-1, 1] (f = f0 + x B / 2) the phase is e + x kmax Delta and
         # the sinc arguments t - x kmax h U ([4], squint of a phase-only aperture)
@@ -811,7 +786,7 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
                 im = np.sum(t * np.sin(ph), axis=(1, 2), dtype=np.float64)
                 acc_r += wj * (re * re + im * im)
             acc[rows] = acc_r
-        out[sl] = acc
+        out[sl] = np.minimum(acc, np.sum(amp, axis=(1, 2)) ** 2)  # as above: rounding only
     return out
 
 
