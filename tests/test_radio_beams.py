@@ -10,8 +10,15 @@ inequalities that hold for any phase profile.
 import numpy as np
 import pytest
 
-from siting.radio import (DEFAULT_ELEMENT_Q, RadioInputError, element_sum_gain, element_sum_gain_profile,
-                          fraunhofer_distance_m, nearest_beam, surface_gain)
+from siting.radio import (
+    DEFAULT_ELEMENT_Q,
+    RadioInputError,
+    element_sum_gain,
+    element_sum_gain_profile,
+    fraunhofer_distance_m,
+    nearest_beam,
+    surface_gain,
+)
 
 C = 299_792_458.0
 

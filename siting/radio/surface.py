@@ -505,7 +505,7 @@ def _curve_scale(efficiency_curve, ln_i, d1, phase_bits, shape):
 
 def _focus_gain(loc, d1, d2, w, h, f, q=1.0):
     """Co-phased gain at the centre frequency (far-field closed form or co-phased tile sum), scale excluded."""
-    lu_i, lv_i, ln_i, lu_o, lv_o, ln_o = loc
+    ln_i, ln_o = loc[2], loc[5]
     front = (ln_i > 0) & (ln_o > 0)
     lam = SPEED_OF_LIGHT_M_S / f
     d_f = 2.0 * (w * w + h * h) / lam
@@ -603,6 +603,14 @@ def _node_counts(loc, w, h, bw):
 def _reduce(x):
     """x - 2 pi round(x / 2 pi) in double precision, returned in single precision (|value| <= pi)."""
     return (x - _TWO_PI * np.rint(x * (1.0 / _TWO_PI))).astype(np.float32)
+
+
+def _node_count_from_omega(omega):
+    """Gauss-Legendre nodes for a band-edge phase spread omega = pi B tau [rad] (1 below _SQUINT_OMEGA_MIN)."""
+    n = np.where(omega < _SQUINT_OMEGA_MIN, 1.0, np.ceil(_SQUINT_NODES_PER_RAD * omega) + _SQUINT_NODES_EXTRA)
+    top = len(_NODE_LADDER) - 1
+    i = np.minimum(np.searchsorted(_NODE_LADDER, n), top)
+    return np.maximum(_NODE_LADDER[i], np.minimum(n, 1024)).astype(np.int64)
 
 
 def _sinc_small(x):
@@ -768,7 +776,10 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
             if not rows.size:
                 continue
             whole = rows.size == fixed.size
-            pick = (lambda x: x) if whole else (lambda x: x[rows])
+
+            def pick(x, rows=rows, whole=whole):
+                return x if whole else x[rows]
+
             e_r, d_r, a_r = pick(er), pick(dph), pick(amp32)
             tu_r, tv_r = pick(tu32), pick(tv32)
             if keep:
