@@ -793,8 +793,8 @@ def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
                     a_u = tu_r - np.float32(xj) * su_r + _TINY32   # sinc(0) = 1 where t lands on 0
                     a_v = tv_r - np.float32(xj) * sv_r + _TINY32
                     t = a_r * (np.sin(a_u) * np.sin(a_v) / (a_u * a_v))
-                re = np.sum(t * np.cos(ph), axis=(1, 2), dtype=np.float64)
-                im = np.sum(t * np.sin(ph), axis=(1, 2), dtype=np.float64)
+                re = np.sum(t * np.cos(ph), axis=(1, 2)).astype(np.float64)
+                im = np.sum(t * np.sin(ph), axis=(1, 2)).astype(np.float64)
                 acc_r += wj * (re * re + im * im)
             acc[rows] = acc_r
         out[sl] = np.minimum(acc, np.sum(amp, axis=(1, 2)) ** 2)  # as above: rounding only
