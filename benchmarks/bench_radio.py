@@ -8,6 +8,12 @@ and cosines.  Near field: N triples (default 100 000) close enough to 0.3-1 m pa
 sum is used.  Baselines, on a small sample of the same triples: a pure-Python loop with the math module
 (far field) and a loop calling ``surface_gain`` once per triple (both).  Target: far field >= 5 million
 triples/s on one core.
+
+Panel control: N mixed triples (default 200 000, a quarter of them near field as above, the rest far field)
+through ``surface_gain`` with today's ``control="focus"`` and with the planning default ``control="beams"``
+plus a 400 MHz band average (beam squint), printed as a time ratio on the same triples (best of 5 runs of
+each, interleaved; process CPU time, so that other work on a shared machine does not skew the ratio).
+Target: at most about 2-3x.
 """
 
 from __future__ import annotations
@@ -71,6 +77,8 @@ def main():
     ap.add_argument("--far", type=int, default=10_000_000)
     ap.add_argument("--near", type=int, default=100_000)
     ap.add_argument("--sample", type=int, default=20_000, help="triples in the naive pure-Python baseline")
+    ap.add_argument("--mixed", type=int, default=200_000, help="triples in the focus-versus-beams comparison")
+    ap.add_argument("--near-share", type=float, default=0.25, help="near-field share of the mixed triples")
     args = ap.parse_args()
     rng = np.random.default_rng(12345)
     side = 0.3
@@ -124,6 +132,33 @@ def main():
     print(f"near field (tile sum)   : {len(tx):>11,d} triples  {near_rate / 1e3:8.1f} k triples/s")
     print(f"  baseline one surface_gain call per triple ({k3:,d}): {loop_rate / 1e3:8.2f} k triples/s  -> ratio "
           f"{near_rate / loop_rate:7.1f}x")
+
+    # ------------------------------------------------------------------- panel control: beams vs focus
+    n_near = int(round(args.mixed * args.near_share))
+    tx_f, rx_f, c_f = far_triples(rng, args.mixed - n_near)
+    tx_n, rx_n, c_n, s_n = near_triples(rng, n_near)
+    tx, rx, c = np.vstack([tx_f, tx_n]), np.vstack([rx_f, rx_n]), np.vstack([c_f, c_n])
+    sides = np.r_[np.full(len(tx_f), side), s_n]
+    runs = {
+        "focus (today)": dict(),
+        "beams": dict(control="beams"),
+        "beams + 400 MHz squint": dict(control="beams", bandwidth_hz=400e6),
+        "focus + 400 MHz squint": dict(bandwidth_hz=400e6),
+    }
+    times = {name: math.inf for name in runs}
+    g_focus = surface_gain(tx, rx, c, 0.0, sides, sides, F_HZ)
+    for _ in range(5):  # interleaved repeats, best CPU time of each
+        for name, kw in runs.items():
+            t = time.process_time()
+            g = surface_gain(tx, rx, c, 0.0, sides, sides, F_HZ, **kw)
+            times[name] = min(times[name], time.process_time() - t)
+            assert np.all(g <= g_focus * (1 + 1e-9))  # more realistic control never beats ideal focusing
+    base = times["focus (today)"]
+    print(f"panel control on {len(tx):,d} mixed triples ({n_near:,d} near field, {len(tx) - n_near:,d} far field):")
+    for name, t in times.items():
+        print(f"  {name:<24s}: {t * 1e3:8.1f} ms  -> {t / base:5.2f}x focus")
+    ratio = times["beams + 400 MHz squint"] / base
+    print(f"  default beams + squint vs focus: {ratio:.2f}x ({'within' if ratio <= 3.0 else 'ABOVE'} the ~2-3x target)")
 
 
 if __name__ == "__main__":

@@ -20,8 +20,8 @@ from .nearfield import (element_gain_exact, irs_gain_exact, mirror_limit_gain, n
 from .pathloss import (MODELS, breakpoint_distance_m, direct_model_fit, direct_path_loss_db,
                        free_space_path_loss_db, fresnel_radius_m, los_excess_db, los_probability_uma, los_probability_umi, uma_los_db, uma_nlos_db,
                        umi_street_canyon_los_db, umi_street_canyon_nlos_db)
-from .surface import (element_sum_gain, far_field_gain, fraunhofer_distance_m, quantisation_efficiency,
-                      surface_gain, tile_counts)
+from .surface import (DEFAULT_ELEMENT_Q, element_sum_gain, element_sum_gain_profile, far_field_gain,
+                      fraunhofer_distance_m, nearest_beam, quantisation_efficiency, surface_gain, tile_counts)
 
 __all__ = [
     "SPEED_OF_LIGHT_M_S", "RadioInputError", "RadioValidityWarning",
@@ -40,5 +40,5 @@ __all__ = [
     "los_probability_uma", "los_probability_umi", "uma_los_db", "uma_nlos_db",
     "umi_street_canyon_los_db", "umi_street_canyon_nlos_db",
     "element_sum_gain", "far_field_gain", "fraunhofer_distance_m", "quantisation_efficiency",
-    "surface_gain", "tile_counts",
+    "surface_gain", "tile_counts", "DEFAULT_ELEMENT_Q", "element_sum_gain_profile", "nearest_beam",
 ]
