@@ -66,6 +66,31 @@ from .tables import Points
 __all__ = ["Obstacles", "visible_pairs", "line_of_sight", "los_graph", "degree_stats"]
 
 _MAX_GRID_CELLS = 4_000_000
+_E = np.zeros(0)
+_NO_BUILDINGS = (np.zeros(0, np.int64), _E, _E, _E, _E, _E, np.zeros(0, np.int64), _E, _E, _E, _E, _E)
+
+
+def _clearance_kl(clearance_fraction, wavelength_m) -> float:
+    """k^2 lambda [m] of the clearance rule (0 for the bare ray), after checking the two parameters."""
+    k = clearance_fraction
+    if not (isinstance(k, (int, float, np.integer, np.floating)) and np.isfinite(k) and k >= 0):
+        raise JobError(
+            f"clearance_fraction must be a finite number >= 0 (0 = bare ray, 0.6 = the usual 0.6 F1 rule), "
+            f"got {k!r}",
+            source="visibility",
+        )
+    if k == 0:
+        return 0.0
+    lam = wavelength_m
+    if lam is None:
+        raise JobError(
+            f"clearance_fraction = {k} needs wavelength_m (the carrier wavelength c / f in metres, e.g. "
+            "0.0107 at 28 GHz); pass it or set clearance_fraction = 0",
+            source="visibility",
+        )
+    if not (isinstance(lam, (int, float, np.integer, np.floating)) and np.isfinite(lam) and lam > 0):
+        raise JobError(f"wavelength_m must be a positive number of metres, got {lam!r}", source="visibility")
+    return float(k) ** 2 * float(lam)
 
 
 def _as_geometry_array(geometries) -> tuple[np.ndarray, Any]:
@@ -99,7 +124,7 @@ class Obstacles:
         Roof height of each footprint [m].
     """
 
-    def __init__(self, polygons, heights_m, origin, cell_m, nx, ny, grid, n_edges):
+    def __init__(self, polygons, heights_m, origin, cell_m, nx, ny, grid, n_edges, edges=None):
         self.polygons = polygons
         self.heights_m = heights_m
         self.origin = origin
@@ -109,10 +134,14 @@ class Obstacles:
         self._grid = grid  # start, cx0, cy0, cx1, cy1, ch, hmax
         self.n_edges = int(n_edges)
         self._tree = None
+        # edges relative to origin (x0, y0, x1, y1, building row), for the clearance grids built on demand
+        self._edges = edges
+        self._clear_grids = {}
 
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_tree"] = None  # rebuilt lazily
+        state["_clear_grids"] = {}
         return state
 
     @classmethod
@@ -184,11 +213,13 @@ class Obstacles:
             same = coord_ring[1:] == coord_ring[:-1]
             ex0, ey0 = coords[:-1][same, 0], coords[:-1][same, 1]
             ex1, ey1 = coords[1:][same, 0], coords[1:][same, 1]
-            eh = heights[part_of[ring_of[coord_ring[:-1][same]]]]
+            eb = part_of[ring_of[coord_ring[:-1][same]]].astype(np.int64)
+            eh = heights[eb]
             keep = (ex0 != ex1) | (ey0 != ey1)
-            ex0, ey0, ex1, ey1, eh = ex0[keep], ey0[keep], ex1[keep], ey1[keep], eh[keep]
+            ex0, ey0, ex1, ey1, eh, eb = ex0[keep], ey0[keep], ex1[keep], ey1[keep], eh[keep], eb[keep]
         else:
             ex0 = ey0 = ex1 = ey1 = eh = np.zeros(0)
+            eb = np.zeros(0, np.int64)
         n_edges = len(ex0)
         if n_edges:
             xmin, ymin = min(ex0.min(), ex1.min()), min(ey0.min(), ey1.min())
@@ -216,8 +247,10 @@ class Obstacles:
             float(cell_m),
             nx,
             ny,
+            _k.EDGE_PAD_M,
         )
-        return cls(geoms, heights, origin, cell_m, nx, ny, grid, n_edges)
+        edges = (ex0 - origin[0], ey0 - origin[1], ex1 - origin[0], ey1 - origin[1], eb)
+        return cls(geoms, heights, origin, cell_m, nx, ny, grid, n_edges, edges)
 
     # ------------------------------------------------------------------ helpers
     @property
@@ -250,7 +283,52 @@ class Obstacles:
         return np.asarray(z_m, float) < self.roof_above(x, y)
 
     def _kernel_args(self):
-        return (self.cell_m, self.nx, self.ny) + tuple(self._grid)
+        """(origin, kernel arguments) of the bare-ray rule: the edge grid as built, no clearance data."""
+        return self.origin, (0.0, self.cell_m, self.nx, self.ny) + tuple(self._grid) + (_NO_BUILDINGS,)
+
+    def _clearance_args(self, kl: float, max_length_m: float):
+        """(origin, kernel arguments) of the clearance rule for segments up to ``max_length_m`` long.
+
+        The tube radius is at most rad = sqrt(kl L) / 2, so the grid lists every edge in the cells its
+        bounding box padded by rad touches and extends that far beyond the edges (a few more whole cells,
+        hence its own origin).  Built once per padding (rounded up to 0.5 m) and kept.
+        """
+        rad = 0.5 * math.sqrt(kl * max_length_m)
+        pad = max(0.5, math.ceil(rad / 0.5) * 0.5)
+        if pad not in self._clear_grids:
+            self._clear_grids[pad] = self._build_clear_grid(pad)
+        origin, args = self._clear_grids[pad]
+        return origin, (float(kl),) + args
+
+    def _build_clear_grid(self, pad: float):
+        cs = self.cell_m
+        m = int(math.ceil((pad + _k.EDGE_PAD_M) / cs))
+        shift = m * cs
+        origin = (self.origin[0] - shift, self.origin[1] - shift)
+        nx, ny = self.nx + 2 * m, self.ny + 2 * m
+        if self._edges is None:  # pragma: no cover - built by from_buildings
+            raise SitingError("Obstacles built without edges; use Obstacles.from_buildings")
+        ex0, ey0, ex1, ey1, eb = self._edges
+        ex0, ey0, ex1, ey1 = (np.ascontiguousarray(v + shift) for v in (ex0, ey0, ex1, ey1))
+        grid = _k.build_edge_grid(ex0, ey0, ex1, ey1, np.ascontiguousarray(self.heights_m[eb], dtype=np.float64),
+                                  cs, nx, ny, pad + _k.EDGE_PAD_M)  # fmt: skip
+        # buildings: bounding boxes binned into the same cells, and each building's edges (CSR by row)
+        nb = len(self.polygons)
+        order = np.argsort(eb, kind="stable")
+        ex0, ey0, ex1, ey1, eb = ex0[order], ey0[order], ex1[order], ey1[order], eb[order]
+        bstart = np.searchsorted(eb, np.arange(nb + 1)).astype(np.int64)
+        if nb:
+            bb = shapely.bounds(self.polygons) - np.array([origin[0], origin[1], origin[0], origin[1]])
+        else:
+            bb = np.zeros((0, 4))
+        c = np.ascontiguousarray
+        gstart, gx0, gy0, gx1, gy1, gid, _ = _k.build_edge_grid(
+            c(bb[:, 0]), c(bb[:, 1]), c(bb[:, 2]), c(bb[:, 3]), np.arange(nb, dtype=np.float64), cs, nx, ny,
+            _k.EDGE_PAD_M,
+        )  # fmt: skip
+        bld = (gstart, gx0, gy0, gx1, gy1, gid, bstart, c(self.heights_m, dtype=np.float64), c(ex0), c(ey0),
+               c(ex1), c(ey1))  # fmt: skip
+        return origin, (cs, nx, ny) + tuple(grid) + (bld,)
 
     def __repr__(self) -> str:
         return (
@@ -340,6 +418,8 @@ def visible_pairs(
     b_index=None,
     los_only: bool = False,
     float_dtype=np.float64,
+    clearance_fraction: float = 0.0,
+    wavelength_m: float | None = None,
 ) -> pd.DataFrame:
     """Pairs of points within range, with line of sight, distances and facade angles.
 
@@ -364,6 +444,11 @@ def visible_pairs(
         Return only the pairs with line of sight.
     float_dtype : numpy float dtype, default float64
         dtype of the float columns.
+    clearance_fraction : float, default 0
+        k >= 0: ``los`` also requires every building solid to stay farther than k F1(t) from the ray
+        (first-Fresnel-zone clearance, see the module docstring).  0 is the bare ray.
+    wavelength_m : float, optional
+        Carrier wavelength [m] for F1; required when ``clearance_fraction > 0``.
 
     Returns
     -------
@@ -376,11 +461,15 @@ def visible_pairs(
     b = _as_points(b, "b")
     if not (np.isfinite(max_range_m) and max_range_m > 0):
         raise JobError(f"max_range_m must be a positive number of metres, got {max_range_m!r}", source="visibility")
+    kl = _clearance_kl(clearance_fraction, wavelength_m)
+    if kl > 0:
+        o, kargs = obstacles._clearance_args(kl, float(max_range_m))
+    else:
+        o, kargs = obstacles._kernel_args()
     thr_a = _cos_threshold(steer_limit_deg, "steer_limit_deg")
     thr_b = thr_a if steer_limit_b_deg is None else _cos_threshold(steer_limit_b_deg, "steer_limit_b_deg")
     ia = _subset(a_index, len(a), "a_index")
     ib = _subset(b_index, len(b), "b_index")
-    o = obstacles.origin
     ax, ay, az, ahas, anx, any_ = _normal_arrays(a, ia, o)
     bx, by, bz, bhas, bnx, bny = _normal_arrays(b, ib, o)
     buried_a = obstacles.buried(ax + o[0], ay + o[1], az)
@@ -391,7 +480,7 @@ def visible_pairs(
         ax, ay, az, ahas, anx, any_, thr_a,
         bx, by, bz, bhas, bnx, bny, thr_b,
         r, px0, py0, pcs, pnx, pny, pstart, porder,
-        True, buried_a, buried_b, *obstacles._kernel_args(),
+        True, buried_a, buried_b, *kargs,
     )  # fmt: skip
     out_off = _k.output_offsets(offsets, key, bool(los_only))
     n_out = out_off[-1]
@@ -416,11 +505,15 @@ def visible_pairs(
     return pd.DataFrame(cols, copy=False)
 
 
-def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz) -> np.ndarray:
+def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz, clearance_fraction: float = 0.0,
+                  wavelength_m: float | None = None) -> np.ndarray:  # fmt: skip
     """Element-wise LOS between ``a_xyz[i]`` and ``b_xyz[i]`` (arrays of shape (n, 3): x, y, z_m [m]).
 
-    No range or facade filter is applied; see the module docstring for the rule.
+    No range or facade filter is applied; see the module docstring for the rule.  With
+    ``clearance_fraction`` k > 0 (``wavelength_m`` [m] then required) a pair is clear only when every building
+    solid stays farther than k F1(t) from the ray (first-Fresnel-zone clearance).
     """
+    kl = _clearance_kl(clearance_fraction, wavelength_m)
     a_xyz = np.asarray(a_xyz, float)
     b_xyz = np.asarray(b_xyz, float)
     if a_xyz.ndim != 2 or a_xyz.shape[1] != 3 or a_xyz.shape != b_xyz.shape:
@@ -431,14 +524,18 @@ def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz) -> np.ndarray:
     if not (np.isfinite(a_xyz).all() and np.isfinite(b_xyz).all()):
         bad = np.flatnonzero(~(np.isfinite(a_xyz).all(1) & np.isfinite(b_xyz).all(1)))
         raise InputDataError(f"line_of_sight: rows {bad[:10].tolist()} have non-finite coordinates; drop them")
-    o = obstacles.origin
+    if kl > 0:
+        lmax = float(np.sqrt(((b_xyz - a_xyz) ** 2).sum(1)).max()) if len(a_xyz) else 0.0
+        o, kargs = obstacles._clearance_args(kl, lmax)
+    else:
+        o, kargs = obstacles._kernel_args()
     ba = obstacles.buried(a_xyz[:, 0], a_xyz[:, 1], a_xyz[:, 2])
     bb = obstacles.buried(b_xyz[:, 0], b_xyz[:, 1], b_xyz[:, 2])
     c = lambda v: np.ascontiguousarray(v)  # noqa: E731
     return _k.los_elementwise(
         c(a_xyz[:, 0] - o[0]), c(a_xyz[:, 1] - o[1]), c(a_xyz[:, 2]),
         c(b_xyz[:, 0] - o[0]), c(b_xyz[:, 1] - o[1]), c(b_xyz[:, 2]),
-        ba, bb, *obstacles._kernel_args(),
+        ba, bb, *kargs,
     )  # fmt: skip
 
 
