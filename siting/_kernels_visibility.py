@@ -213,34 +213,38 @@ def _tube_g(t, ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, u0, u1):
 
 
 @njit(cache=True, inline="always")
-def wall_blocks(k, ax, ay, az, dx, dy, dz, c, rad, cx0, cy0, cx1, cy1, ch):
-    """True when the tube of radius sqrt(c t (1 - t)) around P(t) = a + t d, t in [0, 1], reaches strictly
-    inside the distance of the wall face of grid entry k (edge e x [0, h]).
+def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch):
+    """Clearance test of grid entry k: the bare crossing below the roof, or the tube of radius
+    sqrt(c t (1 - t)) around P(t) = a + t d, t in [0, 1], reaching strictly inside the distance of the
+    entry's wall face (edge e x [0, h]).
 
     g(t) = d_e(t)^2 + max(0, z(t) - h)^2 - c t (1 - t), with d_e the horizontal distance from the track to
     the edge segment, is the squared distance from P(t) to the wall face minus the squared radius.  It is
     convex and continuously differentiable, and its derivative is piecewise linear with breaks where the
     projection of the track onto the edge line leaves the segment (u = 0, 1) and where z(t) = h.  The
-    minimum is found exactly: the bracket where g' changes sign, then the root of the linear piece.
-    ``rad`` = sqrt(c) / 2 is the largest radius, used for the cheap rejections.
+    minimum is found exactly: the bracket where g' changes sign, then the root of that linear piece.
+
+    Per-ray constants: ``rad`` = sqrt(c) / 2 the largest radius, ``dd`` = |d_xy|^2, ``rl`` = rad sqrt(dd),
+    ``zlo`` = min(z_a, z_b).  Edges the tube cannot reach are rejected first (they cannot be crossed below
+    the roof either): the ray stays ``rad`` above the roof, or both edge ends lie ``rad`` or more to the
+    same side of the track's line.
     """
+    h = ch[k]
+    if zlo - h >= rad:
+        return False
     ex0 = cx0[k]
     ey0 = cy0[k]
     evx = cx1[k] - ex0
     evy = cy1[k] - ey0
-    h = ch[k]
-    # the tube never reaches more than rad above or beside the ray: cheap rejections first
-    if min(az, az + dz) - h >= rad:
-        return False
     qx = ex0 - ax
     qy = ey0 - ay
-    dd = dx * dx + dy * dy
+    s0 = dx * qy - dy * qx  # |d| x signed distance of each edge end from the track's line
+    s1 = s0 + dx * evy - dy * evx
+    if dd > 0.0 and ((s0 >= rl and s1 >= rl) or (s0 <= -rl and s1 <= -rl)):
+        return False
+    if edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
+        return True
     if dd > 0.0:
-        rl = rad * math.sqrt(dd)
-        s0 = dx * qy - dy * qx  # |d| x signed distance of each edge end from the track's line
-        s1 = s0 + dx * evy - dy * evx
-        if (s0 >= rl and s1 >= rl) or (s0 <= -rl and s1 <= -rl):
-            return False
         p0 = dx * qx + dy * qy  # |d| x position of each edge end along the track
         p1 = p0 + dx * evx + dy * evy
         if (p0 <= -rl and p1 <= -rl) or (p0 >= dd + rl and p1 >= dd + rl):
@@ -278,14 +282,6 @@ def wall_blocks(k, ax, ay, az, dx, dy, dz, c, rad, cx0, cy0, cx1, cy1, ch):
         tl = tr
         gl = gr
     return False  # g decreasing on [0, 1]: minimum at t = 1, radius zero
-
-
-@njit(cache=True, inline="always")
-def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, cx0, cy0, cx1, cy1, ch):
-    """Bare crossing below the roof, or the clearance tube reaching the wall face of grid entry k."""
-    if edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
-        return True
-    return wall_blocks(k, ax, ay, az, dx, dy, dz, c, rad, cx0, cy0, cx1, cy1, ch)
 
 
 @njit(cache=True)
@@ -342,6 +338,9 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
         return segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
     sc = math.sqrt(c)
     rad = 0.5 * sc
+    dd = dx * dx + dy * dy
+    rl = rad * math.sqrt(dd)
+    zlo = az if dz > 0.0 else az + dz
     m = dz / sc
     ts = 0.5 * (1.0 - m / math.sqrt(1.0 + m * m))  # stationary point of z(t) - sqrt(c t (1 - t))
     t0 = 0.0
@@ -406,7 +405,7 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
         fmin = az + tc * dz - sc * math.sqrt(max(0.0, tc * (1.0 - tc)))
         if fmin < hmax[cell] + HMAX_MARGIN_M:
             for k in range(start[cell], start[cell + 1]):
-                if edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, cx0, cy0, cx1, cy1, ch):
+                if edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch):
                     return k
         if t_exit >= t1:
             break
@@ -513,8 +512,11 @@ def _last_blocks(k, x, y, z, bx, by, bz, kl, cx0, cy0, cx1, cy1, ch):
     dz = bz - z
     if kl == 0.0:
         return edge_blocks(k, x, y, z, dx, dy, dz, cx0, cy0, cx1, cy1, ch)
-    c = kl * math.sqrt(dx * dx + dy * dy + dz * dz)
-    return edge_blocks_clear(k, x, y, z, dx, dy, dz, c, 0.5 * math.sqrt(c), cx0, cy0, cx1, cy1, ch)
+    dd = dx * dx + dy * dy
+    c = kl * math.sqrt(dd + dz * dz)
+    rad = 0.5 * math.sqrt(c)
+    zlo = z if dz > 0.0 else z + dz
+    return edge_blocks_clear(k, x, y, z, dx, dy, dz, c, rad, rad * math.sqrt(dd), dd, zlo, cx0, cy0, cx1, cy1, ch)
 
 
 @njit(cache=True)
