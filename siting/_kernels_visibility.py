@@ -400,10 +400,16 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
     while True:
         t_exit = min(tmaxx, tmaxy, t1)
         cell = iy * nx + ix
-        tc = ts if ts > t_enter else t_enter
-        tc = tc if tc < t_exit else t_exit
-        fmin = az + tc * dz - sc * math.sqrt(max(0.0, tc * (1.0 - tc)))
-        if fmin < hmax[cell] + HMAX_MARGIN_M:
+        za = az + t_enter * dz
+        zb = az + t_exit * dz
+        zmin = za if za < zb else zb
+        hm = hmax[cell] + HMAX_MARGIN_M
+        visit = zmin - rad < hm
+        if visit and zmin >= hm:  # the ray is above the roofs: exact minimum of z - r over the cell
+            tc = ts if ts > t_enter else t_enter
+            tc = tc if tc < t_exit else t_exit
+            visit = az + tc * dz - sc * math.sqrt(max(0.0, tc * (1.0 - tc))) < hm
+        if visit:
             for k in range(start[cell], start[cell + 1]):
                 if edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch):
                     return k
