@@ -249,7 +249,21 @@ def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, 
         p1 = p0 + dx * evx + dy * evy
         if (p0 <= -rl and p1 <= -rl) or (p0 >= dd + rl and p1 >= dd + rl):
             return False
+    return _tube_min_negative(ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, qx, qy)
+
+
+@njit(cache=True)
+def _tube_min_negative(ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, qx, qy):
+    """Exact part of :func:`edge_blocks_clear` (scalars only, kept out of the hot loop): min over t of g < 0?"""
     ee = evx * evx + evy * evy
+    # lower bound: the distance to the edge's line, |sg0 + t sg1| / |e|, instead of the distance to the
+    # wall face; when (sg0 + t sg1)^2 - |e|^2 c t (1 - t) has no root inside (0, 1) the tube misses the wall
+    sg0 = evy * qx - evx * qy
+    sg1 = evx * dy - evy * dx
+    qa = sg1 * sg1 + c * ee
+    qb = 2.0 * sg0 * sg1 - c * ee
+    if qb * qb < 4.0 * qa * sg0 * sg0 or qb >= 0.0 or -qb >= 2.0 * qa:
+        return False
     u0 = -(qx * evx + qy * evy) / ee
     u1 = (dx * evx + dy * evy) / ee
     # breakpoints of g' inside (0, 1), sorted (at most three)
@@ -284,7 +298,7 @@ def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, 
     return False  # g decreasing on [0, 1]: minimum at t = 1, radius zero
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def roof_over(qx, qy, zthr, cs, nx, ny, bld):
     """True when the ground point (qx, qy) lies strictly inside a footprint whose roof is above ``zthr``.
 
@@ -317,7 +331,7 @@ def roof_over(qx, qy, zthr, cs, nx, ny, bld):
     return False
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
     """Clearance version of :func:`segment_blocked`: grid entry of a blocking edge, -2 when the tube reaches a
     roof away from every edge, -1 when clear.
@@ -431,12 +445,37 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
     return -1
 
 
-@njit(cache=True, inline="always")
-def blocked_any(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
-    """Bare rule (kl = 0: exactly :func:`segment_blocked`) or clearance rule (kl = k^2 lambda > 0)."""
-    if kl == 0.0:
-        return segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
-    return segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)
+@njit(cache=True)
+def clear_rays(ax, ay, az, ia, bx, by, bz, ib, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
+    """LOS flags under the clearance rule (kl = k^2 lambda > 0) for the rays a[ia[q]] -> b[ib[q]].
+
+    The only compiled copy of the clearance walk: both entry points call it for a batch of rays (all rays
+    of one ``a`` point, or a chunk of element-wise pairs), so the per-call cost is paid once per batch.  The
+    grid entry that blocked the previous ray from the same ``a`` is tried first.  Buried endpoints are the
+    caller's business.
+    """
+    n = ia.shape[0]
+    out = np.empty(n, np.bool_)
+    last = -1
+    prev = -1
+    for q in range(n):
+        i = ia[q]
+        j = ib[q]
+        if i != prev:
+            last = -1
+            prev = i
+        x = ax[i]
+        y = ay[i]
+        z = az[i]
+        if last >= 0 and _last_blocks(last, x, y, z, bx[j], by[j], bz[j], kl, cx0, cy0, cx1, cy1, ch):
+            out[q] = False
+            continue
+        k = segment_blocked_clear(x, y, z, bx[j], by[j], bz[j], kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+                                  bld)  # fmt: skip
+        out[q] = k == -1
+        if k >= 0:
+            last = k
+    return out
 
 
 @njit(cache=True, parallel=True)
@@ -446,14 +485,23 @@ def los_elementwise(
     """Element-wise LOS flags for pairs (a[i], b[i])."""
     n = ax.shape[0]
     out = np.empty(n, np.bool_)
+    if kl > 0.0:
+        chunk = 512
+        for c in prange((n + chunk - 1) // chunk):
+            lo = c * chunk
+            hi = min(n, lo + chunk)
+            idx = np.arange(lo, hi)
+            vis = clear_rays(ax, ay, az, idx, bx, by, bz, idx, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)
+            for q in range(hi - lo):
+                out[lo + q] = vis[q] and not (buried_a[lo + q] or buried_b[lo + q])
+        return out
     for i in prange(n):
         if buried_a[i] or buried_b[i]:
             out[i] = False
         else:
             out[i] = (
-                blocked_any(ax[i], ay[i], az[i], bx[i], by[i], bz[i], kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
-                            bld)
-                == -1
+                segment_blocked(ax[i], ay[i], az[i], bx[i], by[i], bz[i], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
+                < 0
             )
     return out
 
@@ -516,8 +564,10 @@ def _last_blocks(k, x, y, z, bx, by, bz, kl, cx0, cy0, cx1, cy1, ch):
     dx = bx - x
     dy = by - y
     dz = bz - z
+    if edge_blocks(k, x, y, z, dx, dy, dz, cx0, cy0, cx1, cy1, ch):  # cheap, and enough under either rule
+        return True
     if kl == 0.0:
-        return edge_blocks(k, x, y, z, dx, dy, dz, cx0, cy0, cx1, cy1, ch)
+        return False
     dd = dx * dx + dy * dy
     c = kl * math.sqrt(dd + dz * dz)
     rad = 0.5 * math.sqrt(c)
@@ -564,17 +614,24 @@ def _scan(
                 continue
             if fill:
                 vis = False
-                if with_los and not (buried_a[i] or buried_b[j]):
-                    if last >= 0 and _last_blocks(last, x, y, z, bx[j], by[j], bz[j], kl, cx0, cy0, cx1, cy1, ch):
+                if with_los and kl == 0.0 and not (buried_a[i] or buried_b[j]):
+                    if last >= 0 and edge_blocks(last, x, y, z, bx[j] - x, by[j] - y, bz[j] - z, cx0, cy0, cx1, cy1, ch):
                         vis = False
                     else:
-                        k = blocked_any(x, y, z, bx[j], by[j], bz[j], kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
-                                        bld)  # fmt: skip
-                        vis = k == -1
+                        k = segment_blocked(x, y, z, bx[j], by[j], bz[j], cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
+                        vis = k < 0
                         if k >= 0:
                             last = k
                 key[pos + n] = 2 * j + (1 if vis else 0)
             n += 1
+    if fill and with_los and kl > 0.0 and n > 0 and not buried_a[i]:
+        # clearance rule: all rays of this point in one batch (in scan order, for the blocking-edge cache)
+        js = key[pos : pos + n] >> 1
+        vis = clear_rays(ax, ay, az, np.full(n, i, np.int64), bx, by, bz, js, kl, cs, nx, ny, start, cx0, cy0, cx1,
+                         cy1, ch, hmax, bld)  # fmt: skip
+        for q in range(n):
+            if vis[q] and not buried_b[js[q]]:
+                key[pos + q] += 1
     if fill and n > 1:
         key[pos : pos + n] = np.sort(key[pos : pos + n])
     return n
