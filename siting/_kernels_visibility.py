@@ -11,6 +11,11 @@ touches; the per-cell lists are stored contiguously (CSR: ``cell_start``) as cop
 ``ex0, ey0, ex1, ey1`` and the height ``eh`` of the owning building, so a cell's edges are read sequentially.
 ``cell_hmax`` is the tallest building among a cell's edges, used to skip cells the ray passes above.
 
+Clearance (first-Fresnel-zone tube, ``kl`` = k^2 lambda > 0): the same layout built with edges padded by the
+largest tube radius and its own origin, plus ``bld`` (building bounding boxes binned into the cells and each
+building's edges, for the roof point-in-polygon test).  ``kl`` = 0 runs the bare-ray walk unchanged; the
+clearance walk is compiled once, in :func:`clear_rays`.
+
 Point grid: the ``b`` points sorted by cell of a uniform grid (side ``pcs``); ``pstart`` is the CSR offset of
 each cell, ``porder`` maps a sorted position to the local ``b`` row.
 """
