@@ -1,7 +1,7 @@
 """2.5-D line of sight between point sets, as sparse pair tables with distances and angles.
 
-The rule (DESIGN.md section 4)
-------------------------------
+The rule
+--------
 Buildings are flat-roofed prisms: a footprint (Polygon or MultiPolygon; holes are courtyards, open air) and a
 roof height ``h_k`` above flat ground.  The straight 3-D segment between two points is **blocked** when, over
 any part of its horizontal track lying inside footprint ``k``, its height is below ``h_k``.
@@ -309,7 +309,7 @@ class Obstacles:
     def buried(self, x, y, z_m) -> np.ndarray:
         """True where a point lies strictly inside a footprint and below that building's roof.
 
-        Such an endpoint blocks every segment from it (DESIGN.md section 4).  A rooftop point at or above
+        Such an endpoint blocks every segment from it (the rule in the module docstring).  A rooftop point at or above
         its roof is not buried.
         """
         return np.asarray(z_m, float) < self.roof_above(x, y)

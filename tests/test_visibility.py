@@ -2,7 +2,7 @@
 
 Sources of truth used here
 --------------------------
-* The rule of DESIGN.md section 4 (a segment is blocked where its track is inside a footprint below the
+* The rule of siting.visibility (a segment is blocked where its track is inside a footprint below the
   roof), evaluated by :func:`reference_los`: shapely's (GEOS) intersection of each 2-D track with each
   footprint, and the ray height at every vertex of every intersection piece.  Independent of the edge-grid
   kernel.
