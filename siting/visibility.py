@@ -1,7 +1,7 @@
 """2.5-D line of sight between point sets, as sparse pair tables with distances and angles.
 
-The rule (DESIGN.md section 4)
-------------------------------
+The rule
+--------
 Buildings are flat-roofed prisms: a footprint (Polygon or MultiPolygon; holes are courtyards, open air) and a
 roof height ``h_k`` above flat ground.  The straight 3-D segment between two points is **blocked** when, over
 any part of its horizontal track lying inside footprint ``k``, its height is below ``h_k``.
@@ -17,6 +17,34 @@ lying inside the footprint.  The exact test used here is therefore
 boundary and does not enter; such grazing cases, and crossings within rounding of a corner or of the roof
 height, are decided by floating-point arithmetic and are documented as unspecified within 1 cm (the tests
 exclude them from the comparison with the brute-force reference and count them).
+
+First-Fresnel-zone clearance (optional)
+--------------------------------------
+With ``clearance_fraction`` k > 0 and ``wavelength_m`` lambda, the segment P(t) = A + t (B - A), t in [0, 1],
+of 3-D length L is **clear** only when, for every t, no point of any building solid (footprint incl. holes as
+open air, extruded from the ground to its roof) lies strictly within distance k F1(t) of P(t), where
+
+    F1(t) = sqrt(lambda t (1 - t) L)
+
+is the first Fresnel zone radius sqrt(lambda d1 d2 / (d1 + d2)) with d1 = tL, d2 = (1 - t) L (ITU-R P.530,
+"Propagation data and prediction methods required for the design of terrestrial line-of-sight systems",
+and ITU-R P.526, definition of the first Fresnel zone radius).  k = 0.6 is the usual planning rule (common
+practice).  This is a "tube of balls" approximation of the Fresnel ellipsoid, and the rule is exact as
+stated: the distance from P(t) to a prism is hypot(horizontal distance to the footprint, max(0, z - h)), so
+
+* a roof under the ray blocks when z(t) - h - k F1(t) < 0 at a point of the track inside the footprint;
+  this function is convex in t, so its minimum over the inside intervals is at the stationary point t* of
+  z - k F1 (closed form, tested with a point-in-polygon query) or at a crossing of the track with an edge;
+* a wall face (edge x [0, h]) blocks when d_e(t)^2 + max(0, z(t) - h)^2 - (k F1(t))^2 < 0 for some t; this
+  is convex and piecewise quadratic in t, and its minimum is found exactly (root of its piecewise linear
+  derivative);
+* the bare rule above still applies (it is the limit k -> 0, and k = 0 runs exactly the bare code path).
+
+The ground is not an obstacle.  The radius is zero at the endpoints, so a facade spot's own wall (a few
+centimetres behind it) blocks only rays that graze it: with F1 ~ sqrt(lambda s) at a distance s << L from the
+spot, a ray leaving at angle phi to the wall plane is blocked when k^2 lambda / (4 sin phi) exceeds the
+offset (3.5 GHz, k = 0.6, 5 cm: phi below about 9 deg).  Only the decision is returned (no clearance
+margin column: finding the smallest margin would need a full walk instead of the early exit).
 
 Facade ends
 -----------
@@ -44,7 +72,11 @@ runs one compiled two-pass kernel (numba, ``parallel=True`` over the ``a`` point
 grid of the ``b`` points finds the pairs within range (count pass, then fill pass) and, in the fill pass, the
 edge grid is traversed cell by cell along each track (DDA) with early exit at the first blocking crossing.
 Cells whose tallest building stays below the ray are skipped.  Whether an endpoint is inside a footprint
-below its roof is decided once per point with shapely (``STRtree.query(..., predicate="within")``).
+below its roof is decided once per point with shapely (``STRtree.query(..., predicate="within")``).  With
+clearance, a second edge grid whose edges are padded by the largest tube radius k sqrt(lambda L_max) / 2 is
+built once per padding and kept on the :class:`Obstacles`, along with a grid of building bounding boxes for
+the roof test; a cell is skipped when the minimum of z(t) - k F1(t) over its part of the track is above its
+tallest building.
 
 Output dtypes: ``a``, ``b`` int64; ``los`` bool; float columns float64 by default (``float_dtype=np.float32``
 halves their memory at city scale, with ~1e-5 relative precision).
@@ -66,6 +98,31 @@ from .tables import Points
 __all__ = ["Obstacles", "visible_pairs", "line_of_sight", "los_graph", "degree_stats"]
 
 _MAX_GRID_CELLS = 4_000_000
+_E = np.zeros(0)
+_NO_BUILDINGS = (np.zeros(0, np.int64), _E, _E, _E, _E, _E, np.zeros(0, np.int64), _E, _E, _E, _E, _E)
+
+
+def _clearance_kl(clearance_fraction, wavelength_m) -> float:
+    """k^2 lambda [m] of the clearance rule (0 for the bare ray), after checking the two parameters."""
+    k = clearance_fraction
+    if not (isinstance(k, (int, float, np.integer, np.floating)) and np.isfinite(k) and k >= 0):
+        raise JobError(
+            f"clearance_fraction must be a finite number >= 0 (0 = bare ray, 0.6 = the usual 0.6 F1 rule), "
+            f"got {k!r}",
+            source="visibility",
+        )
+    if k == 0:
+        return 0.0
+    lam = wavelength_m
+    if lam is None:
+        raise JobError(
+            f"clearance_fraction = {k} needs wavelength_m (the carrier wavelength c / f in metres, e.g. "
+            "0.0107 at 28 GHz); pass it or set clearance_fraction = 0",
+            source="visibility",
+        )
+    if not (isinstance(lam, (int, float, np.integer, np.floating)) and np.isfinite(lam) and lam > 0):
+        raise JobError(f"wavelength_m must be a positive number of metres, got {lam!r}", source="visibility")
+    return float(k) ** 2 * float(lam)
 
 
 def _as_geometry_array(geometries) -> tuple[np.ndarray, Any]:
@@ -99,7 +156,7 @@ class Obstacles:
         Roof height of each footprint [m].
     """
 
-    def __init__(self, polygons, heights_m, origin, cell_m, nx, ny, grid, n_edges):
+    def __init__(self, polygons, heights_m, origin, cell_m, nx, ny, grid, n_edges, edges=None):
         self.polygons = polygons
         self.heights_m = heights_m
         self.origin = origin
@@ -109,10 +166,14 @@ class Obstacles:
         self._grid = grid  # start, cx0, cy0, cx1, cy1, ch, hmax
         self.n_edges = int(n_edges)
         self._tree = None
+        # edges relative to origin (x0, y0, x1, y1, building row), for the clearance grids built on demand
+        self._edges = edges
+        self._clear_grids = {}
 
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_tree"] = None  # rebuilt lazily
+        state["_clear_grids"] = {}
         return state
 
     @classmethod
@@ -184,11 +245,13 @@ class Obstacles:
             same = coord_ring[1:] == coord_ring[:-1]
             ex0, ey0 = coords[:-1][same, 0], coords[:-1][same, 1]
             ex1, ey1 = coords[1:][same, 0], coords[1:][same, 1]
-            eh = heights[part_of[ring_of[coord_ring[:-1][same]]]]
+            eb = part_of[ring_of[coord_ring[:-1][same]]].astype(np.int64)
+            eh = heights[eb]
             keep = (ex0 != ex1) | (ey0 != ey1)
-            ex0, ey0, ex1, ey1, eh = ex0[keep], ey0[keep], ex1[keep], ey1[keep], eh[keep]
+            ex0, ey0, ex1, ey1, eh, eb = ex0[keep], ey0[keep], ex1[keep], ey1[keep], eh[keep], eb[keep]
         else:
             ex0 = ey0 = ex1 = ey1 = eh = np.zeros(0)
+            eb = np.zeros(0, np.int64)
         n_edges = len(ex0)
         if n_edges:
             xmin, ymin = min(ex0.min(), ex1.min()), min(ey0.min(), ey1.min())
@@ -216,8 +279,10 @@ class Obstacles:
             float(cell_m),
             nx,
             ny,
+            _k.EDGE_PAD_M,
         )
-        return cls(geoms, heights, origin, cell_m, nx, ny, grid, n_edges)
+        edges = (ex0 - origin[0], ey0 - origin[1], ex1 - origin[0], ey1 - origin[1], eb)
+        return cls(geoms, heights, origin, cell_m, nx, ny, grid, n_edges, edges)
 
     # ------------------------------------------------------------------ helpers
     @property
@@ -244,13 +309,58 @@ class Obstacles:
     def buried(self, x, y, z_m) -> np.ndarray:
         """True where a point lies strictly inside a footprint and below that building's roof.
 
-        Such an endpoint blocks every segment from it (DESIGN.md section 4).  A rooftop point at or above
+        Such an endpoint blocks every segment from it (the rule in the module docstring).  A rooftop point at or above
         its roof is not buried.
         """
         return np.asarray(z_m, float) < self.roof_above(x, y)
 
     def _kernel_args(self):
-        return (self.cell_m, self.nx, self.ny) + tuple(self._grid)
+        """(origin, kernel arguments) of the bare-ray rule: the edge grid as built, no clearance data."""
+        return self.origin, (0.0, self.cell_m, self.nx, self.ny) + tuple(self._grid) + (_NO_BUILDINGS,)
+
+    def _clearance_args(self, kl: float, max_length_m: float):
+        """(origin, kernel arguments) of the clearance rule for segments up to ``max_length_m`` long.
+
+        The tube radius is at most rad = sqrt(kl L) / 2, so the grid lists every edge in the cells its
+        bounding box padded by rad touches and extends that far beyond the edges (a few more whole cells,
+        hence its own origin).  Built once per padding (rounded up to 0.5 m) and kept.
+        """
+        rad = 0.5 * math.sqrt(kl * max_length_m)
+        pad = max(0.5, math.ceil(rad / 0.5) * 0.5)
+        if pad not in self._clear_grids:
+            self._clear_grids[pad] = self._build_clear_grid(pad)
+        origin, args = self._clear_grids[pad]
+        return origin, (float(kl),) + args
+
+    def _build_clear_grid(self, pad: float):
+        cs = self.cell_m
+        m = int(math.ceil((pad + _k.EDGE_PAD_M) / cs))
+        shift = m * cs
+        origin = (self.origin[0] - shift, self.origin[1] - shift)
+        nx, ny = self.nx + 2 * m, self.ny + 2 * m
+        if self._edges is None:  # pragma: no cover - built by from_buildings
+            raise SitingError("Obstacles built without edges; use Obstacles.from_buildings")
+        ex0, ey0, ex1, ey1, eb = self._edges
+        ex0, ey0, ex1, ey1 = (np.ascontiguousarray(v + shift) for v in (ex0, ey0, ex1, ey1))
+        grid = _k.build_edge_grid(ex0, ey0, ex1, ey1, np.ascontiguousarray(self.heights_m[eb], dtype=np.float64),
+                                  cs, nx, ny, pad + _k.EDGE_PAD_M)  # fmt: skip
+        # buildings: bounding boxes binned into the same cells, and each building's edges (CSR by row)
+        nb = len(self.polygons)
+        order = np.argsort(eb, kind="stable")
+        ex0, ey0, ex1, ey1, eb = ex0[order], ey0[order], ex1[order], ey1[order], eb[order]
+        bstart = np.searchsorted(eb, np.arange(nb + 1)).astype(np.int64)
+        if nb:
+            bb = shapely.bounds(self.polygons) - np.array([origin[0], origin[1], origin[0], origin[1]])
+        else:
+            bb = np.zeros((0, 4))
+        c = np.ascontiguousarray
+        gstart, gx0, gy0, gx1, gy1, gid, _ = _k.build_edge_grid(
+            c(bb[:, 0]), c(bb[:, 1]), c(bb[:, 2]), c(bb[:, 3]), np.arange(nb, dtype=np.float64), cs, nx, ny,
+            _k.EDGE_PAD_M,
+        )  # fmt: skip
+        bld = (gstart, gx0, gy0, gx1, gy1, gid, bstart, c(self.heights_m, dtype=np.float64), c(ex0), c(ey0),
+               c(ex1), c(ey1))  # fmt: skip
+        return origin, (cs, nx, ny) + tuple(grid) + (bld,)
 
     def __repr__(self) -> str:
         return (
@@ -340,6 +450,8 @@ def visible_pairs(
     b_index=None,
     los_only: bool = False,
     float_dtype=np.float64,
+    clearance_fraction: float = 0.0,
+    wavelength_m: float | None = None,
 ) -> pd.DataFrame:
     """Pairs of points within range, with line of sight, distances and facade angles.
 
@@ -364,6 +476,11 @@ def visible_pairs(
         Return only the pairs with line of sight.
     float_dtype : numpy float dtype, default float64
         dtype of the float columns.
+    clearance_fraction : float, default 0
+        k >= 0: ``los`` also requires every building solid to stay farther than k F1(t) from the ray
+        (first-Fresnel-zone clearance, see the module docstring).  0 is the bare ray.
+    wavelength_m : float, optional
+        Carrier wavelength [m] for F1; required when ``clearance_fraction > 0``.
 
     Returns
     -------
@@ -376,11 +493,15 @@ def visible_pairs(
     b = _as_points(b, "b")
     if not (np.isfinite(max_range_m) and max_range_m > 0):
         raise JobError(f"max_range_m must be a positive number of metres, got {max_range_m!r}", source="visibility")
+    kl = _clearance_kl(clearance_fraction, wavelength_m)
+    if kl > 0:
+        o, kargs = obstacles._clearance_args(kl, float(max_range_m))
+    else:
+        o, kargs = obstacles._kernel_args()
     thr_a = _cos_threshold(steer_limit_deg, "steer_limit_deg")
     thr_b = thr_a if steer_limit_b_deg is None else _cos_threshold(steer_limit_b_deg, "steer_limit_b_deg")
     ia = _subset(a_index, len(a), "a_index")
     ib = _subset(b_index, len(b), "b_index")
-    o = obstacles.origin
     ax, ay, az, ahas, anx, any_ = _normal_arrays(a, ia, o)
     bx, by, bz, bhas, bnx, bny = _normal_arrays(b, ib, o)
     buried_a = obstacles.buried(ax + o[0], ay + o[1], az)
@@ -391,7 +512,7 @@ def visible_pairs(
         ax, ay, az, ahas, anx, any_, thr_a,
         bx, by, bz, bhas, bnx, bny, thr_b,
         r, px0, py0, pcs, pnx, pny, pstart, porder,
-        True, buried_a, buried_b, *obstacles._kernel_args(),
+        True, buried_a, buried_b, *kargs,
     )  # fmt: skip
     out_off = _k.output_offsets(offsets, key, bool(los_only))
     n_out = out_off[-1]
@@ -416,11 +537,15 @@ def visible_pairs(
     return pd.DataFrame(cols, copy=False)
 
 
-def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz) -> np.ndarray:
+def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz, clearance_fraction: float = 0.0,
+                  wavelength_m: float | None = None) -> np.ndarray:  # fmt: skip
     """Element-wise LOS between ``a_xyz[i]`` and ``b_xyz[i]`` (arrays of shape (n, 3): x, y, z_m [m]).
 
-    No range or facade filter is applied; see the module docstring for the rule.
+    No range or facade filter is applied; see the module docstring for the rule.  With
+    ``clearance_fraction`` k > 0 (``wavelength_m`` [m] then required) a pair is clear only when every building
+    solid stays farther than k F1(t) from the ray (first-Fresnel-zone clearance).
     """
+    kl = _clearance_kl(clearance_fraction, wavelength_m)
     a_xyz = np.asarray(a_xyz, float)
     b_xyz = np.asarray(b_xyz, float)
     if a_xyz.ndim != 2 or a_xyz.shape[1] != 3 or a_xyz.shape != b_xyz.shape:
@@ -431,14 +556,18 @@ def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz) -> np.ndarray:
     if not (np.isfinite(a_xyz).all() and np.isfinite(b_xyz).all()):
         bad = np.flatnonzero(~(np.isfinite(a_xyz).all(1) & np.isfinite(b_xyz).all(1)))
         raise InputDataError(f"line_of_sight: rows {bad[:10].tolist()} have non-finite coordinates; drop them")
-    o = obstacles.origin
+    if kl > 0:
+        lmax = float(np.sqrt(((b_xyz - a_xyz) ** 2).sum(1)).max()) if len(a_xyz) else 0.0
+        o, kargs = obstacles._clearance_args(kl, lmax)
+    else:
+        o, kargs = obstacles._kernel_args()
     ba = obstacles.buried(a_xyz[:, 0], a_xyz[:, 1], a_xyz[:, 2])
     bb = obstacles.buried(b_xyz[:, 0], b_xyz[:, 1], b_xyz[:, 2])
     c = lambda v: np.ascontiguousarray(v)  # noqa: E731
     return _k.los_elementwise(
         c(a_xyz[:, 0] - o[0]), c(a_xyz[:, 1] - o[1]), c(a_xyz[:, 2]),
         c(b_xyz[:, 0] - o[0]), c(b_xyz[:, 1] - o[1]), c(b_xyz[:, 2]),
-        ba, bb, *obstacles._kernel_args(),
+        ba, bb, *kargs,
     )  # fmt: skip
 
 
