@@ -3,10 +3,10 @@
 Everything the layers, the survey list, the report and ``run.json`` print comes from :func:`derive`, so the
 same number is the same everywhere.
 
-Rules (from the plan's coverage relation, DESIGN.md sections 5 and 6)
+Rules (from the plan's coverage relation)
 --------------------------------------------------------------------
 * A surface is steered to one user at a time, so a user's SNR with the plan is its best SNR over the
-  coverage rows of the *chosen* options (each row already adds the surface coherently to the direct path),
+  coverage rows of the *chosen* options (each row already combines the surface path with the direct path),
   or its direct SNR when that is higher or when no chosen option reaches it.
 * The serving surface of a user is the chosen option giving that best SNR (ties: the better-ranked site);
   users whose direct path is at least as good have no serving surface.
