@@ -946,3 +946,16 @@ def test_bad_check_tables_are_rejected(tmp_path, mutate, match):
     with pytest.raises(SitingError, match=match):
         write_outputs(tmp_path / "out", b)
     assert not (tmp_path / "out").exists()
+
+
+def test_survey_csv_cells_cannot_run_as_formulas(tmp_path):
+    # OWASP "CSV Injection": a text cell starting with = + - @ is prefixed with an apostrophe; numbers stay
+    b = make_bundle()
+    b.buildings = b.buildings.assign(name=["=HYPERLINK(\"http://x\")", "@SUM(A1)"], address=["-2+3", "plain"])
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv", keep_default_na=False)
+    names = set(csv["name"]) | set(csv["address"])
+    assert not any(str(v).startswith(("=", "+", "-", "@")) for v in names)
+    assert set(csv["building_id"]) == {"b0", "b1"}  # both buildings carry chosen sites
+    assert {"'=HYPERLINK(\"http://x\")", "'@SUM(A1)", "'-2+3", "plain"} == names
+    assert pd.api.types.is_float_dtype(csv["lon"]) and (csv["lon"] > 0).all()  # numbers untouched

@@ -10,7 +10,8 @@ boresight gain minus its gain toward the panel), guessed_height_links (links of 
 sight when guessed building heights stand at the top of their band), exposure_w_m2 (highest RF power density
 from the surface or its feed where people may stand, a screening value), exposure_share (that density over the
 ICNIRP 2020 general-public whole-body reference level), backup_<k>_site_id / _lon / _lat for each backup k,
-notes.  The four check columns are empty when the run computed no site checks.
+notes.  The four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet
+would read as a formula (starting with = + - @, tab or carriage return) get a leading apostrophe.
 """
 
 from __future__ import annotations
@@ -66,9 +67,29 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise_formulas(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text cells that a spreadsheet would run as a formula get a leading apostrophe (OWASP, "CSV Injection");
+    numeric columns are left alone, so negative numbers stay numbers."""
+    out = frame.copy()
+    for c in out.columns:
+        col = out[c]
+        if col.dtype == object or pd.api.types.is_string_dtype(col):
+            text = col.astype(object)
+            risky = text.map(lambda v: isinstance(v, str) and v.startswith(FORMULA_START)).to_numpy(bool)
+            if risky.any():
+                out[c] = text.where(~risky, "'" + text.where(risky, "").astype(str))
+    return out
+
+
 def write_survey_csv(path, frame: pd.DataFrame) -> Path:
-    """Write the survey list atomically (UTF-8, '.' decimal point, lon/lat with 7 decimals)."""
-    return atomic.write_with(path, lambda fh: frame.to_csv(fh, index=False, lineterminator="\n"))
+    """Write the survey list atomically (UTF-8, '.' decimal point, lon/lat with 7 decimals); text cells that a
+    spreadsheet would read as a formula are written with a leading apostrophe."""
+    safe = neutralise_formulas(frame)
+    return atomic.write_with(path, lambda fh: safe.to_csv(fh, index=False, lineterminator="\n"))
 
 
 _CSS = """
