@@ -4,7 +4,7 @@ The bundle is synthetic (a street canyon from tests/canonical.py in EPSG:32633, 
 here without the other stages.  Expected values come from outside the module under test: pyproj transforms,
 geopandas / pyogrio / pandas readers, a plain-Python brute-force of the coverage rules stated in the issue,
 the 16-point compass rose (common practice), the element-count rule floor(w/p) x floor(h/p) and the 28 GHz
-wavelength of CHECKS.md section 1, and a real headless Chromium for the HTML.
+wavelength c / f (c = 299 792 458 m/s, SI definition), and a real headless Chromium for the HTML.
 """
 
 from __future__ import annotations
@@ -107,7 +107,7 @@ def make_bundle(random_state: int = 7, budget: float | None = 1300.0, max_panels
     for site in range(11):
         reach = np.flatnonzero(rng.random(n_users) < 0.35)
         base = np.where(np.isfinite(snr_direct[reach]), snr_direct[reach], -20.0) + rng.uniform(0.5, 18.0, reach.size)
-        for k, extra in ((0, 0.0), (1, 6.0)):  # the large panel: 4x area -> +12 dB far field (CHECKS section 8)
+        for k, extra in ((0, 0.0), (1, 6.0)):  # the large panel: 4x area; far-field gain ~ area^2: +12 dB (common practice)
             rows.append(pd.DataFrame({"option_id": 2 * site + k, "user_id": reach, "snr_db": base + extra,
                                       "bs_idx": site % 2}))
     coverage = pd.concat(rows, ignore_index=True)
@@ -240,7 +240,7 @@ def test_compass_points(az, name):
 
 
 def test_element_count_at_configured_pitch():
-    # 28 GHz: lambda = c / f = 0.0107069 m (CHECKS.md section 1); pitch 0.5 lambda = 5.35345 mm
+    # 28 GHz: lambda = c / f = 0.0107069 m (c = 299 792 458 m/s, SI definition); pitch 0.5 lambda = 5.35345 mm
     pitch = element_pitch_m({"surfaces": {"element_pitch_wavelengths": 0.5}, "radio": {"frequency_ghz": 28.0}})
     assert pitch == pytest.approx(0.0107069 / 2, rel=1e-5)
     # floor(0.3 / 0.00535345) = floor(56.04) = 56 per side; floor(0.6 / p) = floor(112.08) = 112
@@ -708,3 +708,254 @@ def matplotlib_png() -> bytes:
     buf = io.BytesIO()
     Figure(figsize=(1, 1)).savefig(buf, format="png")
     return buf.getvalue()
+
+
+# ------------------------------------------------------------------------------------------ site checks, sensitivity
+
+# ICNIRP 2020 guidelines (Health Physics 118(5), 2020), general public, whole body, 2-300 GHz: 10 W/m^2 (from memory)
+ICNIRP_WHOLE_BODY_W_M2 = 10.0
+# the three chosen options in rank order get, in turn: a front-lobe feed, a back-lobe feed, a guessed-height feed
+CHECK_ROWS = (
+    dict(feed_below_peak_db=3.25, back_lobe_feed=False, guessed_height_links=0, exposure_w_m2=0.0125,
+         exposure_where="at a served point"),
+    dict(feed_below_peak_db=27.5, back_lobe_feed=True, guessed_height_links=2, exposure_w_m2=0.5,
+         exposure_where="at the panel (station beam)"),
+    dict(feed_below_peak_db=12.0, back_lobe_feed=False, guessed_height_links=1, exposure_w_m2=12.0,
+         exposure_where="within 2 m in front of the panel"),
+)
+
+
+def hand_site_checks(b, where=None) -> pd.DataFrame:
+    """The runner's site_checks for the test plan, built by hand: the feed is the coverage rows' station
+    (site % 2 in make_bundle), plus one row of a not-chosen option that the outputs must ignore."""
+    order = list(b.ranking.sort_values("rank")["option"])
+    assert len(order) == len(CHECK_ROWS)
+    rows = []
+    for o, c in zip(order, CHECK_ROWS):
+        rows.append({"option_id": o, "feed_bs_idx": int(b.options.site_id[o]) % 2, **c,
+                     "exposure_reference_w_m2": ICNIRP_WHOLE_BODY_W_M2,
+                     "exposure_share": c["exposure_w_m2"] / ICNIRP_WHOLE_BODY_W_M2})
+    if where is not None:
+        rows[0]["exposure_where"] = where
+    spare = next(o for o in b.options.option_id if o not in order)
+    rows.append({**rows[0], "option_id": int(spare), "back_lobe_feed": True, "guessed_height_links": 9})
+    df = pd.DataFrame(rows)
+    return df.astype({"option_id": "int64", "feed_bs_idx": "int64", "guessed_height_links": "int64"})
+
+
+def hand_sensitivity(b, model=None) -> pd.DataFrame:
+    """Sensitivity rows by hand: the planning model equals the plan's covered weight (no load cap in the bundle)."""
+    fig = derive(b)
+    w, d = fig.summary["covered_weight_after"], fig.summary["covered_weight_before"]
+    rows = [("planning model", w, d), ("with coherent combining", w + 3.0, d + 1.0),
+            ("with per-user focusing", w + 1.5, d), ("with bare-ray line of sight", w - 0.5, d),
+            ("upper bound (all of the above)", w + 10.0, d + 5.0)]
+    if model is not None:
+        rows[1] = (model, w + 3.0, d + 1.0)
+    return pd.DataFrame(rows, columns=["model", "covered_weight", "covered_directly_weight"])
+
+
+def checked_bundle(**kw):
+    b = make_bundle(**kw)
+    b.site_checks, b.sensitivity = hand_site_checks(b), hand_sensitivity(b)
+    return b
+
+
+@pytest.fixture(scope="module")
+def checked_out(tmp_path_factory):
+    d = tmp_path_factory.mktemp("checked")
+    b = checked_bundle(params={"radio": {"frequency_ghz": 28.0, "snr_target_db": TARGET_DB, "fresnel_clearance": 0.5,
+                                         "coverage_probability": 0.95, "combining": "power"},
+                               "surfaces": {"element_pitch_wavelengths": 0.5, "control": "beams", "element_q": 2.0},
+                               "inputs": {"height_uncertainty_m": 4.0}})
+    write_outputs(d, b)
+    return d, b
+
+
+def test_site_checks_merge_by_option_and_notes(checked_out):
+    _, b = checked_out
+    fig = derive(b)
+    for c in ("feed_bs_id", "feed_below_peak_db", "back_lobe_feed", "guessed_height_links", "exposure_w_m2",
+              "exposure_where", "exposure_reference_w_m2", "exposure_share"):
+        assert c in fig.sites.columns, c
+    s = fig.sites.set_index("option_id")
+    sc = b.site_checks.set_index("option_id")
+    for o in s.index:  # merged by option id, not by row position
+        assert s.at[o, "feed_below_peak_db"] == sc.at[o, "feed_below_peak_db"]
+        assert bool(s.at[o, "back_lobe_feed"]) == sc.at[o, "back_lobe_feed"]
+        assert s.at[o, "guessed_height_links"] == sc.at[o, "guessed_height_links"]
+        assert s.at[o, "exposure_where"] == sc.at[o, "exposure_where"]
+        assert s.at[o, "feed_bs_id"] == b.base_stations.bs_id[sc.at[o, "feed_bs_idx"]]
+    notes = list(fig.sites["notes"])
+    assert notes[0] == ""  # front-lobe feed, no guessed heights
+    assert ("fed from the station's back lobe (27.5 dB below boresight): re-aiming the station may serve these "
+            "users without a panel") in notes[1]
+    assert "2 link(s) depend on guessed building heights: measure those heights" in notes[1]
+    assert "1 link(s) depend on guessed building heights" in notes[2] and "back lobe" not in notes[2]
+    # the third site's panel is wider than its wall (site 10, 0.4 m free): both notes, joined
+    if fig.sites["site_id"].iloc[2] == 10:
+        assert notes[2].startswith("panel wider than the free wall length") and "; 1 link(s)" in notes[2]
+    assert fig.summary["n_back_lobe_feeds"] == 1 and fig.summary["n_sites_on_guessed_heights"] == 2
+    assert fig.summary["max_exposure_share"] == pytest.approx(12.0 / ICNIRP_WHOLE_BODY_W_M2)
+
+
+def test_survey_lists_site_checks(checked_out):
+    d, b = checked_out
+    csv = pd.read_csv(d / "survey.csv")
+    for c in ("feed_below_peak_db", "guessed_height_links", "exposure_w_m2", "exposure_share"):
+        assert c in csv.columns, c
+    np.testing.assert_allclose(csv["feed_below_peak_db"], [r["feed_below_peak_db"] for r in CHECK_ROWS])
+    assert list(csv["guessed_height_links"]) == [r["guessed_height_links"] for r in CHECK_ROWS]
+    np.testing.assert_allclose(csv["exposure_w_m2"], [r["exposure_w_m2"] for r in CHECK_ROWS])
+    np.testing.assert_allclose(csv["exposure_share"], [r["exposure_w_m2"] / ICNIRP_WHOLE_BODY_W_M2 for r in CHECK_ROWS])
+    assert "back lobe" in csv["notes"].iloc[1]
+    text = (d / "survey.html").read_text(encoding="utf-8")
+    blocks = re.findall(r'<section class="site" id="site-\d+">(.*?)</section>', text, re.S)
+    assert len(blocks) == 3
+    assert "<th>feed below station boresight</th><td>27.5 dB (back lobe" in blocks[1]
+    assert "<th>links on guessed building heights</th><td>2 (measure those heights)</td>" in blocks[1]
+    assert "<th>RF exposure (screening)</th><td>12 W/m\u00b2 within 2 m in front of the panel</td>" in blocks[2]
+    assert "<th>share of the reference level</th><td>120.0 % of 10 W/m\u00b2" in blocks[2]
+    assert "screening value" in text and "local rules" in text  # the RF caution of the field checks stays
+
+
+def _section(text, heading):
+    m = re.search(r"<h2[^>]*>" + re.escape(heading) + r"</h2>(.*?)(?=<h2)", text, re.S)
+    assert m, heading
+    return m.group(1)
+
+
+def test_report_sensitivity_and_exposure_sections(checked_out):
+    d, b = checked_out
+    text = (d / "report.html").read_text(encoding="utf-8")
+    total = float(b.users.weight.sum())
+    sens = _section(text, "What the model assumptions are worth")
+    assert "planning model is the default" in sens and "upper bound" in sens and "at most deliver" in sens
+    rows = [re.findall(r"<td[^>]*>([^<]*)</td>", r) for r in re.findall(r"<tr>(.*?)</tr>", sens)[1:]]
+    assert [r[0] for r in rows] == list(b.sensitivity["model"])
+    for r, ref in zip(rows, b.sensitivity.itertuples()):
+        assert _close(r[1], ref.covered_weight, "weight") and _close(r[2], ref.covered_weight / total, "share")
+        assert _close(r[4], ref.covered_directly_weight, "weight")
+    assert [r[3] for r in rows] == ["reference", "+3.00", "+1.50", "-0.50", "+10.00"]
+
+    expo = _section(text, "RF exposure screening")
+    rows = [re.findall(r"<td[^>]*>([^<]*)</td>", r) for r in re.findall(r"<tr>(.*?)</tr>", expo)[1:]]
+    assert [r[3] for r in rows] == [c["exposure_where"] for c in CHECK_ROWS]
+    assert [float(r[2]) for r in rows] == [c["exposure_w_m2"] for c in CHECK_ROWS]
+    assert [r[5] for r in rows] == ["0.12 %", "5.00 %", "120.00 %"]
+    assert "rank 3" in expo and "exceeds the reference level" in expo
+    for phrase in ("ICNIRP 2020", "general-public whole-body reference level", "from memory",
+                   "local regulation", "licensed practice", "not a compliance assessment"):
+        assert phrase in expo, phrase
+
+    checks = _section(text, "Feeds and building heights to check")
+    items = re.findall(r"<li>(.*?)</li>", checks)
+    assert len(items) == 3  # one back-lobe feed, two sites on guessed heights
+    assert "rank 2" in items[0] and "BS-" in items[0] and "27.5 dB below boresight" in items[0]
+    assert "2 link(s)" in items[1] and "1 link(s)" in items[2]
+
+    md = (d / "report.md").read_text(encoding="utf-8")
+    for heading in ("## What the model assumptions are worth", "## RF exposure screening",
+                    "## Feeds and building heights to check"):
+        assert heading in md, heading
+    assert re.search(r"^\| with coherent combining \| [\d.]+ \| [\d.]+ % \| \+3\.00 \| [\d.]+ \|$", md, re.M)
+    assert re.search(r"^\| 3 \| \d+ \| 12 \| within 2 m in front of the panel \| 10 \| 120\.00 % \|$", md, re.M)
+
+
+def test_assumptions_name_the_jobs_values(checked_out):
+    import scipy.stats
+
+    d, _ = checked_out
+    text = _section((d / "report.html").read_text(encoding="utf-8"), "Model assumptions")
+    assert "leave 0.5 of the first Fresnel zone radius" in text  # radio.fresnel_clearance = 0.5
+    assert "probability of 95 %" in text
+    # fade margin in standard deviations: the normal quantile at 0.95 (scipy.stats.norm.ppf: 1.6449)
+    assert f"{scipy.stats.norm.ppf(0.95):.2f} standard deviations" in text
+    assert "3GPP TR 38.901 Table 7.4.1-1" in text and "7.82 dB NLOS" in text  # UMi default
+    assert "cos^2(\u03b8)" in text and "finite set of far-field beams" in text
+    assert "a beam squints across the channel" in text
+    assert "add in power" in text and "never with an NLOS direct path" in text
+    assert "\u00b14 m" in text and "aimed at the surface" in text
+    # other values change the words: upper-bound choices say so
+    words = " ".join(report_mod.assumptions({"radio": {"combining": "coherent", "station_beam": "envelope",
+                                                       "shadow_fading": False, "fresnel_clearance": 0.0},
+                                             "surfaces": {"control": "focus", "squint": False}}))
+    for phrase in ("co-phased so their amplitudes add", "best beam toward it", "No shadow fading",
+                   "bare geometric ray", "per-user focusing", "no beam squint"):
+        assert phrase in words, phrase
+
+
+def test_run_json_carries_both_tables(checked_out):
+    d, b = checked_out
+    run = json.loads((d / "run.json").read_text())
+    assert run["site_checks"] == json.loads(b.site_checks.to_json(orient="records"))
+    assert run["sensitivity"] == json.loads(b.sensitivity.to_json(orient="records"))
+    assert run["summary"]["n_back_lobe_feeds"] == 1
+    assert [s["guessed_height_links"] for s in run["sites"]] == [r["guessed_height_links"] for r in CHECK_ROWS]
+
+
+def test_data_strings_are_escaped(tmp_path):
+    evil = "<script>alert(1)</script>"
+    b = make_bundle()
+    b.site_checks = hand_site_checks(b, where=evil)
+    b.sensitivity = hand_sensitivity(b, model="<img src=x onerror=alert(2)> [x](https://example.org)")
+    b.buildings = b.buildings.assign(name=["<b>South</b> Row", "<script>x()</script>"])
+    write_outputs(tmp_path, b)
+    for name in ("report.html", "survey.html", "report.md"):
+        text = (tmp_path / name).read_text(encoding="utf-8")
+        assert "<script" not in text and "<img src=x" not in text and "<b>South" not in text, name
+    assert "](https://example.org)" not in (tmp_path / "report.md").read_text(encoding="utf-8")  # no live link
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in (tmp_path / "report.html").read_text(encoding="utf-8")
+    survey = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in survey and "&lt;b&gt;South&lt;/b&gt; Row" in survey
+    assert "&lt;img src=x onerror=alert(2)&gt;" in (tmp_path / "report.md").read_text(encoding="utf-8")
+    # the data comes back unchanged in the machine-readable record
+    assert json.loads((tmp_path / "run.json").read_text())["site_checks"][0]["exposure_where"] == evil
+
+
+def test_without_checks_the_output_set_is_complete(out, tmp_path):
+    d, files = out  # the module bundle has no site_checks / sensitivity
+    run = json.loads((d / "run.json").read_text())
+    assert run["site_checks"] is None and run["sensitivity"] is None
+    assert all(s["exposure_w_m2"] is None and s["back_lobe_feed"] is None for s in run["sites"])
+    csv = pd.read_csv(d / "survey.csv")
+    for c in ("feed_below_peak_db", "guessed_height_links", "exposure_w_m2", "exposure_share"):
+        assert c in csv.columns and csv[c].isna().all(), c
+    text = (d / "report.html").read_text(encoding="utf-8")
+    assert "No model sensitivity was computed" in text and "No exposure screening was computed" in text
+    assert "No site checks were computed" in text and "ICNIRP 2020" in text
+    assert "No model sensitivity was computed" in (d / "report.md").read_text(encoding="utf-8")
+    # an empty plan with (empty) tables handed over also writes every file
+    b = make_bundle(budget=120.0)
+    b.site_checks = hand_site_checks(make_bundle()).iloc[:0]
+    b.sensitivity = hand_sensitivity(b)
+    written = write_outputs(tmp_path, b)
+    assert {"survey_csv", "survey_html", "report_html", "report_md", "run_json"} <= set(written)
+    assert "What the model assumptions are worth" in (tmp_path / "report.html").read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("mutate, match", [
+    (lambda b: setattr(b, "site_checks", b.site_checks.drop(columns=["exposure_share"])), "lacks the column"),
+    (lambda b: setattr(b, "site_checks", pd.concat([b.site_checks, b.site_checks.iloc[:1]])), "more than one row"),
+    (lambda b: setattr(b, "sensitivity", b.sensitivity.drop(columns=["model"])), "lacks the column"),
+    (lambda b: setattr(b, "sensitivity", [1, 2]), "DataFrame or None"),
+])
+def test_bad_check_tables_are_rejected(tmp_path, mutate, match):
+    b = checked_bundle()
+    mutate(b)
+    with pytest.raises(SitingError, match=match):
+        write_outputs(tmp_path / "out", b)
+    assert not (tmp_path / "out").exists()
+
+
+def test_survey_csv_cells_cannot_run_as_formulas(tmp_path):
+    # OWASP "CSV Injection": a text cell starting with = + - @ is prefixed with an apostrophe; numbers stay
+    b = make_bundle()
+    b.buildings = b.buildings.assign(name=["=HYPERLINK(\"http://x\")", "@SUM(A1)"], address=["-2+3", "plain"])
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv", keep_default_na=False)
+    names = set(csv["name"]) | set(csv["address"])
+    assert not any(str(v).startswith(("=", "+", "-", "@")) for v in names)
+    assert set(csv["building_id"]) == {"b0", "b1"}  # both buildings carry chosen sites
+    assert {"'=HYPERLINK(\"http://x\")", "'@SUM(A1)", "'-2+3", "plain"} == names
+    assert pd.api.types.is_float_dtype(csv["lon"]) and (csv["lon"] > 0).all()  # numbers untouched

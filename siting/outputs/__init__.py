@@ -84,6 +84,13 @@ class OutputBundle:
     """may include "gpkg\""""
     include_candidates: bool = False
     title: str = "Reflecting-surface siting plan"
+    site_checks: pandas.DataFrame | None = None
+    """one row per chosen option: option_id, feed_bs_idx (-1 none), feed_below_peak_db, back_lobe_feed,
+    guessed_height_links, exposure_w_m2, exposure_where, exposure_reference_w_m2, exposure_share
+    (see :data:`siting.outputs.derive.SITE_CHECK_COLUMNS`); None when not computed"""
+    sensitivity: pandas.DataFrame | None = None
+    """model, covered_weight, covered_directly_weight: the chosen plan under the planning model, each planning
+    assumption relaxed alone and the upper-bound model; None when not computed"""
 
 
 def _check_formats(formats) -> tuple:

@@ -3,10 +3,10 @@
 Everything the layers, the survey list, the report and ``run.json`` print comes from :func:`derive`, so the
 same number is the same everywhere.
 
-Rules (from the plan's coverage relation, DESIGN.md sections 5 and 6)
+Rules (from the plan's coverage relation)
 --------------------------------------------------------------------
 * A surface is steered to one user at a time, so a user's SNR with the plan is its best SNR over the
-  coverage rows of the *chosen* options (each row already adds the surface coherently to the direct path),
+  coverage rows of the *chosen* options (each row already combines the surface path with the direct path),
   or its direct SNR when that is higher or when no chosen option reaches it.
 * The serving surface of a user is the chosen option giving that best SNR (ties: the better-ranked site);
   users whose direct path is at least as good have no serving surface.
@@ -14,6 +14,9 @@ Rules (from the plan's coverage relation, DESIGN.md sections 5 and 6)
   covered directly; this is the quantity the optimiser maximises.  With a per-surface load cap
   (``surfaces.load_cap_weight`` > 0) only the users the plan marks as covered (``plan.covered``) count and
   are served; the others keep their direct SNR, and a note says how many were left out.
+* Field checks (``site_checks``) and the model sensitivity (``sensitivity``) are computed by the runner and
+  only merged here: by option id into the site rows, with a plain-language note per site when the surface is
+  fed from a station's back lobe or some of its links depend on guessed building heights.
 * For a chosen site: *exclusive weight* is the newly covered weight that no other chosen site reaches at
   the target, *shared weight* the newly covered weight it reaches together with other chosen sites;
   *marginal weight* is what it adds in rank order, and *cumulative weight* the covered weight (direct
@@ -122,6 +125,8 @@ class PlanFigures:
     wall_free_m, source, n_options, chosen"""
     summary: dict
     notes: list = field(default_factory=list)
+    sensitivity: pd.DataFrame | None = None
+    """the chosen plan's covered weight per radio model (see :func:`sensitivity_table`); empty when not computed"""
 
 
 SITE_COLUMNS = (
@@ -129,8 +134,17 @@ SITE_COLUMNS = (
     "facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
     "cost", "marginal_weight", "exclusive_weight", "shared_weight", "cumulative_weight", "cumulative_share",
     "n_users_served", "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "wall_free_m",
-    "notes",
+    "feed_bs_id", "feed_below_peak_db", "back_lobe_feed", "guessed_height_links", "exposure_w_m2",
+    "exposure_where", "exposure_reference_w_m2", "exposure_share", "notes",
 )
+
+#: Columns of the runner's per-surface field checks (``OutputBundle.site_checks``), one row per chosen option.
+SITE_CHECK_COLUMNS = ("option_id", "feed_bs_idx", "feed_below_peak_db", "back_lobe_feed", "guessed_height_links",
+                      "exposure_w_m2", "exposure_where", "exposure_reference_w_m2", "exposure_share")
+#: Columns of the runner's model sensitivity table (``OutputBundle.sensitivity``).
+SENSITIVITY_COLUMNS = ("model", "covered_weight", "covered_directly_weight")
+#: The sensitivity row every other row is compared with.
+PLANNING_MODEL = "planning model"
 
 
 def _check_bundle(b) -> None:
@@ -190,6 +204,66 @@ def _check_bundle(b) -> None:
             raise SitingError("output bundle: plan.chosen puts two sizes on one site; the plan allows one per site")
     if (b.users["weight"] < 0).any():
         raise SitingError("output bundle: 'users.weight' has negative values; expected weights >= 0")
+    for name, cols in (("site_checks", SITE_CHECK_COLUMNS), ("sensitivity", SENSITIVITY_COLUMNS)):
+        df = getattr(b, name, None)
+        if df is None:
+            continue
+        if not isinstance(df, pd.DataFrame):
+            raise SitingError(f"output bundle: expected a DataFrame or None for '{name}', got {type(df).__name__}")
+        missing = [c for c in cols if c not in df.columns]
+        if missing:
+            raise SitingError(f"output bundle: '{name}' lacks the column(s) {missing}; expected {list(cols)}")
+    sc = getattr(b, "site_checks", None)
+    if sc is not None and sc["option_id"].duplicated().any():
+        raise SitingError("output bundle: 'site_checks' has more than one row for some option ids; expected one "
+                          "per chosen option")
+
+
+def _site_checks(sc: pd.DataFrame | None, chosen: np.ndarray, bs_name) -> dict:
+    """The field-check columns of the chosen sites in rank order (NA / NaN / '' where not computed)."""
+    k = len(chosen)
+    if sc is None or not len(sc):
+        r = pd.DataFrame(index=pd.Index(chosen, name="option_id"), columns=list(SITE_CHECK_COLUMNS[1:]))
+    else:
+        r = sc.drop_duplicates("option_id").set_index("option_id").reindex(chosen)
+    known = r["feed_bs_idx"].notna().to_numpy(bool)
+    feed_idx = pd.to_numeric(r["feed_bs_idx"], errors="coerce").fillna(-1).to_numpy(np.int64)
+    lobe = pd.array([bool(v) if ok and pd.notna(v) else pd.NA for v, ok in zip(r["back_lobe_feed"], known)],
+                    dtype="boolean")
+    guess = pd.to_numeric(r["guessed_height_links"], errors="coerce").round()
+    where = r["exposure_where"].astype(object).where(r["exposure_where"].notna(), "").astype(str).to_numpy(object)
+    return {
+        "feed_bs_id": np.asarray(bs_name(feed_idx), dtype=object) if k else np.zeros(0, dtype=object),
+        "feed_below_peak_db": pd.to_numeric(r["feed_below_peak_db"], errors="coerce").to_numpy(float),
+        "back_lobe_feed": lobe,
+        "guessed_height_links": pd.array(guess.to_numpy(float), dtype="Float64").astype("Int64"),
+        "exposure_w_m2": pd.to_numeric(r["exposure_w_m2"], errors="coerce").to_numpy(float),
+        "exposure_where": where,
+        "exposure_reference_w_m2": pd.to_numeric(r["exposure_reference_w_m2"], errors="coerce").to_numpy(float),
+        "exposure_share": pd.to_numeric(r["exposure_share"], errors="coerce").to_numpy(float),
+    }
+
+
+def sensitivity_table(b, total_weight: float) -> pd.DataFrame:
+    """The bundle's sensitivity rows with shares of the total weight and differences to the planning model.
+
+    Columns: model, covered_weight, covered_share, covered_directly_weight, difference_weight (covered weight
+    minus the planning model's; NaN when the table has no planning-model row).  Empty when not computed.
+    """
+    cols = ["model", "covered_weight", "covered_share", "covered_directly_weight", "difference_weight"]
+    sv = getattr(b, "sensitivity", None)
+    if sv is None or not len(sv):
+        return pd.DataFrame({c: pd.Series(dtype=object if c == "model" else float) for c in cols})
+    model = sv["model"].astype(object).where(sv["model"].notna(), "").astype(str).to_numpy(object)
+    cw = pd.to_numeric(sv["covered_weight"], errors="coerce").to_numpy(float)
+    base = cw[model == PLANNING_MODEL]
+    ref = base[0] if base.size else np.nan
+    return pd.DataFrame({
+        "model": model, "covered_weight": cw,
+        "covered_share": cw / total_weight if total_weight > 0 else np.full(len(cw), np.nan),
+        "covered_directly_weight": pd.to_numeric(sv["covered_directly_weight"], errors="coerce").to_numpy(float),
+        "difference_weight": cw - ref,
+    }, columns=cols)
 
 
 def _rank_order(chosen: np.ndarray, ranking: pd.DataFrame | None) -> np.ndarray:
@@ -360,7 +434,19 @@ def derive(b) -> PlanFigures:
     backup_ids = backup_ids.reindex(np.arange(1, k + 1), fill_value="").to_numpy(object)
 
     wall_free = s["wall_free_m"].to_numpy(float)
-    site_notes = np.where(width > wall_free + 1e-9, "panel wider than the free wall length; check the facade", "")
+    checks = _site_checks(getattr(b, "site_checks", None), chosen, bs_name)
+    site_notes = [["panel wider than the free wall length; check the facade"] if w > f + 1e-9 else []
+                  for w, f in zip(width, wall_free)]
+    for i, (lobe, below, n_guess) in enumerate(zip(checks["back_lobe_feed"], checks["feed_below_peak_db"],
+                                                   checks["guessed_height_links"])):
+        if lobe is not pd.NA and bool(lobe):
+            db = f"{below:.1f} dB" if np.isfinite(below) else "far"
+            site_notes[i].append(f"fed from the station's back lobe ({db} below boresight): re-aiming the "
+                                 "station may serve these users without a panel")
+        if n_guess is not pd.NA and n_guess > 0:
+            site_notes[i].append(f"{int(n_guess)} link(s) depend on guessed building heights: measure those "
+                                 "heights")
+    site_notes = np.asarray(["; ".join(n) for n in site_notes] if k else [], dtype=object)
     facing = np.mod(s["normal_az_deg"].to_numpy(float), 360.0)
     sites_out = pd.DataFrame({
         "rank": np.arange(1, k + 1), "site_id": s["site_id"].to_numpy(np.int64), "option_id": chosen,
@@ -374,7 +460,7 @@ def derive(b) -> PlanFigures:
         "cumulative_share": np.round(cumulative / total_w, 6) if total_w > 0 else np.zeros(k),
         "n_users_served": n_served, "served_weight": w_served, "median_snr_gain_db": np.round(med_gain, 2),
         "serving_bs_id": bs_name(feed), "backup_site_ids": backup_ids, "wall_free_m": wall_free,
-        "notes": site_notes.astype(object),
+        **checks, "notes": site_notes,
     }, columns=list(SITE_COLUMNS))
 
     # per kind
@@ -410,8 +496,15 @@ def derive(b) -> PlanFigures:
     })
 
     summary = _summary(b, u, sites_out, target, total_w, w_before, notes)
+    known = getattr(b, "site_checks", None) is not None
+    summary["site_checks_computed"] = known
+    summary["n_back_lobe_feeds"] = int(sites_out["back_lobe_feed"].fillna(False).sum()) if known else None
+    summary["n_sites_on_guessed_heights"] = int((sites_out["guessed_height_links"].fillna(0) > 0).sum()) if known else None
+    share = sites_out["exposure_share"].to_numpy(float)
+    summary["max_exposure_share"] = float(np.nanmax(share)) if np.isfinite(share).any() else None
     return PlanFigures(users=u, sites=sites_out, by_kind=by_kind, links=links, backups=backups,
-                       candidates=candidates, summary=summary, notes=notes)
+                       candidates=candidates, summary=summary, notes=notes,
+                       sensitivity=sensitivity_table(b, total_w))
 
 
 def _summary(b, u, sites_out, target, total_w, w_before, notes) -> dict:

@@ -69,7 +69,8 @@ def build_layers(bundle, fig: PlanFigures) -> list[Layer]:
     surf_cols = ["rank", "site_id", "building_id", "name", "address", "size_id", "width_m", "height_m",
                  "area_m2", "elements", "facing_deg", "facing", "mount_height_m", "cost", "marginal_weight",
                  "exclusive_weight", "shared_weight", "cumulative_weight", "cumulative_share", "n_users_served",
-                 "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "lon", "lat", "notes"]
+                 "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "feed_below_peak_db",
+                 "guessed_height_links", "exposure_w_m2", "exposure_share", "lon", "lat", "notes"]
     layers = [Layer("surfaces", "Point", _points(s["lon"], s["lat"]), s[surf_cols].reset_index(drop=True))]
 
     # the panel's width drawn along the wall: wall direction = normal turned 90 deg

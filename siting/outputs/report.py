@@ -12,6 +12,7 @@ import html
 import importlib.metadata
 import math
 import platform
+from statistics import NormalDist
 
 import numpy as np
 import pandas as pd
@@ -47,29 +48,107 @@ DECIMALS = {"weight": 2, "share": 1, "cost": 2, "db": 2, "num": 4}
 VERSIONED_PACKAGES = ("numpy", "scipy", "pandas", "shapely", "geopandas", "pyproj", "pyogrio", "pulp", "highspy",
                       "numba", "matplotlib", "siting")
 
-ASSUMPTIONS = (
-    "Coordinates are metres in the job's projected CRS; heights are metres above flat ground.",
-    "Line of sight is 2.5-D: a straight 3-D segment is blocked where it crosses a building footprint below "
-    "the roof height. Vegetation, vehicles and street furniture are not modelled unless the job adds losses.",
-    "The direct path uses the path-loss model named in the parameters (3GPP TR 38.901 UMi-Street Canyon, LOS "
-    "or NLOS decided by the line-of-sight rule rather than drawn at random, or free space), with no shadow "
-    "fading; any planning margin is taken from the parameters.",
-    "A surface contributes only when both of its hops are in line of sight and both angles from the wall "
-    "normal are within the steering limit. Its far-field gain grows with the square of the panel area and "
-    "with cos(incidence) x cos(reflection); inside the Fraunhofer distance 2D\u00b2/\u03bb (D the panel "
-    "diagonal) the panel is split into tiles whose contributions are summed.",
-    "The surface signal is co-phased with the direct signal, so their amplitudes add.",
-    "Noise is -174 dBm/Hz + 10 log10(bandwidth) + noise figure. A point counts as covered when its SNR "
-    "reaches the target.",
-    "A surface is steered to one demand point at a time (time sharing): coverage counts every point that "
-    "reaches the target when served; the time each point gets is not modelled.",
-    "Element counts are given for information at the configured element pitch; the model's gain depends on "
-    "the panel area, its reflection efficiency and the phase quantisation loss.",
-)
+_DIRECT_MODELS = {"umi": "3GPP TR 38.901 UMi-Street Canyon", "uma": "3GPP TR 38.901 UMa",
+                  "free_space": "free space"}
+# 3GPP TR 38.901 Table 7.4.1-1 shadow-fading standard deviations, LOS / NLOS [dB] (values from memory);
+# free space has none of its own and takes the UMi-Street Canyon values, as the link model does
+_SIGMA_TEXT = {"umi": "UMi-Street Canyon: 4 dB LOS, 7.82 dB NLOS", "uma": "UMa: 4 dB LOS, 6 dB NLOS",
+               "free_space": "the UMi-Street Canyon values, 4 dB LOS, 7.82 dB NLOS"}
+
+
+def job_value(params: dict | None, key: str, default):
+    """``params['a']['b']`` for ``key='a.b'``, or ``default`` when a level is missing or the value is None."""
+    node = params or {}
+    for part in key.split("."):
+        if not isinstance(node, dict) or part not in node or node[part] is None:
+            return default
+        node = node[part]
+    return node
+
+
+def assumptions(params: dict | None) -> list[str]:
+    """The model assumptions in words, with the job's values (job defaults where a key is missing)."""
+    v = lambda key, default: job_value(params, key, default)  # noqa: E731
+    model = str(v("radio.direct_model", "umi"))
+    fresnel = float(v("radio.fresnel_clearance", 0.6))
+    fading = bool(v("radio.shadow_fading", True))
+    prob = float(v("radio.coverage_probability", 0.9))
+    q = float(v("surfaces.element_q", -1.0))
+    u_m = float(v("inputs.height_uncertainty_m", 3.0))
+    out = [
+        "Coordinates are metres in the job's projected CRS; heights are metres above flat ground.",
+        "Line of sight is 2.5-D: a straight 3-D segment is blocked where it crosses a building footprint below "
+        "the roof height. Vegetation, vehicles and street furniture are not modelled unless the job adds losses.",
+        (f"A surface hop counts as clear only when roofs and walls leave {fresnel:g} of the first Fresnel zone "
+         "radius F1 = \u221a(\u03bb d1 d2 / (d1 + d2)) free along it (zone as defined in ITU-R P.526 and P.530; "
+         "0.6 F1 is the usual planning rule, common practice)." if fresnel > 0 else
+         "A surface hop needs only the bare geometric ray clear (no Fresnel-zone clearance, an optimistic choice)."),
+        f"The direct path uses the {_DIRECT_MODELS.get(model, model)} path loss, LOS or NLOS decided by the "
+        "line-of-sight rule rather than drawn at random; any planning margin is taken from the parameters.",
+    ]
+    if fading:
+        k = NormalDist().inv_cdf(prob)
+        out.append(f"A demand point counts as covered when its SNR reaches the target with a probability of "
+                   f"{100 * prob:g} % under log-normal shadow fading, with the standard deviations of 3GPP TR "
+                   f"38.901 Table 7.4.1-1 ({_SIGMA_TEXT.get(model, _SIGMA_TEXT['umi'])}; values from memory): "
+                   f"the median SNR must clear the target by {k:.2f} standard deviations"
+                   + (" (the median, no fade margin)." if abs(prob - 0.5) < 1e-12 else "."))
+    else:
+        out.append("No shadow fading: coverage uses the median path loss (an upper bound).")
+    out.append("Each surface hop in line of sight takes the LOS path-loss law of the direct model."
+               if v("radio.surface_hop_model", "direct") == "direct" else
+               "Each surface hop takes free-space path loss (an upper bound).")
+    if v("surfaces.control", "beams") == "beams":
+        out.append(f"Panels are driven by a finite set of far-field beams ({int(v('surfaces.beam_oversampling', 2))} "
+                   "beam(s) per beamwidth along each panel axis); each link uses its best beam, and the gain is "
+                   "evaluated at the true near-field geometry of the panel, so a user inside the Fraunhofer "
+                   "distance 2D\u00b2/\u03bb (D the panel diagonal) loses what focusing on it would have gained.")
+    else:
+        out.append("Panels focus ideally on each user (per-user focusing, an upper bound); the gain is evaluated "
+                   "at the true near-field geometry of the panel.")
+    out.append("Elements are phase-only, so a beam squints across the channel: the gain is averaged over the "
+               "bandwidth." if v("surfaces.squint", True) else
+               "The gain is taken at the carrier frequency alone (no beam squint, an upper bound).")
+    cell = ("cos^q(\u03b8) on each hop (q of a published measured unit cell)" if q < 0 else
+            f"cos^{q:g}(\u03b8) on each hop")
+    eff = ("follows the measured curve against incidence angle given in the parameters"
+           if v("surfaces.efficiency_angles_deg", []) else
+           f"is constant at {float(v('surfaces.reflection_efficiency', 0.8)):g}")
+    out.append(f"Each element's power pattern is {cell}; the reflection efficiency {eff}, and the phase "
+               "quantisation loss of the configured phase resolution applies. A panel's far-field gain grows "
+               "with the square of its area.")
+    if v("radio.combining", "power") == "power":
+        out.append("Direct and surface paths add in power (their average over the channel); co-phased "
+                   "(coherent) combining is used only as an upper bound and never with an NLOS direct path.")
+    else:
+        out.append("Direct and surface paths are co-phased so their amplitudes add (an upper bound), except with "
+                   "an NLOS direct path, where they add in power.")
+    out.append("One station beam per slot: while a surface serves a user, the station's beam is aimed at the "
+               "surface, and the user's own direct path sees that beam." if v("radio.station_beam", "one_beam")
+               == "one_beam" else
+               "Each user's direct path sees the station's best beam toward it (an upper bound).")
+    out.append(f"Building heights from building:levels or the default height are guesses, uncertain by "
+               f"\u00b1{u_m:g} m; a site's links that lose line of sight when those buildings stand at the top of "
+               "the band are counted and flagged (measure those heights). "
+               + ("The plan was made with the guessed heights at the top of the band."
+                  if v("radio.robust_heights", False) else "The plan uses the heights as read."))
+    out += [
+        "Noise is -174 dBm/Hz + 10 log10(bandwidth) + noise figure.",
+        "A surface is steered to one demand point at a time (time sharing): coverage counts every point that "
+        "reaches the target when served; the time each point gets is not modelled.",
+        "Element counts are given for information at the configured element pitch; the model's gain depends on "
+        "the panel area, not on the count.",
+    ]
+    return out
+
+
+#: The assumptions with the job defaults (the report prints :func:`assumptions` of the job's own values).
+ASSUMPTIONS = tuple(assumptions({}))
 
 CAUTIONS = (
-    "RF exposure: a surface focuses energy on the points it serves. Check field strength near the focus "
-    "points and near the panel against the exposure limits of the local regulation before switching on.",
+    "RF exposure: a surface focuses energy on the points it serves. The exposure figures of this report are "
+    "screening values; check field strength near the focus points and near the panel against the exposure "
+    "limits of the local regulation before switching on.",
     "Work at height: mounting on facades is work at height and must be planned and done by trained, "
     "licensed installers with the right access equipment.",
     "Structure: wind and dead loads on the wall and the fixings need a structural / mounting assessment "
@@ -218,6 +297,79 @@ def _input_rows(bundle, s: dict) -> list[tuple[str, str]]:
                                       for r in bundle.sizes.itertuples()) or "none")]
 
 
+SENSITIVITY_SENTENCE = (
+    "The planning model is the default the plan was made with; each further row relaxes one planning assumption "
+    "alone, and the upper bound (all relaxations together) is what an ideal deployment of the same surfaces "
+    "could at most deliver. A demand point counts as covered here when its direct path or any chosen surface "
+    "brings it to the SNR target.")
+
+EXPOSURE_CAUTION = (
+    "Screening figure, not a compliance assessment: the highest RF power density the surface and its feeding "
+    "station put where people may stand (the station beam at the panel, points up to 2 m in front of the panel "
+    "and the served points, the panel assumed focused on each point), compared with the general-public "
+    "whole-body reference level of the ICNIRP 2020 guidelines (ICNIRP, 'Guidelines for limiting exposure to "
+    "electromagnetic fields (100 kHz to 300 GHz)', Health Physics 118(5), 2020, doi:10.1097/HP.0000000000001210; "
+    "reference level from memory). National rules differ and other sources add to the field: local regulation "
+    "and licensed practice decide.")
+
+
+def _sensitivity_rows(fig: PlanFigures) -> tuple[list[str], list[list[str]]]:
+    head = ["Model", "Covered weight", "Share of total weight", "Difference to the planning model",
+            "Covered directly"]
+    rows = []
+    sv = fig.sensitivity if fig.sensitivity is not None else pd.DataFrame()
+    for r in sv.itertuples():
+        diff = "reference" if r.model == "planning model" else (
+            "n/a" if not np.isfinite(r.difference_weight) else f"{r.difference_weight:+.{DECIMALS['weight']}f}")
+        rows.append([str(r.model), fmt(r.covered_weight, "weight"), fmt(r.covered_share, "share"), diff,
+                     fmt(r.covered_directly_weight, "weight")])
+    return head, rows
+
+
+def _density(v) -> str:
+    return "n/a" if v is None or not np.isfinite(v) else f"{float(v):.3g}"
+
+
+def _exposure_rows(fig: PlanFigures) -> tuple[list[str], list[list[str]]]:
+    head = ["Rank", "Site", "Power density [W/m\u00b2]", "Where", "Reference level [W/m\u00b2]",
+            "Share of the reference"]
+    rows = [[fmt(r["rank"], "int"), fmt(r["site_id"], "int"), _density(r["exposure_w_m2"]),
+             str(r["exposure_where"] or "n/a"), _density(r["exposure_reference_w_m2"]),
+             "n/a" if not np.isfinite(r["exposure_share"]) else f"{100 * r['exposure_share']:.2f} %"]
+            for _, r in fig.sites.iterrows()]
+    return head, rows
+
+
+def _check_lists(fig: PlanFigures) -> tuple[list[str], list[str]]:
+    """Plain-text items: back-lobe feeds, and sites whose links depend on guessed building heights."""
+    lobes, heights = [], []
+    for _, r in fig.sites.iterrows():
+        site = f"rank {int(r['rank'])} (site {int(r['site_id'])}, building {r['building_id']})"
+        lobe = r["back_lobe_feed"]
+        if lobe is not pd.NA and bool(lobe):
+            below = r["feed_below_peak_db"]
+            station = f" by {r['feed_bs_id']}" if r["feed_bs_id"] else ""
+            lobes.append(f"{site}: fed{station} from the station's back lobe "
+                         f"({_cell(below, 'num1')} dB below boresight); re-aiming the station may serve these "
+                         "users without a panel")
+        n = r["guessed_height_links"]
+        if n is not pd.NA and int(n) > 0:
+            heights.append(f"{site}: {int(n)} link(s) depend on guessed building heights; measure those heights")
+    return lobes, heights
+
+
+def _exposure_sentence(fig: PlanFigures) -> str:
+    over = [f"rank {int(r['rank'])}" for _, r in fig.sites.iterrows()
+            if np.isfinite(r["exposure_share"]) and r["exposure_share"] >= 1.0]
+    top = fig.summary.get("max_exposure_share")
+    if top is None:
+        return ""
+    if over:
+        return (f"At {', '.join(over)} the screening value reaches or exceeds the reference level: an exposure "
+                "assessment is needed before switching on.")
+    return f"The highest screening value is {100 * top:.2f} % of the reference level."
+
+
 # ---------------------------------------------------------------------------------------------- HTML
 
 _CSS = """
@@ -231,6 +383,13 @@ img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 .lead { font-size: 1.05em; background: #f2f2f2; padding: .6em .9em; border-left: 4px solid #0072B2; }
 .wide { overflow-x: auto; max-width: 100%; }
 .caution { border-left: 4px solid #D55E00; padding-left: .8em; }
+@page { size: A4; margin: 12mm; }
+@media print {
+  body { max-width: none; margin: 0; padding: 0; font-size: 9.5pt; }
+  table { font-size: 7.5pt; page-break-inside: auto; } tr { page-break-inside: avoid; }
+  td, th { padding: 1px 3px; } .wide { overflow: visible; } thead { display: table-header-group; }
+  h2 { page-break-after: avoid; } img { page-break-inside: avoid; }
+}
 """
 
 
@@ -293,7 +452,38 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     else:
         p.append("<p>No site was chosen.</p>")
 
-    p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in ASSUMPTIONS) + "</ul>")
+    p.append("<h2 id=\"site-checks\">Feeds and building heights to check</h2>")
+    if not fig.summary.get("site_checks_computed"):
+        p.append("<p>No site checks were computed for this run.</p>")
+    elif len(fig.sites):
+        lobes, heights = _check_lists(fig)
+        p.append("<p>Surfaces fed from a station's back lobe (more than 20 dB below its boresight gain):</p>"
+                 + ("<ul>" + "".join(f"<li>{esc(x)}</li>" for x in lobes) + "</ul>" if lobes else "<p>none.</p>"))
+        p.append("<p>Surfaces whose links depend on guessed building heights:</p>"
+                 + ("<ul>" + "".join(f"<li>{esc(x)}</li>" for x in heights) + "</ul>" if heights else "<p>none.</p>"))
+    else:
+        p.append("<p>No site was chosen.</p>")
+
+    p.append("<h2 id=\"rf-exposure\">RF exposure screening</h2>")
+    if fig.summary.get("site_checks_computed") and len(fig.sites):
+        p.append(_html_table(*_exposure_rows(fig), numeric_from=2).replace("<table>", "<table id=\"exposure\">", 1))
+        sentence = _exposure_sentence(fig)
+        if sentence:
+            p.append(f"<p>{esc(sentence)}</p>")
+    else:
+        p.append("<p>No exposure screening was computed for this run.</p>" if len(fig.sites) else
+                 "<p>No site was chosen.</p>")
+    p.append(f"<p class=\"caution\">{esc(EXPOSURE_CAUTION)}</p>")
+
+    p.append("<h2 id=\"sensitivity\">What the model assumptions are worth</h2>")
+    if fig.sensitivity is not None and len(fig.sensitivity):
+        p.append(f"<p>{esc(SENSITIVITY_SENTENCE)}</p>")
+        p.append(_html_table(*_sensitivity_rows(fig)).replace("<table>", "<table id=\"sensitivity-table\">", 1))
+    else:
+        p.append("<p>No model sensitivity was computed for this run.</p>")
+
+    p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in assumptions(bundle.params))
+             + "</ul>")
     p.append("<h2>Cautions</h2><ul class=\"caution\">" + "".join(f"<li>{esc(c)}</li>" for c in CAUTIONS) + "</ul>")
     p.append("<h2>Inputs and parameters</h2>")
     p.append(_html_table(["Input", "Value"], _input_rows(bundle, s), numeric_from=9))
@@ -322,8 +512,18 @@ def _img_html(png: bytes, alt: str) -> str:
 
 # ---------------------------------------------------------------------------------------------- Markdown
 
+_MD_SPECIAL = str.maketrans({c: "\\" + c for c in "\\`*_"})
+
+
+def _md_text(v) -> str:
+    """Text from the data made inert in Markdown: HTML characters as entities, emphasis and code characters
+    backslash-escaped, no inline link or image (``](`` broken), one line."""
+    text = html.escape(str(v), quote=False).translate(_MD_SPECIAL).replace("](", "]\\(")
+    return text.replace("\r", " ").replace("\n", " ")
+
+
 def _md_escape(v: str) -> str:
-    return str(v).replace("|", "\\|").replace("\n", " ")
+    return _md_text(v).replace("|", "\\|")
 
 
 def _md_table(head, rows) -> str:
@@ -335,10 +535,10 @@ def _md_table(head, rows) -> str:
 def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str:
     """The same report in Markdown; figures are referenced as files relative to the report."""
     s = fig.summary
-    sentences = _summary_sentences(s)
+    sentences = [_md_text(x) for x in _summary_sentences(s)]
     if s["empty_plan"]:  # the reason comes first, in bold
         sentences[0] = f"**{sentences[0]}**"
-    p = [f"# {bundle.title}", "", " ".join(sentences), ""]
+    p = [f"# {_md_text(bundle.title)}", "", " ".join(sentences), ""]
     p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, fmt(s.get(k), kind)) for k, lbl, kind in KEY_FIGURES]), ""]
     head, rows = _kind_rows(fig)
     p += ["## Coverage before and after", "", _md_table(head, rows), ""]
@@ -358,7 +558,32 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
     p += ["## SNR distribution", "", f"![SNR distribution without and with the plan]({figure_files['snr_cdf']})", ""]
     p += ["## Ranked sites", ""]
     p += [_md_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)) if len(fig.sites) else "No site was chosen.", ""]
-    p += ["## Model assumptions", ""] + [f"- {a}" for a in ASSUMPTIONS] + [""]
+    p += ["## Feeds and building heights to check", ""]
+    if not s.get("site_checks_computed"):
+        p += ["No site checks were computed for this run.", ""]
+    elif len(fig.sites):
+        lobes, heights = _check_lists(fig)
+        p += ["Surfaces fed from a station's back lobe (more than 20 dB below its boresight gain):", ""]
+        p += ([f"- {_md_text(x)}" for x in lobes] or ["none."]) + [""]
+        p += ["Surfaces whose links depend on guessed building heights:", ""]
+        p += ([f"- {_md_text(x)}" for x in heights] or ["none."]) + [""]
+    else:
+        p += ["No site was chosen.", ""]
+    p += ["## RF exposure screening", ""]
+    if s.get("site_checks_computed") and len(fig.sites):
+        p += [_md_table(*_exposure_rows(fig)), ""]
+        sentence = _exposure_sentence(fig)
+        if sentence:
+            p += [_md_text(sentence), ""]
+    else:
+        p += ["No exposure screening was computed for this run." if len(fig.sites) else "No site was chosen.", ""]
+    p += [EXPOSURE_CAUTION, ""]
+    p += ["## What the model assumptions are worth", ""]
+    if fig.sensitivity is not None and len(fig.sensitivity):
+        p += [SENSITIVITY_SENTENCE, "", _md_table(*_sensitivity_rows(fig)), ""]
+    else:
+        p += ["No model sensitivity was computed for this run.", ""]
+    p += ["## Model assumptions", ""] + [f"- {a}" for a in assumptions(bundle.params)] + [""]
     p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
     p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
     hashes = record.get("input_hashes") or {}
@@ -374,11 +599,18 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
                                                 if isinstance(v, (int, float))]), ""]
     p += [_md_table(["Package", "Version"], [(k, str(v)) for k, v in record["versions"].items()]), ""]
     if fig.notes:
-        p += ["### Notes", ""] + [f"- {n}" for n in fig.notes] + [""]
+        p += ["### Notes", ""] + [f"- {_md_text(n)}" for n in fig.notes] + [""]
     return "\n".join(p)
 
 
 # ---------------------------------------------------------------------------------------------- run.json
+
+def _records(df: pd.DataFrame | None) -> list[dict] | None:
+    """A table as a list of records in its column order, or None."""
+    if df is None:
+        return None
+    return [dict(zip(df.columns, row)) for row in df.itertuples(index=False, name=None)]
+
 
 def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) -> dict:
     """Everything the report shows, in machine-readable form (written as ``run.json``)."""
@@ -402,6 +634,9 @@ def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) ->
         "sites": fig.sites,
         "backups": fig.backups,
         "sweep": bundle.sweep if bundle.sweep is not None else None,
+        # the runner's tables as handed over (null when the run did not compute them)
+        "site_checks": _records(getattr(bundle, "site_checks", None)),
+        "sensitivity": _records(getattr(bundle, "sensitivity", None)),
         "parameters": bundle.params,
         "input_hashes": ri.pop("input_hashes", {}),
         "timings_s": timings,

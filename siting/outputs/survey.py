@@ -5,8 +5,13 @@ CSV columns (UTF-8, comma-separated, header row):
 rank, site_id, lon, lat, building_id, name, address, <any further name / address tags of the input>,
 facing_deg (outward wall normal, clockwise from north), facing (16-point name), mount_height_m, size_id,
 width_m, height_m, area_m2, elements, cost, weight_gained (added in rank order), exclusive_weight,
-shared_weight, cumulative_weight, cumulative_share, serving_bs_id, backup_<k>_site_id / _lon / _lat for each
-backup k, notes.
+shared_weight, cumulative_weight, cumulative_share, serving_bs_id, feed_below_peak_db (feeding station's
+boresight gain minus its gain toward the panel), guessed_height_links (links of the surface that lose line of
+sight when guessed building heights stand at the top of their band), exposure_w_m2 (highest RF power density
+from the surface or its feed where people may stand, a screening value), exposure_share (that density over the
+ICNIRP 2020 general-public whole-body reference level), backup_<k>_site_id / _lon / _lat for each backup k,
+notes.  The four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet
+would read as a formula (starting with = + - @, tab or carriage return) get a leading apostrophe.
 """
 
 from __future__ import annotations
@@ -25,7 +30,8 @@ from .derive import PlanFigures
 BASE_COLUMNS = ["rank", "site_id", "lon", "lat", "building_id", "name", "address"]
 AFTER_TAGS = ["facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
               "cost", "weight_gained", "exclusive_weight", "shared_weight", "cumulative_weight",
-              "cumulative_share", "serving_bs_id"]
+              "cumulative_share", "serving_bs_id", "feed_below_peak_db", "guessed_height_links", "exposure_w_m2",
+              "exposure_share"]
 
 
 def tag_columns(buildings) -> list[str]:
@@ -47,6 +53,7 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
             out[c] = np.where((bidx >= 0) & (bidx < len(bld)), vals[np.clip(bidx, 0, max(len(bld) - 1, 0))], "")
     for c in AFTER_TAGS:
         out[c] = s[c].to_numpy()
+    out["guessed_height_links"] = s["guessed_height_links"].astype("Int64").array  # empty cell when not computed
     out["elements"] = pd.array(np.where(s["elements"] >= 0, s["elements"], 0), dtype="Int64")
     out.loc[(s["elements"] < 0).to_numpy(), "elements"] = pd.NA  # unknown pitch: empty cell
     bk = fig.backups
@@ -60,9 +67,29 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise_formulas(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text cells that a spreadsheet would run as a formula get a leading apostrophe (OWASP, "CSV Injection");
+    numeric columns are left alone, so negative numbers stay numbers."""
+    out = frame.copy()
+    for c in out.columns:
+        col = out[c]
+        if col.dtype == object or pd.api.types.is_string_dtype(col):
+            text = col.astype(object)
+            risky = text.map(lambda v: isinstance(v, str) and v.startswith(FORMULA_START)).to_numpy(bool)
+            if risky.any():
+                out[c] = text.where(~risky, "'" + text.where(risky, "").astype(str))
+    return out
+
+
 def write_survey_csv(path, frame: pd.DataFrame) -> Path:
-    """Write the survey list atomically (UTF-8, '.' decimal point, lon/lat with 7 decimals)."""
-    return atomic.write_with(path, lambda fh: frame.to_csv(fh, index=False, lineterminator="\n"))
+    """Write the survey list atomically (UTF-8, '.' decimal point, lon/lat with 7 decimals); text cells that a
+    spreadsheet would read as a formula are written with a leading apostrophe."""
+    safe = neutralise_formulas(frame)
+    return atomic.write_with(path, lambda fh: safe.to_csv(fh, index=False, lineterminator="\n"))
 
 
 _CSS = """
@@ -75,8 +102,9 @@ td, th { border: 1px solid #999; padding: 2px 6px; text-align: left; vertical-al
 .site img { width: 300px; height: auto; border: 1px solid #ccc; }
 .check { margin-top: .4em; font-size: .85em; } .check span { display: inline-block; width: 1em; height: 1em;
         border: 1px solid #000; margin-right: .4em; vertical-align: middle; }
-.notes { height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
-@media print { body { margin: 0; } .site { page-break-inside: avoid; } }
+.notes { min-height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
+@page { size: A4; margin: 12mm; }
+@media print { body { margin: 0; font-size: 10pt; } .site { page-break-inside: avoid; } .site img { width: 60mm; } }
 """
 
 FIELD_CHECKS = (
@@ -84,7 +112,8 @@ FIELD_CHECKS = (
     "nothing blocks the view to the base station and to the served area",
     "structural fixing assessed; work at height planned by licensed installers",
     "owner consent and permits checked against local codes",
-    "RF exposure near the focus area to be checked against local limits",
+    "RF exposure near the panel and the focus area checked against local rules (the figure above is a "
+    "screening value, not a compliance assessment)",
 )
 
 
@@ -94,6 +123,30 @@ def _fmt(v, nd=2) -> str:
     if isinstance(v, (float, np.floating)):
         return f"{v:.{nd}f}"
     return html.escape(str(v))
+
+
+def _check_rows(r, site) -> list[tuple[str, str]]:
+    """The field-check lines of one site (plain text; the caller escapes); nothing when not computed."""
+    below, n_guess, expo, share = (r["feed_below_peak_db"], r["guessed_height_links"], r["exposure_w_m2"],
+                                   r["exposure_share"])
+    out = []
+    if pd.notna(below):
+        lobe = site["back_lobe_feed"]
+        out.append(("feed below station boresight", f"{below:.1f} dB"
+                    + (" (back lobe: re-aiming the station may serve these users without a panel)"
+                       if lobe is not pd.NA and bool(lobe) else "")))
+    if pd.notna(n_guess):
+        out.append(("links on guessed building heights", f"{int(n_guess)}" + (" (measure those heights)"
+                                                                              if int(n_guess) > 0 else "")))
+    if pd.notna(expo):
+        where = str(site["exposure_where"] or "")
+        ref = site["exposure_reference_w_m2"]
+        out.append(("RF exposure (screening)", f"{expo:.3g} W/m\u00b2" + (f" {where}" if where else "")))
+        if pd.notna(share):
+            out.append(("share of the reference level",
+                        f"{100 * share:.1f} % of {ref:.3g} W/m\u00b2 (ICNIRP 2020, general public, whole body); "
+                        "check against local rules" if pd.notna(ref) else f"{100 * share:.1f} %"))
+    return out
 
 
 def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> str:
@@ -107,8 +160,10 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
     if not len(frame):
         parts.append(f"<p><strong>{esc(fig.summary.get('empty_plan_reason') or 'No site was chosen.')}</strong></p>")
     tags = tag_columns(bundle.buildings)
+    by_rank = fig.sites.set_index("rank")
     for _, r in frame.iterrows():
         rank = int(r["rank"])
+        site = by_rank.loc[rank]
         png = base64.b64encode(figures.site_map(bundle, fig, rank)).decode("ascii")
         backups = []
         j = 1
@@ -128,10 +183,10 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
             ("cost", _fmt(r["cost"])), ("weight gained", _fmt(r["weight_gained"])),
             ("cumulative weight", f"{_fmt(r['cumulative_weight'])} ({100 * r['cumulative_share']:.1f} %)"),
             ("serving base station", r["serving_bs_id"] or "-"),
+            *_check_rows(r, site),
             ("backup spots", "; ".join(backups) or "none"),
         ]
-        table = "".join(f"<tr><th>{esc(str(k))}</th><td>{v if isinstance(v, str) and v.startswith('<') else esc(str(v))}"
-                        "</td></tr>" for k, v in rows)
+        table = "".join(f"<tr><th>{esc(str(k))}</th><td>{esc(str(v))}</td></tr>" for k, v in rows)
         checks = "".join(f"<div><span></span>{esc(c)}</div>" for c in FIELD_CHECKS)
         note = esc(str(r["notes"])) if r["notes"] else ""
         parts.append(
