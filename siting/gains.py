@@ -25,7 +25,8 @@ station get site -> user links; users already covered directly get none unless `
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import warnings
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -34,12 +35,15 @@ from . import radio
 from .tables import Points, check
 from .visibility import Obstacles, visible_pairs
 
-C_M_S = 299_792_458.0
-
 
 @dataclass(frozen=True)
 class RadioParams:
-    """Physical and planning parameters of the gain stage (units in the names)."""
+    """Physical and planning parameters of the gain stage (units in the names).
+
+    The defaults are the planning model; :meth:`upper_bound` gives the ideal model every planning choice is
+    measured against (coherent combining, per-user focusing, narrowband, projected-aperture cells, free-space
+    hops, bare-ray line of sight, the best station beam toward every user, no shadow fading).
+    """
 
     frequency_hz: float = 28e9
     bandwidth_hz: float = 400e6
@@ -56,10 +60,36 @@ class RadioParams:
     phase_bits: int = 2
     steer_limit_deg: float = 60.0
     keep_margin_db: float = 10.0
+    #: 'power': direct and surface powers add (channel average); 'coherent': amplitudes add where the direct
+    #: path is LOS (upper bound)
+    combining: str = "power"
+    #: 'beams': finite set of far-field beams; 'focus': ideal per-user focusing (upper bound)
+    control: str = "beams"
+    beam_oversampling: int = 2
+    #: phase-only elements: gain averaged over the channel (beam squint); False: narrowband (upper bound)
+    squint: bool = True
+    #: unit-cell power pattern exponent q, (cos theta)^q on each hop
+    element_q: float = radio.DEFAULT_ELEMENT_Q
+    #: measured reflection efficiency against incidence angle: ((angles_deg...), (efficiencies...)) or None
+    efficiency_curve: tuple | None = None
+    #: 'direct': each LOS surface hop takes the direct model's LOS law; 'free_space': free space
+    surface_hop_model: str = "direct"
+    #: 'one_beam': the station beam is aimed at the surface; 'envelope': best beam toward each user (upper bound)
+    station_beam: str = "one_beam"
+    #: share of the first Fresnel zone radius a surface hop must keep clear (0: bare ray)
+    fresnel_clearance: float = 0.6
+    #: probability with which a covered user reaches the target under log-normal shadow fading
+    coverage_probability: float = 0.9
+    shadow_fading: bool = True
+    #: facade (home) terminals see surfaces within this angle of their window normal
+    home_steer_limit_deg: float = 90.0
 
     @classmethod
     def from_job(cls, job: dict) -> "RadioParams":
         r, s = job["radio"], job["surfaces"]
+        curve = None
+        if s["efficiency_angles_deg"]:
+            curve = (tuple(s["efficiency_angles_deg"]), tuple(s["efficiency_values"]))
         return cls(
             frequency_hz=r["frequency_ghz"] * 1e9,
             bandwidth_hz=r["bandwidth_mhz"] * 1e6,
@@ -75,17 +105,50 @@ class RadioParams:
             reflection_efficiency=s["reflection_efficiency"],
             phase_bits=s["phase_bits"],
             steer_limit_deg=s["steer_limit_deg"],
+            combining=r["combining"],
+            control=s["control"],
+            beam_oversampling=s["beam_oversampling"],
+            squint=s["squint"],
+            element_q=s["element_q"],
+            efficiency_curve=curve,
+            surface_hop_model=r["surface_hop_model"],
+            station_beam=r["station_beam"],
+            fresnel_clearance=r["fresnel_clearance"],
+            coverage_probability=r["coverage_probability"],
+            shadow_fading=r["shadow_fading"],
         )
+
+    def upper_bound(self) -> "RadioParams":
+        """The same job under the ideal model (each planning choice replaced by its optimistic limit)."""
+        return replace(self, combining="coherent", control="focus", squint=False, element_q=1.0,
+                       efficiency_curve=None, surface_hop_model="free_space", station_beam="envelope",
+                       fresnel_clearance=0.0, shadow_fading=False)
 
     @property
     def noise_dbm(self) -> float:
         return float(radio.noise_power_dbm(self.bandwidth_hz, self.noise_figure_db))
 
     @property
+    def wavelength_m(self) -> float:
+        return radio.SPEED_OF_LIGHT_M_S / self.frequency_hz
+
+    @property
     def gas_db_per_m(self) -> float:
         if not self.gaseous_absorption:
             return 0.0
         return float(radio.gaseous_attenuation_db_per_km(self.frequency_hz)) / 1000.0
+
+    def fade_sigma_db(self, los) -> np.ndarray:
+        """Shadow-fading standard deviation [dB] of direct paths by LOS class (0 without fading)."""
+        los = np.asarray(los, bool)
+        if not self.shadow_fading:
+            return np.zeros(los.shape)
+        return np.where(los, radio.shadow_fading_sigma_db(self.direct_model, True),
+                        radio.shadow_fading_sigma_db(self.direct_model, False))
+
+    def fade_margin_db(self, los) -> np.ndarray:
+        """Margin [dB] a single path with the given LOS class needs to reach a level with the coverage probability."""
+        return np.asarray(radio.fade_margin_db(self.fade_sigma_db(los), self.coverage_probability), float)
 
 
 @dataclass
@@ -148,31 +211,43 @@ def direct_links(obstacles: Obstacles, bs: pd.DataFrame, users: pd.DataFrame, p:
 
 
 def best_direct(bs_user: pd.DataFrame, n_users: int, p: RadioParams) -> pd.DataFrame:
-    """Every user's best direct SNR and serving base station (the 'direct' contract) from ``bs_user``."""
-    order = np.lexsort((-bs_user["rx_dbm"].to_numpy(), bs_user["b"].to_numpy()))
-    best = bs_user.iloc[order].drop_duplicates("b", keep="first")
+    """Every user's best direct SNR and serving base station (the 'direct' contract) from ``bs_user``.
+
+    ``snr_db`` is the planning SNR: the level reached with ``p.coverage_probability`` under log-normal shadow
+    fading of the path's LOS class (the median less the fade margin); ``snr_median_db`` is the median.
+    """
+    margin = p.fade_margin_db(bs_user["los"].to_numpy(bool)) if len(bs_user) else np.zeros(0)
+    planning = bs_user["rx_dbm"].to_numpy(float) - margin
+    order = np.lexsort((-planning, bs_user["b"].to_numpy()))
+    best = order[np.r_[True, bs_user["b"].to_numpy()[order][1:] != bs_user["b"].to_numpy()[order][:-1]]] \
+        if len(order) else order
     snr = np.full(n_users, -np.inf)
+    median = np.full(n_users, -np.inf)
     bs_idx = np.full(n_users, -1, np.int64)
     los = np.zeros(n_users, bool)
-    ub = best["b"].to_numpy()
-    snr[ub] = best["rx_dbm"].to_numpy(float) - p.noise_dbm
-    bs_idx[ub] = best["a"].to_numpy()
-    los[ub] = best["los"].to_numpy(bool)
+    ub = bs_user["b"].to_numpy()[best]
+    snr[ub] = planning[best] - p.noise_dbm
+    median[ub] = bs_user["rx_dbm"].to_numpy(float)[best] - p.noise_dbm
+    bs_idx[ub] = bs_user["a"].to_numpy()[best]
+    los[ub] = bs_user["los"].to_numpy(bool)[best]
     return pd.DataFrame({"user_id": np.arange(n_users, dtype=np.int64), "snr_db": snr, "bs_idx": bs_idx,
-                         "los": los, "covered": snr >= p.snr_target_db})
+                         "los": los, "covered": snr >= p.snr_target_db, "snr_median_db": median})
 
 
 def surface_links(obstacles: Obstacles, bs: pd.DataFrame, sites: pd.DataFrame, sizes: pd.DataFrame,
                   users: pd.DataFrame, options: pd.DataFrame, bs_user: pd.DataFrame, direct: pd.DataFrame,
-                  p: RadioParams, site_index: np.ndarray | None = None, user_index: np.ndarray | None = None):
+                  p: RadioParams, site_index: np.ndarray | None = None, user_index: np.ndarray | None = None,
+                  detail: bool = False):
     """Coverage rows of the options at ``site_index`` (all sites when None) and their LOS pair tables.
 
-    ``user_index`` narrows the users considered (a tile passes those within reach of its spots).
+    ``user_index`` narrows the users considered (a tile passes those within reach of its spots); ``detail``
+    adds the surface-path columns of :func:`_surface_coverage`.
     Returns ``(coverage, bs_site, site_user)``.
     """
     # 1. base station -> site, LOS only, incidence inside the steering limit.
+    clear = dict(clearance_fraction=p.fresnel_clearance, wavelength_m=p.wavelength_m)
     bs_site = visible_pairs(obstacles, Points.from_table(bs), Points.from_table(sites), p.bs_range_m,
-                            steer_limit_deg=p.steer_limit_deg, b_index=site_index, los_only=True)
+                            steer_limit_deg=p.steer_limit_deg, b_index=site_index, los_only=True, **clear)
     fed_sites = np.unique(bs_site["b"].to_numpy())
     # 2. site -> user for fed sites and (unless asked) users not covered directly.
     want = np.ones(len(users), bool) if p.serve_covered_users else ~direct["covered"].to_numpy(bool)
@@ -180,9 +255,9 @@ def surface_links(obstacles: Obstacles, bs: pd.DataFrame, sites: pd.DataFrame, s
         want &= np.isin(np.arange(len(users)), user_index)
     want_users = np.flatnonzero(want)
     site_user = visible_pairs(obstacles, Points.from_table(sites), Points.from_table(users), p.surface_range_m,
-                              steer_limit_deg=p.steer_limit_deg, a_index=fed_sites, b_index=want_users,
-                              los_only=True)
-    coverage = _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_user, p)
+                              steer_limit_deg=p.steer_limit_deg, steer_limit_b_deg=p.home_steer_limit_deg,
+                              a_index=fed_sites, b_index=want_users, los_only=True, **clear)
+    coverage = _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_user, p, detail)
     return coverage, bs_site, site_user
 
 
@@ -198,8 +273,13 @@ def compute_gains(obstacles: Obstacles, bs: pd.DataFrame, sites: pd.DataFrame, s
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
 
 
-def _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_user, p) -> pd.DataFrame:
-    """SNR of every (option, user) with the surface, best base station, as a sparse table."""
+def _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_user, p,
+                      detail: bool = False) -> pd.DataFrame:
+    """SNR of every (option, user) with the surface, best base station, as a sparse table.
+
+    ``detail`` adds the columns ``surface_rx_dbm``, ``bs_gain_to_surface_dbi`` and ``d1_m`` (for the checks of
+    the chosen surfaces).
+    """
     cols = ["option_id", "user_id", "snr_db", "bs_idx"]
     if bs_site.empty or site_user.empty or options.empty:
         return pd.DataFrame({c: pd.Series(dtype="int64" if c != "snr_db" else "float64") for c in cols})
@@ -219,26 +299,15 @@ def _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_u
     t_bs, t_site, t_user = (tri[c].to_numpy()[rep] for c in ("bs", "site", "user"))
     size_idx = options["size_idx"].to_numpy()[opt]
 
-    sx, sy, sz = (sites[c].to_numpy(float)[t_site] for c in ("x", "y", "z_m"))
-    bx, by, bz = (bs[c].to_numpy(float)[t_bs] for c in ("x", "y", "z_m"))
-    ux, uy, uz = (users[c].to_numpy(float)[t_user] for c in ("x", "y", "z_m"))
-    beta = radio.surface_gain(
-        np.column_stack([bx, by, bz]), np.column_stack([ux, uy, uz]), np.column_stack([sx, sy, sz]),
-        sites["normal_az_deg"].to_numpy(float)[t_site],
-        sizes["width_m"].to_numpy(float)[size_idx], sizes["height_m"].to_numpy(float)[size_idx],
-        p.frequency_hz, p.reflection_efficiency, p.phase_bits,
-    )
-    with np.errstate(divide="ignore"):
-        beta_db = 10.0 * np.log10(beta)
-    d_total = tri["d1"].to_numpy(float)[rep] + tri["d2"].to_numpy(float)[rep]
-    tx = bs["tx_power_dbm"].to_numpy(float)[t_bs]
-    surface_gain_db = (_bs_gain(bs, t_bs, sx, sy, sz) + p.user_gain_dbi + beta_db
-                       - p.gas_db_per_m * d_total - p.planning_margin_db)
-    direct_gain_db = _lookup_rx(bs_user, len(users), t_bs, t_user) - tx  # -inf: this station misses the user
-    snr = radio.coherent_snr_db(tx, direct_gain_db, surface_gain_db, p.noise_dbm)
-
+    geo = {"bs": t_bs, "site": t_site, "user": t_user, "size": size_idx,
+           "d1": tri["d1"].to_numpy(float)[rep], "d2": tri["d2"].to_numpy(float)[rep]}
+    parts = link_parts(bs, sites, sizes, users, bs_user, geo, p)
     table = pd.DataFrame({"option_id": opt.astype(np.int64), "user_id": t_user.astype(np.int64),
-                          "snr_db": snr, "bs_idx": t_bs.astype(np.int64)})
+                          "snr_db": parts["snr_db"], "bs_idx": t_bs.astype(np.int64)})
+    if detail:
+        table["surface_rx_dbm"] = parts["surface_rx_dbm"]
+        table["bs_gain_to_surface_dbi"] = parts["bs_gain_to_surface_dbi"]
+        table["d1_m"] = geo["d1"]
     table = table[table["snr_db"] >= p.snr_target_db - p.keep_margin_db]
     # Best base station per (option, user).
     table = table.sort_values(["option_id", "user_id", "snr_db"], ascending=[True, True, False], kind="stable")
@@ -246,17 +315,86 @@ def _surface_coverage(bs, sites, sizes, users, options, bs_site, site_user, bs_u
     return table
 
 
-def _lookup_rx(bs_user: pd.DataFrame, n_users: int, bs_idx: np.ndarray, user_idx: np.ndarray) -> np.ndarray:
-    """Direct received power [dBm] of (bs_idx, user_idx) pairs from the sparse ``bs_user`` table (-inf if absent)."""
+def link_parts(bs, sites, sizes, users, bs_user, geo: dict, p: RadioParams) -> dict:
+    """SNR of (station, spot, panel size, user) rows with the surface serving the user, and its parts.
+
+    ``geo`` holds equal-length integer arrays ``bs``, ``site``, ``user``, ``size`` (row positions) and the hop
+    lengths ``d1``, ``d2`` [m].  Returns ``snr_db`` (the planning SNR, see :class:`RadioParams`),
+    ``surface_rx_dbm`` (median power through the surface at the user, user antenna included) and
+    ``bs_gain_to_surface_dbi``.
+
+    The surface path: station gain toward the panel + panel gain (:func:`siting.radio.surface_gain` with the
+    job's control, squint, unit cell and efficiency) + user gain - gases over both hops - planning margin -
+    on each hop the direct model's excess LOS loss over free space (``surface_hop_model='direct'``).  The
+    direct path of the same station to the user: its median power from ``bs_user``, seen through the beam
+    aimed at the surface (``station_beam='one_beam'``).  The two add as powers, or as amplitudes when
+    ``combining='coherent'`` and the direct path is LOS; with shadow fading the SNR is the level reached with
+    ``coverage_probability`` (independent log-normal fading: the direct path by its LOS class, the surface path
+    by its two LOS hops, :func:`siting.radio.hop_sigma_db`).
+    """
+    t_bs, t_site, t_user, size_idx = geo["bs"], geo["site"], geo["user"], geo["size"]
+    sxyz = sites[["x", "y", "z_m"]].to_numpy(float)[t_site]
+    bxyz = bs[["x", "y", "z_m"]].to_numpy(float)[t_bs]
+    uxyz = users[["x", "y", "z_m"]].to_numpy(float)[t_user]
+    beta = radio.surface_gain(
+        bxyz, uxyz, sxyz, sites["normal_az_deg"].to_numpy(float)[t_site],
+        sizes["width_m"].to_numpy(float)[size_idx], sizes["height_m"].to_numpy(float)[size_idx],
+        p.frequency_hz, p.reflection_efficiency, p.phase_bits, control=p.control,
+        beam_oversampling=p.beam_oversampling, bandwidth_hz=p.bandwidth_hz if p.squint else 0.0,
+        element_q=p.element_q, efficiency_curve=p.efficiency_curve,
+    )
+    with np.errstate(divide="ignore"):
+        beta_db = 10.0 * np.log10(beta)
+    tx = bs["tx_power_dbm"].to_numpy(float)[t_bs]
+    g_surface = _bs_gain(bs, t_bs, *sxyz.T)
+    surface_db = (g_surface + p.user_gain_dbi + beta_db - p.gas_db_per_m * (geo["d1"] + geo["d2"])
+                  - p.planning_margin_db)
+    if p.surface_hop_model == "direct":
+        surface_db -= _hop_excess_db(bxyz, sxyz, p) + _hop_excess_db(sxyz, uxyz, p)
+    rx_direct, los_direct = _lookup_rx(bs_user, len(users), t_bs, t_user)  # -inf: this station misses the user
+    direct_db = rx_direct - tx
+    if p.station_beam == "one_beam":
+        omni = bs["pattern"].to_numpy(object)[t_bs] == "omni"
+        az, tilt, gmax = (bs[c].to_numpy(float)[t_bs] for c in ("azimuth_deg", "downtilt_deg", "max_gain_dbi"))
+        to_user, to_surface = uxyz - bxyz, sxyz - bxyz
+        beam = radio.bs_beam_gain_dbi(*to_user.T, *to_surface.T, az, tilt, gmax, omni)
+        direct_db = direct_db - _bs_gain(bs, t_bs, *uxyz.T) + beam
+    coherent = los_direct & (p.combining == "coherent")
+    level = np.empty(len(tx))
+    sigma_s = radio.hop_sigma_db(*(2 * [radio.shadow_fading_sigma_db(p.direct_model, True)])) \
+        if p.shadow_fading else 0.0
+    for mode, rows in (("coherent", coherent), ("power", ~coherent)):
+        if rows.any():
+            level[rows] = radio.combined_level_quantile_db(
+                (tx + direct_db)[rows], p.fade_sigma_db(los_direct[rows]), (tx + surface_db)[rows], sigma_s,
+                p.coverage_probability, combining=mode)
+    return {"snr_db": level - p.noise_dbm, "surface_rx_dbm": tx + surface_db, "bs_gain_to_surface_dbi": g_surface}
+
+
+def _hop_excess_db(a_xyz: np.ndarray, b_xyz: np.ndarray, p: RadioParams) -> np.ndarray:
+    """Excess loss [dB] of the direct model's LOS law over free space on hops a -> b (higher end as station)."""
+    d2d = np.hypot(b_xyz[:, 0] - a_xyz[:, 0], b_xyz[:, 1] - a_xyz[:, 1])
+    with warnings.catch_warnings():  # hops under 10 m follow free space from the 10 m value: no excess to warn of
+        warnings.simplefilter("ignore", radio.RadioValidityWarning)
+        return radio.los_excess_db(p.direct_model, d2d, np.maximum(a_xyz[:, 2], b_xyz[:, 2]),
+                               np.minimum(a_xyz[:, 2], b_xyz[:, 2]), p.frequency_hz)
+
+
+def _lookup_rx(bs_user: pd.DataFrame, n_users: int, bs_idx: np.ndarray, user_idx: np.ndarray):
+    """Direct median received power [dBm] and LOS flag of (bs_idx, user_idx) pairs from the sparse ``bs_user``
+    table (-inf and False if absent)."""
     keys = bs_user["a"].to_numpy(np.int64) * n_users + bs_user["b"].to_numpy(np.int64)
     rx = bs_user["rx_dbm"].to_numpy(float)
+    los = bs_user["los"].to_numpy(bool)
     if np.any(keys[1:] < keys[:-1]):  # the runner hands it over sorted by (a, b); sort only if not
         order = np.argsort(keys, kind="stable")
-        keys, rx = keys[order], rx[order]
+        keys, rx, los = keys[order], rx[order], los[order]
     want = bs_idx.astype(np.int64) * n_users + user_idx.astype(np.int64)
-    pos = np.minimum(np.searchsorted(keys, want), max(len(keys) - 1, 0))
-    found = (keys[pos] == want) if len(keys) else np.zeros(len(want), bool)
-    return np.where(found, rx[pos] if len(keys) else -np.inf, -np.inf)
+    if not len(keys):
+        return np.full(len(want), -np.inf), np.zeros(len(want), bool)
+    pos = np.minimum(np.searchsorted(keys, want), len(keys) - 1)
+    found = keys[pos] == want
+    return np.where(found, rx[pos], -np.inf), found & los[pos]
 
 
 def coverage_matrix(coverage: pd.DataFrame, n_options: int, n_users: int, snr_target_db: float):

@@ -62,6 +62,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "height_column": Key("str", "", doc="column with roof height in metres, tried first ('' = none)"),
         "storey_height_m": Key("float", 3.0, "m", 2.0, 6.0, "height per storey for building:levels"),
         "default_height_m": Key("float", 9.0, "m", 2.0, 300.0, "height for buildings with no usable tag"),
+        "height_uncertainty_m": Key("float", 3.0, "m", 0.0, 100.0, "height band (+/-) of buildings whose height "
+                                    "came from building:levels or the default; links that depend on it are "
+                                    "flagged"),
         "base_stations": Key("path", None, doc="point layer of base stations (bs_id, z_m, tx_power_dbm, "
                              "max_gain_dbi, azimuth_deg, downtilt_deg, pattern)", required=True),
         "sites": Key("path", "", doc="optional point layer of given facade spots, snapped to walls"),
@@ -108,12 +111,43 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "surface_range_m": Key("float", 150.0, "m", 5.0, 5000.0, "longest surface-to-user link considered"),
         "serve_covered_users": Key("bool", False, doc="also compute surface links for users the direct path "
                                    "already covers"),
+        "combining": Key("str", "power", choices=("power", "coherent"),
+                         doc="how the direct and surface paths add: 'power' (their average over the channel) or "
+                         "'coherent' (amplitudes co-phased, an upper bound; never with an NLOS direct path)"),
+        "surface_hop_model": Key("str", "direct", choices=("direct", "free_space"),
+                                 doc="path loss of each surface hop: the LOS law of direct_model, or free space"),
+        "station_beam": Key("str", "one_beam", choices=("one_beam", "envelope"),
+                            doc="a surface-served user's direct path sees the station beam aimed at the surface "
+                            "('one_beam') or the best beam toward itself ('envelope', an upper bound)"),
+        "fresnel_clearance": Key("float", 0.6, "share of F1", 0.0, 1.0,
+                                 "a surface hop is clear only when roofs and walls keep this share of the first "
+                                 "Fresnel zone radius free (0 = bare geometric ray)"),
+        "robust_heights": Key("bool", False, doc="plan as if buildings with guessed heights stood at the top of "
+                              "inputs.height_uncertainty_m"),
+        "shadow_fading": Key("bool", True, doc="log-normal shadow fading (3GPP TR 38.901 sigma per path class); "
+                             "false = median path loss only (upper bound)"),
+        "coverage_probability": Key("float", 0.9, "share", 0.5, 0.999,
+                                    "a user is covered when its SNR reaches the target with this probability "
+                                    "under log-normal shadow fading (0.5 = median, no fade margin)"),
     },
     "surfaces": {
         "reflection_efficiency": Key("float", 0.8, "linear", 0.01, 1.0, "element reflection power efficiency"),
         "phase_bits": Key("int", 2, "bit", 0, 8, "phase-shifter resolution (0 = continuous)"),
         "element_pitch_wavelengths": Key("float", 0.5, "wavelengths", 0.05, 1.0, "element spacing"),
         "steer_limit_deg": Key("float", 60.0, "deg", 1.0, 89.0, "largest angle from the wall normal on either hop"),
+        "control": Key("str", "beams", choices=("beams", "focus"),
+                       doc="panel control: a finite set of far-field beams ('beams') or ideal per-user focusing "
+                       "('focus', an upper bound)"),
+        "beam_oversampling": Key("int", 2, "", 1, 8, "beam grid density: beams per beamwidth along each panel axis "
+                                 "(1 = DFT grid)"),
+        "squint": Key("bool", True, doc="phase-only elements: average the gain over the channel (beam squint); "
+                      "false = narrowband upper bound"),
+        "element_q": Key("float", 1.0, "", 0.0, 20.0, "unit-cell power pattern exponent q in cos(theta)^q on "
+                         "each hop (1 = projected aperture; see docs/MODELS.md)"),
+        "efficiency_angles_deg": Key("floats", [], "deg", 0.0, 90.0, "incidence angles of a measured reflection "
+                                     "efficiency curve ([] = constant reflection_efficiency)"),
+        "efficiency_values": Key("floats", [], "linear", 0.0, 1.0, "reflection efficiencies at "
+                                 "efficiency_angles_deg"),
         "load_cap_weight": Key("float", 0.0, "weight", 0.0, None, "most weight one surface may carry (0 = no cap)"),
         "panels": Key("panels", None, doc="panel catalogue: [[surfaces.panels]] tables with size_id, width_m, "
                       "height_m, cost, install_cost", required=True),
@@ -212,6 +246,17 @@ def _check_panels(panels: list[dict], problems: list[str]) -> None:
         seen.add(sid)
 
 
+def _check_efficiency_curve(surfaces: dict, problems: list[str]) -> None:
+    angles, values = surfaces["efficiency_angles_deg"], surfaces["efficiency_values"]
+    if not (isinstance(angles, list) and isinstance(values, list)):
+        return
+    if len(angles) != len(values):
+        problems.append(f"surfaces.efficiency_values: expected one efficiency per angle of "
+                        f"surfaces.efficiency_angles_deg ({len(angles)}), got {len(values)}")
+    elif any(b <= a for a, b in zip(angles, angles[1:])):
+        problems.append(f"surfaces.efficiency_angles_deg: expected increasing angles, got {angles}")
+
+
 def defaults() -> dict:
     """The full job with every default filled in (required keys are None)."""
     return {s: {k: copy.deepcopy(key.default) for k, key in keys.items()} for s, keys in SCHEMA.items()}
@@ -254,6 +299,7 @@ def validate(raw: dict, base_dir: Path, source: str = "job") -> dict:
                 problems.append(f"{section}.{name}: required key is missing ({key.doc})")
     if isinstance(job["surfaces"]["panels"], list):
         _check_panels(job["surfaces"]["panels"], problems)
+    _check_efficiency_curve(job["surfaces"], problems)
     heights = job["candidates"]["mount_heights_m"]
     if isinstance(heights, list) and not heights:
         problems.append("candidates.mount_heights_m: give at least one mounting height, e.g. [4.0, 8.0]")

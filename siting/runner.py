@@ -38,6 +38,7 @@ import pandas as pd
 
 from . import __version__
 from . import candidates as cand
+from . import checks, radio
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District, load_district
@@ -64,6 +65,8 @@ class RunResult:
     ranking: pd.DataFrame
     backups: pd.DataFrame
     sweep: pd.DataFrame | None
+    site_checks: pd.DataFrame | None = None
+    sensitivity: pd.DataFrame | None = None
     outputs: dict = field(default_factory=dict)
     timings_s: dict = field(default_factory=dict)
     recomputed: list = field(default_factory=list)
@@ -180,9 +183,9 @@ def _surface_tile(keep, site_index, user_index, direct_parts, *, geoms, heights,
     covered = np.zeros(len(users), bool)
     for part in direct_parts:
         covered[part["direct"]["user_id"].to_numpy()] = part["direct"]["covered"].to_numpy(bool)
-    links = [part["bs_user"][["a", "b", "rx_dbm"]] for part in direct_parts]
+    links = [part["bs_user"][["a", "b", "rx_dbm", "los"]] for part in direct_parts]
     bs_user = pd.concat(links, ignore_index=True) if links else pd.DataFrame(
-        {"a": np.zeros(0, np.int64), "b": np.zeros(0, np.int64), "rx_dbm": np.zeros(0)})
+        {"a": np.zeros(0, np.int64), "b": np.zeros(0, np.int64), "rx_dbm": np.zeros(0), "los": np.zeros(0, bool)})
     coverage, bs_site, site_user = surface_links(obstacles, bs, sites, sizes, users, options, bs_user,
                                                  pd.DataFrame({"covered": covered}), p,
                                                  site_index=site_index, user_index=user_index)
@@ -364,8 +367,10 @@ def _advance(bar, next_stage: str) -> None:
 
 
 def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, tile_m, executor, progress,
-                computed: list | None = None):
+                heights_m: np.ndarray, computed: list | None = None):
     """Direct links per user tile and surface links per site tile; union equals the one-piece computation.
+
+    ``heights_m`` are the building heights the links are computed with (see :func:`siting.checks.planning_heights`).
 
     A site tile's task depends only on the direct tiles of the users within reach of its spots, so on Dask it
     starts as soon as those are done (no barrier between the two steps, nothing merged in this process between).
@@ -378,7 +383,7 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     # What the tasks read, slimmed to the columns they use (this is what Dask ships to every worker once).
     point_cols = ["x", "y", "z_m", "normal_az_deg", "building_idx"]
     shared = executor.share({
-        "geoms": district.buildings.geometry.values, "heights": district.buildings["height_m"].to_numpy(float),
+        "geoms": district.buildings.geometry.values, "heights": heights_m,
         "bs": district.base_stations, "sites": sites[point_cols], "sizes": sizes, "users": users[point_cols],
         "options": options[["site_id", "size_idx"]], "p": p})
 
@@ -498,11 +503,29 @@ def optimise_stage(gains: GainResult, sites, users, job: dict, p: RadioParams):
     return plan, ranking, backups, sweep
 
 
+def _model_fit_warnings(base_stations: pd.DataFrame, model: str) -> None:
+    """One warning per station whose antenna height does not suit the direct path model."""
+    for bs_id, z in zip(base_stations["bs_id"].astype(str), base_stations["z_m"].to_numpy(float)):
+        advice = radio.direct_model_fit(model, z)
+        if advice:
+            warnings.warn(f"base station {bs_id}: {advice}", stacklevel=2)
+
+
+def plan_checks(district, sites, sizes, users, gains: GainResult, plan, p: RadioParams, heights_m, uncertainty_m):
+    """The chosen surfaces' field checks and the plan's model sensitivity (:mod:`siting.checks`)."""
+    chosen = np.asarray(plan.chosen, np.int64)
+    args = (district.buildings, district.base_stations, sites, sizes, users, gains.options, gains.bs_user,
+            gains.direct, chosen, p)
+    return (checks.site_checks(*args, heights_m=heights_m, uncertainty_m=uncertainty_m),
+            checks.sensitivity(*args, heights_m=heights_m))
+
+
 # -------------------------------------------------------------------------------------------- orchestration
 def plan_fields(plan) -> dict:
     """The JSON-able fields of a :class:`~siting.optimize.Plan` except ``covered`` (used for the cache)."""
     out = {k: getattr(plan, k) for k in ("objective", "bound", "gap", "status", "solver", "cost",
-                                         "greedy_objective", "message", "model_size", "timings_s", "mode")}
+                                         "greedy_objective", "message", "model_size", "timings_s", "mode",
+                                         "empty_reason")}
     out["chosen"] = [int(c) for c in plan.chosen]
     return json.loads(json.dumps(out, default=json_default))
 
@@ -560,8 +583,12 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         gains_key = digest([cand_key, job["radio"], surfaces])
         tile = job["run"]["tile_m"] if tile_m is None else tile_m
         tiles_done: list[str] = []
+        _model_fit_warnings(district.base_stations, p.direct_model)
+        heights_m = checks.planning_heights(district.buildings, job["inputs"]["height_uncertainty_m"],
+                                            job["radio"]["robust_heights"])
         gains = gains_stage(district, sites, sizes, users, p, cache=cache, key=digest([gains_key, tile]),
-                            tile_m=tile, executor=executor, progress=progress, computed=tiles_done)
+                            tile_m=tile, executor=executor, progress=progress, heights_m=heights_m,
+                            computed=tiles_done)
         if tiles_done:
             recomputed.append(f"gains ({len(tiles_done)} tiles)")
         timings["gains"] = time.perf_counter() - t0
@@ -593,12 +620,17 @@ def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | No
         log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
                  len(plan.chosen), plan.objective, plan.bound, plan.gap)
 
+        t0 = time.perf_counter()
+        field_checks = plan_checks(district, sites, sizes, users, gains, plan, p, heights_m,
+                                   job["inputs"]["height_uncertainty_m"])
+        timings["checks"] = time.perf_counter() - t0
+
         for message in dict.fromkeys(str(w.message) for w in caught):  # unique, in order
             log.warning(message)
             if message not in district.notes:
                 district.notes.append(message)
         result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
-                           timings_s=timings, recomputed=recomputed)
+                           *field_checks, timings_s=timings, recomputed=recomputed)
         if write:
             t0 = time.perf_counter()
             result.outputs = write_stage(result, p)
@@ -644,7 +676,7 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         snr_target_db=p.snr_target_db, budget=job["budget"]["max_cost"] or None,
         max_panels=job["budget"]["max_panels"] or None, params=job, run_info=run_info,
         formats=tuple(job["output"]["formats"]), include_candidates=job["output"]["candidates_layer"],
-        title=job["output"]["title"],
+        title=job["output"]["title"], site_checks=result.site_checks, sensitivity=result.sensitivity,
     )
     graph = {}
     if job["output"]["los_graph"]:

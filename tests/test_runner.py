@@ -152,7 +152,9 @@ def test_dask_tiles_match_single_process(demo_result, tmp_path):
     tiled = run(demo_job(tmp_path), workers=2, tile_m=250.0, write=False)
     cols = ["option_id", "user_id", "bs_idx"]
     pd.testing.assert_frame_equal(tiled.gains.coverage[cols], result.gains.coverage[cols])
-    np.testing.assert_allclose(tiled.gains.coverage["snr_db"], result.gains.coverage["snr_db"], rtol=1e-9)
+    # Within 1e-6 dB: the shadow-fading quantile uses an interpolation table on large batches and an exact solve on
+    # small ones (siting/radio/fading.py), so tiles of other sizes may differ in the last digits.
+    np.testing.assert_allclose(tiled.gains.coverage["snr_db"], result.gains.coverage["snr_db"], rtol=0, atol=1e-6)
     pd.testing.assert_frame_equal(tiled.gains.direct, result.gains.direct)
     assert list(tiled.plan.chosen) == list(result.plan.chosen)
     # The workers stored every tile they computed: the same job in this process recomputes none of them.
