@@ -1,4 +1,4 @@
-"""Gaseous absorption against the itur package (ITU-R P.676 reference implementation) and CHECKS.md §6."""
+"""Gaseous absorption against the itur package (ITU-R P.676 reference implementation) and ITU-R P.676-12 Annex 1 via the itur package."""
 
 import numpy as np
 import pytest
@@ -18,21 +18,21 @@ def _itur(f_ghz, p_dry_hpa, rho=RHO, t=T):
 
 @pytest.mark.parametrize("f_ghz", FREQS_GHZ)
 def test_within_2_percent_of_itur(f_ghz):
-    # itur 0.4 gamma_exact (ITU-R P.676-12 Annex 1) at standard conditions, called as CHECKS §6 shows;
+    # itur 0.4 gamma_exact (ITU-R P.676-12 Annex 1) at standard conditions, called as ITU-R P.676-12 Annex 1 via the itur package shows;
     # requirement: within 2 % (itur reads P as dry-air pressure, we read it as total pressure: ~1 %)
     assert gaseous_attenuation_db_per_km(f_ghz * 1e9) == pytest.approx(_itur(f_ghz, P), rel=0.02)
 
 
 @pytest.mark.parametrize("f_ghz", FREQS_GHZ)
 def test_same_line_sum_as_itur_with_dry_pressure(f_ghz):
-    # CHECKS §6 pitfall 2: itur's P is the dry-air pressure p; with p = 1013.25 - e the two line-by-line
+    # ITU-R P.676-12 Annex 1 via the itur package pitfall 2: itur's P is the dry-air pressure p; with p = 1013.25 - e the two line-by-line
     # sums of P.676-12 Annex 1 must agree to rounding
     e = water_vapour_pressure_hpa(RHO, T)
     assert gaseous_attenuation_db_per_km(f_ghz * 1e9) == pytest.approx(_itur(f_ghz, P - e), rel=1e-6)
 
 
-def test_CHECKS_section6_values():
-    # CHECKS §6 table (itur 0.4, P.676-12): 28 GHz 0.10176, 60 GHz 14.7783 dB/km total (2 %), and the
+def test_worked_section6_values():
+    # ITU-R P.676-12 Annex 1 via the itur package table (itur 0.4, P.676-12): 28 GHz 0.10176, 60 GHz 14.7783 dB/km total (2 %), and the
     # dry-only values with rho = 0 (where total = dry pressure): 0.01850 and 14.6512 dB/km
     assert gaseous_attenuation_db_per_km(28e9) == pytest.approx(0.10176, rel=0.02)
     assert gaseous_attenuation_db_per_km(60e9) == pytest.approx(14.7783, rel=0.02)
@@ -40,16 +40,16 @@ def test_CHECKS_section6_values():
     np.testing.assert_allclose(dry, [0.01850, 14.6512], atol=1e-4)
 
 
-def test_terrestrial_path_CHECKS_and_itur():
-    # CHECKS §6: 60 GHz over 200 m = 2.9557 dB (2 %); itur gaseous_attenuation_terrestrial_path agrees
+def test_terrestrial_path_worked_and_itur():
+    # ITU-R P.676-12 Annex 1 via the itur package: 60 GHz over 200 m = 2.9557 dB (2 %); itur gaseous_attenuation_terrestrial_path agrees
     a = gaseous_attenuation_db(200.0, 60e9)
     assert a == pytest.approx(2.9557, rel=0.02)
     ref = float(np.asarray(itu676.gaseous_attenuation_terrestrial_path(0.2, 60.0, 0, RHO, P, T, "exact").value))
     assert a == pytest.approx(ref, rel=0.02)
 
 
-def test_water_vapour_pressure_CHECKS():
-    # CHECKS §6 / P.676 Annex 1 Eq. 4: e = rho T / 216.7 = 9.97 hPa at 7.5 g/m3 and 288.15 K
+def test_water_vapour_pressure_worked():
+    # ITU-R P.676-12 Annex 1 via the itur package / P.676 Annex 1 Eq. 4: e = rho T / 216.7 = 9.97 hPa at 7.5 g/m3 and 288.15 K
     assert water_vapour_pressure_hpa(7.5, 288.15) == pytest.approx(9.97, abs=0.005)
 
 

