@@ -75,11 +75,11 @@ def chosen_rows(obstacles, bs, sites, sizes, users, options, bs_user, direct, ch
 
 
 def site_checks(buildings, bs, sites, sizes, users, options, bs_user, direct, chosen, p: RadioParams, *,
-                heights_m: np.ndarray, uncertainty_m: float) -> pd.DataFrame:
-    """The per-surface field checks (see the module docstring) for the chosen option ids."""
+                obstacles: Obstacles, heights_m: np.ndarray, uncertainty_m: float) -> pd.DataFrame:
+    """The per-surface field checks (see the module docstring) for the chosen option ids; ``obstacles`` are the
+    buildings at ``heights_m``, the heights the plan was made with."""
     chosen = np.asarray(chosen, np.int64)
     geoms = buildings.geometry.values
-    obstacles = Obstacles.from_buildings(geoms, heights_m)
     rows = chosen_rows(obstacles, bs, sites, sizes, users, options, bs_user, direct, chosen, p)
     served = rows[rows["snr_db"] >= p.snr_target_db]
     guessed = guessed_heights(buildings)
@@ -157,15 +157,18 @@ def _exposure(bs, sites, sizes, users, feed: int, site: int, size: int, served: 
 
 
 def sensitivity(buildings, bs, sites, sizes, users, options, bs_user, direct, chosen, p: RadioParams, *,
-                heights_m: np.ndarray) -> pd.DataFrame:
+                obstacles: Obstacles, heights_m: np.ndarray) -> pd.DataFrame:
     """Covered weight of the chosen plan under the planning model, each relaxation alone, and all together.
 
     Users count as covered when the direct path or one chosen surface brings them to the target (no load cap).
-    The upper bound uses the buildings' heights as read (not raised for ``robust_heights``).
+    ``obstacles`` are the buildings at ``heights_m``, the heights the plan was made with; the upper bound uses
+    the heights as read (not raised for ``robust_heights``).
     """
     weight = users["weight"].to_numpy(float)
-    nominal = Obstacles.from_buildings(buildings.geometry.values, buildings["height_m"].to_numpy(float))
-    planning = Obstacles.from_buildings(buildings.geometry.values, heights_m)
+    planning = obstacles
+    read = buildings["height_m"].to_numpy(float)
+    nominal = planning if np.array_equal(read, heights_m) else Obstacles.from_buildings(
+        buildings.geometry.values, read)
     cases = [("planning model", p, planning)]
     cases += [(f"with {label}", replace(p, **change), planning) for label, change in RELAXATIONS]
     cases.append(("upper bound (all of the above)", p.upper_bound(), nominal))

@@ -516,8 +516,9 @@ def plan_checks(district, sites, sizes, users, gains: GainResult, plan, p: Radio
     chosen = np.asarray(plan.chosen, np.int64)
     args = (district.buildings, district.base_stations, sites, sizes, users, gains.options, gains.bs_user,
             gains.direct, chosen, p)
-    return (checks.site_checks(*args, heights_m=heights_m, uncertainty_m=uncertainty_m),
-            checks.sensitivity(*args, heights_m=heights_m))
+    obstacles = Obstacles.from_buildings(district.buildings.geometry.values, heights_m)  # built once for both
+    return (checks.site_checks(*args, obstacles=obstacles, heights_m=heights_m, uncertainty_m=uncertainty_m),
+            checks.sensitivity(*args, obstacles=obstacles, heights_m=heights_m))
 
 
 # -------------------------------------------------------------------------------------------- orchestration

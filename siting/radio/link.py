@@ -70,6 +70,17 @@ def noise_power_dbm(bandwidth_hz, noise_figure_db):
     return scalar_or_array(THERMAL_NOISE_DBM_HZ + 10.0 * np.log10(b) + nf)
 
 
+def _two_path_inputs(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm):
+    """Checked float arrays of a two-path SNR's inputs; a gain is finite or -inf (no path), never +inf."""
+    p = as_float("tx_power_dbm", tx_power_dbm)
+    gd = as_float("direct_gain_db", direct_gain_db)
+    gs = as_float("surface_gain_db", surface_gain_db)
+    n = as_float("noise_dbm", noise_dbm)
+    if np.any(gd == np.inf) or np.any(gs == np.inf):
+        raise RadioInputError("gain_db: +inf gain found; a path gain must be finite or -inf (no path)")
+    return p, gd, gs, n
+
+
 def coherent_snr_db(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm):
     r"""SNR with the surface path co-phased with the direct path (amplitudes add).
 
@@ -99,12 +110,7 @@ def coherent_snr_db(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm):
     ----------
     .. [1] E. Björnson et al., IEEE Wireless Commun. Lett., 2020, arXiv:1906.03949.
     """
-    p = as_float("tx_power_dbm", tx_power_dbm)
-    gd = as_float("direct_gain_db", direct_gain_db)
-    gs = as_float("surface_gain_db", surface_gain_db)
-    n = as_float("noise_dbm", noise_dbm)
-    if np.any(gd == np.inf) or np.any(gs == np.inf):
-        raise RadioInputError("gain_db: +inf gain found; a path gain must be finite or -inf (no path)")
+    p, gd, gs, n = _two_path_inputs(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm)
     amp = 10.0 ** (gd / 20.0) + 10.0 ** (gs / 20.0)  # [1]: sqrt(beta_d) + sqrt(beta_s)
     with np.errstate(divide="ignore"):
         return scalar_or_array(p + 20.0 * np.log10(amp) - n)
@@ -145,12 +151,7 @@ def power_sum_snr_db(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm):
     .. [1] E. Björnson, Ö. Özdogan and E. G. Larsson, "Intelligent Reflecting Surface vs. Decode-and-Forward:
        How Large Surfaces Are Needed to Beat Relaying?", IEEE Wireless Commun. Lett., 2020, arXiv:1906.03949.
     """
-    p = as_float("tx_power_dbm", tx_power_dbm)
-    gd = as_float("direct_gain_db", direct_gain_db)
-    gs = as_float("surface_gain_db", surface_gain_db)
-    n = as_float("noise_dbm", noise_dbm)
-    if np.any(gd == np.inf) or np.any(gs == np.inf):
-        raise RadioInputError("gain_db: +inf gain found; a path gain must be finite or -inf (no path)")
+    p, gd, gs, n = _two_path_inputs(tx_power_dbm, direct_gain_db, surface_gain_db, noise_dbm)
     top = np.maximum(gd, gs)
     with np.errstate(invalid="ignore", divide="ignore"):
         rel = 10.0 ** ((gd - top) / 10.0) + 10.0 ** ((gs - top) / 10.0)   # beta_d + beta_s, scaled by the larger
