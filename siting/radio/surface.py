@@ -688,13 +688,42 @@ def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
         pu = (ui + us)[ni] if beams else None
         pv = (vi + vs)[ni] if beams else None
         dsum = d1[ni] + d2[ni]
+        beta[ni] = _near_power_sum(Ln, dsum, w_n, h_n, k_n, bw_n, pu, pv, q, nx, ny, nf)
+    return beta
+
+
+def _near_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, nf, compiled=True):
+    """Band-averaged power of the complex tile sum for 1-D arrays of near-field triples, scale excluded.
+
+    Per triple: tile grid ``nx`` x ``ny`` and ``nf`` Gauss-Legendre nodes; ``pu``/``pv`` None for focus.
+    ``compiled`` runs the numba kernel (:mod:`siting.radio._surface_kernel`, all triples in one call);
+    False runs the numpy reference :func:`_tile_power_sum` once per (tile grid, node count) group.
+    """
+    if not compiled:
+        out = np.empty(dsum.shape)
         key = (nx * (1 << 20) + ny) * (1 << 12) + nf
         for g in _groups(key):  # one iteration per (tile grid, node count) group, not per triple
-            beta[ni[g]] = _tile_power_sum(
-                tuple(x[g] for x in Ln), dsum[g], w_n[g], h_n[g], k_n[g], bw_n[g],
+            out[g] = _tile_power_sum(
+                tuple(x[g] for x in loc), dsum[g], w[g], h[g], k0[g], bw[g],
                 None if pu is None else pu[g], None if pv is None else pv[g], q,
                 int(nx[g[0]]), int(ny[g[0]]), int(nf[g[0]]))
-    return beta
+        return out
+    from ._surface_kernel import tile_power_sum
+
+    counts, pos = np.unique(nf, return_inverse=True)
+    rules = [np.polynomial.legendre.leggauss(int(n)) for n in counts]
+    starts = np.r_[0, np.cumsum(counts)[:-1]].astype(np.int64)
+    xs = np.concatenate([r[0] for r in rules])
+    ws = 0.5 * np.concatenate([r[1] for r in rules])           # mean over the band
+    f64 = [np.ascontiguousarray(x, dtype=np.float64) for x in (*loc, dsum, w, h, k0, bw)]
+    beams = pu is not None
+    zero = np.zeros(dsum.shape)
+    out = np.empty(dsum.shape)
+    tile_power_sum(*f64, np.ascontiguousarray(pu if beams else zero, dtype=np.float64),
+                   np.ascontiguousarray(pv if beams else zero, dtype=np.float64), beams, float(q),
+                   nx.astype(np.int64), ny.astype(np.int64), starts[pos.ravel()], nf.astype(np.int64), xs, ws,
+                   int(np.max(nx * ny)) if nx.size else 1, out)
+    return out
 
 
 def _tile_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, n_nodes):
