@@ -99,6 +99,26 @@ def edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
 
 
 @njit(cache=True, inline="always")
+def edge_crossing(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
+    """0: the track a + t (dx, dy), t in [0, 1], misses grid entry k (or runs parallel to it); 1: it crosses
+    below the building's height (:func:`edge_blocks`); 2: it crosses at or above the roof."""
+    ex = cx1[k] - cx0[k]
+    ey = cy1[k] - cy0[k]
+    den = dx * ey - dy * ex
+    if den == 0.0:
+        return 0
+    qx = cx0[k] - ax
+    qy = cy0[k] - ay
+    t = (qx * ey - qy * ex) / den
+    if t < 0.0 or t > 1.0:
+        return 0
+    u = (qx * dy - qy * dx) / den
+    if u < 0.0 or u > 1.0:
+        return 0
+    return 1 if az + t * dz < ch[k] else 2
+
+
+@njit(cache=True, inline="always")
 def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax):
     """Grid entry of a blocking edge crossing of the 3-D segment a->b, or -1 when nothing blocks it.
 
@@ -233,10 +253,13 @@ def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, 
     ``zlo`` = min(z_a, z_b).  Edges the tube cannot reach are rejected first (they cannot be crossed below
     the roof either): the ray stays ``rad`` above the roof, or both edge ends lie ``rad`` or more to the
     same side of the track's line.
+
+    Returns 1 when the entry blocks, 2 when it does not but the track crosses it in plan view above the roof
+    (the footprint is entered or left there: the roof test of the walk is then needed), 0 otherwise.  A
+    rejected entry (0) either is not crossed in plan view or lies ``rad`` or more below the ray, so that its
+    footprint's roof cannot reach the tube anywhere.
     """
     h = ch[k]
-    if zlo - h >= rad:
-        return False
     ex0 = cx0[k]
     ey0 = cy0[k]
     evx = cx1[k] - ex0
@@ -245,16 +268,29 @@ def edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, 
     qy = ey0 - ay
     s0 = dx * qy - dy * qx  # |d| x signed distance of each edge end from the track's line
     s1 = s0 + dx * evy - dy * evx
-    if dd > 0.0 and ((s0 >= rl and s1 >= rl) or (s0 <= -rl and s1 <= -rl)):
-        return False
-    if edge_blocks(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch):
-        return True
-    if dd > 0.0:
-        p0 = dx * qx + dy * qy  # |d| x position of each edge end along the track
-        p1 = p0 + dx * evx + dy * evy
-        if (p0 <= -rl and p1 <= -rl) or (p0 >= dd + rl and p1 >= dd + rl):
-            return False
-    return _tube_min_negative(ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, qx, qy)
+    # (branch-free) the ray stays rad above the roof, or both ends lie rl or more to one side of the line
+    far = (zlo - h >= rad) | ((s0 * s1 > 0.0) & (min(abs(s0), abs(s1)) >= rl) & (dd > 0.0))
+    if far:
+        return 0
+    cross = edge_crossing(k, ax, ay, az, dx, dy, dz, cx0, cy0, cx1, cy1, ch)
+    if cross == 1:
+        return 1
+    p0 = dx * qx + dy * qy  # |d| x position of each edge end along the track
+    p1 = p0 + dx * evx + dy * evy
+    # lower bound through the distance to the edge's line: (sg0 + t sg1)^2 - |e|^2 c t (1 - t) without a
+    # root in (0, 1) means the tube misses the wall
+    ee = evx * evx + evy * evy
+    sg0 = evy * qx - evx * qy
+    sg1 = evx * dy - evy * dx
+    qa = sg1 * sg1 + c * ee
+    qb = 2.0 * sg0 * sg1 - c * ee
+    miss = (qb * qb < 4.0 * qa * sg0 * sg0) | (qb >= 0.0) | (-qb >= 2.0 * qa)
+    beyond = (cross == 0) & (dd > 0.0) & (((p0 <= -rl) & (p1 <= -rl)) | ((p0 >= dd + rl) & (p1 >= dd + rl)))
+    if miss | beyond:
+        return cross
+    if _tube_min_negative(ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, qx, qy):
+        return 1
+    return cross
 
 
 @njit(cache=True)
@@ -337,7 +373,7 @@ def roof_over(qx, qy, zthr, cs, nx, ny, bld):
 
 
 @njit(cache=True, inline="always")
-def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
+def segment_blocked_clear(ax, ay, az, bx, by, bz, inside, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
     """Clearance version of :func:`segment_blocked`: grid entry of a blocking edge, -2 when the tube reaches a
     roof away from every edge, -1 when clear.
 
@@ -348,6 +384,11 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
     under the stationary point t* of z - r is tested (point in polygon): the minimum of the convex z - r - h
     over the track's inside intervals of a footprint is at t* or at an interval end (a crossing, covered by
     the wall test with d = 0, or an endpoint, where r = 0).
+
+    The roof test is skipped when the track cannot be over a footprint at t*: neither end lies inside a
+    footprint (``inside``, from the caller), no visited edge is crossed in plan view and no cell holding
+    edges was passed over without visiting it.  Otherwise the track enters every footprint it passes over
+    through an edge, and that edge is either tested (crossed: flagged) or in a skipped cell (flagged).
     """
     dx = bx - ax
     dy = by - ay
@@ -416,6 +457,7 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
         tmaxy = inf
         tdy = inf
     t_enter = t0
+    roof = inside
     while True:
         t_exit = min(tmaxx, tmaxy, t1)
         cell = iy * nx + ix
@@ -430,8 +472,13 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
             visit = az + tc * dz - sc * math.sqrt(max(0.0, tc * (1.0 - tc))) < hm
         if visit:
             for k in range(start[cell], start[cell + 1]):
-                if edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch):
+                hit = edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch)
+                if hit == 1:
                     return k
+                if hit == 2:
+                    roof = True
+        elif start[cell + 1] > start[cell]:
+            roof = True
         if t_exit >= t1:
             break
         if tmaxx < tmaxy:
@@ -444,6 +491,8 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
             tmaxy += tdy
         if ix < 0 or ix >= nx or iy < 0 or iy >= ny:
             break
+    if not roof:
+        return -1
     fs = az + ts * dz - sc * math.sqrt(ts * (1.0 - ts))
     if roof_over(ax + ts * dx, ay + ts * dy, fs, cs, nx, ny, bld):
         return -2
@@ -451,7 +500,8 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, kl, cs, nx, ny, start, cx0, cy
 
 
 @njit(cache=True)
-def clear_rays(ax, ay, az, ia, bx, by, bz, ib, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld):
+def clear_rays(ax, ay, az, ia, bx, by, bz, ib, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+               bld):  # fmt: skip
     """LOS flags under the clearance rule (kl = k^2 lambda > 0) for the rays a[ia[q]] -> b[ib[q]].
 
     The only compiled copy of the clearance walk: both entry points call it for a batch of rays (all rays
@@ -475,8 +525,8 @@ def clear_rays(ax, ay, az, ia, bx, by, bz, ib, kl, cs, nx, ny, start, cx0, cy0, 
         if last >= 0 and _last_blocks(last, x, y, z, bx[j], by[j], bz[j], kl, cx0, cy0, cx1, cy1, ch):
             out[q] = False
             continue
-        k = segment_blocked_clear(x, y, z, bx[j], by[j], bz[j], kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
-                                  bld)  # fmt: skip
+        k = segment_blocked_clear(x, y, z, bx[j], by[j], bz[j], inside_a[i] or inside_b[j], kl, cs, nx, ny, start,
+                                  cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
         out[q] = k == -1
         if k >= 0:
             last = k
@@ -485,8 +535,9 @@ def clear_rays(ax, ay, az, ia, bx, by, bz, ib, kl, cs, nx, ny, start, cx0, cy0, 
 
 @njit(cache=True, parallel=True)
 def los_elementwise(
-    ax, ay, az, bx, by, bz, buried_a, buried_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld
-):
+    ax, ay, az, bx, by, bz, buried_a, buried_b, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax,
+    bld,
+):  # fmt: skip
     """Element-wise LOS flags for pairs (a[i], b[i])."""
     n = ax.shape[0]
     out = np.empty(n, np.bool_)
@@ -496,7 +547,8 @@ def los_elementwise(
             lo = c * chunk
             hi = min(n, lo + chunk)
             idx = np.arange(lo, hi)
-            vis = clear_rays(ax, ay, az, idx, bx, by, bz, idx, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)
+            vis = clear_rays(ax, ay, az, idx, bx, by, bz, idx, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1,
+                             cy1, ch, hmax, bld)  # fmt: skip
             for q in range(hi - lo):
                 out[lo + q] = vis[q] and not (buried_a[lo + q] or buried_b[lo + q])
         return out
@@ -534,7 +586,7 @@ def pairs_in_range(
     ax, ay, az, a_has, anx, any_, thr_a,
     bx, by, bz, b_has, bnx, bny, thr_b,
     r, px0, py0, pcs, pnx, pny, pstart, porder,
-    with_los, buried_a, buried_b, kl,
+    with_los, buried_a, buried_b, inside_a, inside_b, kl,
     cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
 ):  # fmt: skip
     """Two-pass (count, then fill) search of the b points within range of each a point, fused with LOS.
@@ -548,7 +600,7 @@ def pairs_in_range(
         counts[i] = _scan(
             i, False, counts, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
             r, r2, px0, py0, pcs, pnx, pny, pstart, porder, np.empty(0, np.int64),
-            False, buried_a, buried_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
+            False, buried_a, buried_b, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
         )  # fmt: skip
     offsets = np.zeros(na + 1, np.int64)
     for i in range(na):
@@ -558,7 +610,7 @@ def pairs_in_range(
         _scan(
             i, True, offsets, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
             r, r2, px0, py0, pcs, pnx, pny, pstart, porder, key,
-            with_los, buried_a, buried_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
+            with_los, buried_a, buried_b, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
         )  # fmt: skip
     return offsets, key
 
@@ -577,14 +629,14 @@ def _last_blocks(k, x, y, z, bx, by, bz, kl, cx0, cy0, cx1, cy1, ch):
     c = kl * math.sqrt(dd + dz * dz)
     rad = 0.5 * math.sqrt(c)
     zlo = z if dz > 0.0 else z + dz
-    return edge_blocks_clear(k, x, y, z, dx, dy, dz, c, rad, rad * math.sqrt(dd), dd, zlo, cx0, cy0, cx1, cy1, ch)
+    return edge_blocks_clear(k, x, y, z, dx, dy, dz, c, rad, rad * math.sqrt(dd), dd, zlo, cx0, cy0, cx1, cy1, ch) == 1
 
 
 @njit(cache=True)
 def _scan(
     i, fill, offsets, ax, ay, az, a_has, anx, any_, thr_a, bx, by, bz, b_has, bnx, bny, thr_b,
     r, r2, px0, py0, pcs, pnx, pny, pstart, porder, key,
-    with_los, buried_a, buried_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
+    with_los, buried_a, buried_b, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld,
 ):  # fmt: skip
     """Count (fill=False) or write (fill=True) the accepted b of point i; keys are 2*b + los, sorted."""
     x = ax[i]
@@ -632,8 +684,8 @@ def _scan(
     if fill and with_los and kl > 0.0 and n > 0 and not buried_a[i]:
         # clearance rule: all rays of this point in one batch (in scan order, for the blocking-edge cache)
         js = key[pos : pos + n] >> 1
-        vis = clear_rays(ax, ay, az, np.full(n, i, np.int64), bx, by, bz, js, kl, cs, nx, ny, start, cx0, cy0, cx1,
-                         cy1, ch, hmax, bld)  # fmt: skip
+        vis = clear_rays(ax, ay, az, np.full(n, i, np.int64), bx, by, bz, js, inside_a, inside_b, kl, cs, nx, ny, start,
+                         cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
         for q in range(n):
             if vis[q] and not buried_b[js[q]]:
                 key[pos + q] += 1

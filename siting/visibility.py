@@ -504,15 +504,17 @@ def visible_pairs(
     ib = _subset(b_index, len(b), "b_index")
     ax, ay, az, ahas, anx, any_ = _normal_arrays(a, ia, o)
     bx, by, bz, bhas, bnx, bny = _normal_arrays(b, ib, o)
-    buried_a = obstacles.buried(ax + o[0], ay + o[1], az)
-    buried_b = obstacles.buried(bx + o[0], by + o[1], bz)
+    roof_a = obstacles.roof_above(ax + o[0], ay + o[1])
+    roof_b = obstacles.roof_above(bx + o[0], by + o[1])
+    buried_a, buried_b = az < roof_a, bz < roof_b
+    inside_a, inside_b = roof_a > -np.inf, roof_b > -np.inf
     r = float(max_range_m)
     px0, py0, pcs, pnx, pny, pstart, porder = _point_grid(bx, by, r)
     offsets, key = _k.pairs_in_range(
         ax, ay, az, ahas, anx, any_, thr_a,
         bx, by, bz, bhas, bnx, bny, thr_b,
         r, px0, py0, pcs, pnx, pny, pstart, porder,
-        True, buried_a, buried_b, *kargs,
+        True, buried_a, buried_b, inside_a, inside_b, *kargs,
     )  # fmt: skip
     out_off = _k.output_offsets(offsets, key, bool(los_only))
     n_out = out_off[-1]
@@ -561,13 +563,13 @@ def line_of_sight(obstacles: Obstacles, a_xyz, b_xyz, clearance_fraction: float 
         o, kargs = obstacles._clearance_args(kl, lmax)
     else:
         o, kargs = obstacles._kernel_args()
-    ba = obstacles.buried(a_xyz[:, 0], a_xyz[:, 1], a_xyz[:, 2])
-    bb = obstacles.buried(b_xyz[:, 0], b_xyz[:, 1], b_xyz[:, 2])
+    roof_a = obstacles.roof_above(a_xyz[:, 0], a_xyz[:, 1])
+    roof_b = obstacles.roof_above(b_xyz[:, 0], b_xyz[:, 1])
     c = lambda v: np.ascontiguousarray(v)  # noqa: E731
     return _k.los_elementwise(
         c(a_xyz[:, 0] - o[0]), c(a_xyz[:, 1] - o[1]), c(a_xyz[:, 2]),
         c(b_xyz[:, 0] - o[0]), c(b_xyz[:, 1] - o[1]), c(b_xyz[:, 2]),
-        ba, bb, *kargs,
+        a_xyz[:, 2] < roof_a, b_xyz[:, 2] < roof_b, roof_a > -np.inf, roof_b > -np.inf, *kargs,
     )  # fmt: skip
 
 

@@ -611,6 +611,29 @@ def test_clearance_over_a_wide_roof_away_from_its_edges():
     np.testing.assert_array_equal(got, ref)
 
 
+def test_clearance_between_two_masts_on_one_roof():
+    # both ends stand on the same 120 m roof: the track crosses no wall, so only the roof under the tube's
+    # lowest point decides (the walk must not skip that test for ends inside a footprint); level ray 100 m
+    # long at 3.5 GHz, mid-span radius 0.6 F1; pairs and element-wise agree with the shapely reference
+    poly = box(X0 - 10, Y0 - 20, X0 + 110, Y0 + 20)
+    ob = Obstacles.from_buildings([poly], [10.0])
+    f1 = fresnel_f1(LAM_3_5, 50, 50)
+    dz = np.array([0.6 * f1 + 0.01, 0.6 * f1 - 0.01])
+    a = np.c_[np.full(2, X0), np.full(2, Y0), 10.0 + dz]
+    b = np.c_[np.full(2, X0 + 100), np.full(2, Y0), 10.0 + dz]
+    got = line_of_sight(ob, a, b, clearance_fraction=0.6, wavelength_m=LAM_3_5)
+    np.testing.assert_array_equal(got, [True, False])
+    ref, graze = reference_clearance([poly], [10.0], a, b, 0.6, LAM_3_5)
+    np.testing.assert_array_equal(ref, got)
+    assert not graze.any()
+    pts = lambda xyz: Points(xyz[:, 0], xyz[:, 1], xyz[:, 2], np.full(len(xyz), np.nan),  # noqa: E731
+                             np.full(len(xyz), -1, np.int64))
+    for i, expect in enumerate(got):
+        pairs = visible_pairs(ob, pts(a[i:i + 1]), pts(b[i:i + 1]), 150.0, clearance_fraction=0.6,
+                              wavelength_m=LAM_3_5)
+        assert pairs["los"].tolist() == [expect]
+
+
 def test_facade_spot_own_wall_blocks_only_grazing_rays():
     # a spot 5 cm in front of a long wall (below the roof): rays leaving at a steep angle to the wall are
     # clear; a ray 3 deg off the wall plane is blocked: the radius near the spot, k sqrt(lambda s) for
