@@ -671,7 +671,9 @@ def _scan(
                 continue
             if fill:
                 vis = False
-                if with_los and kl == 0.0 and not (buried_a[i] or buried_b[j]):
+                if with_los and not (buried_a[i] or buried_b[j]):
+                    # bare ray first (under either rule: the tube contains the ray, so a blocked ray stays
+                    # blocked); with clearance the grid is the padded one, a superset of the bare lists
                     if last >= 0 and edge_blocks(last, x, y, z, bx[j] - x, by[j] - y, bz[j] - z, cx0, cy0, cx1, cy1, ch):
                         vis = False
                     else:
@@ -682,13 +684,23 @@ def _scan(
                 key[pos + n] = 2 * j + (1 if vis else 0)
             n += 1
     if fill and with_los and kl > 0.0 and n > 0 and not buried_a[i]:
-        # clearance rule: all rays of this point in one batch (in scan order, for the blocking-edge cache)
-        js = key[pos : pos + n] >> 1
-        vis = clear_rays(ax, ay, az, np.full(n, i, np.int64), bx, by, bz, js, inside_a, inside_b, kl, cs, nx, ny, start,
-                         cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
+        # clearance rule on the rays the bare test left clear, in one batch (scan order)
+        m = 0
         for q in range(n):
-            if vis[q] and not buried_b[js[q]]:
-                key[pos + q] += 1
+            m += key[pos + q] & 1
+        if m > 0:
+            qs = np.empty(m, np.int64)
+            m = 0
+            for q in range(n):
+                if key[pos + q] & 1:
+                    qs[m] = q
+                    m += 1
+            js = key[pos + qs] >> 1
+            vis = clear_rays(ax, ay, az, np.full(m, i, np.int64), bx, by, bz, js, inside_a, inside_b, kl, cs, nx, ny,
+                             start, cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
+            for r in range(m):
+                if not vis[r]:
+                    key[pos + qs[r]] -= 1
     if fill and n > 1:
         key[pos : pos + n] = np.sort(key[pos : pos + n])
     return n
