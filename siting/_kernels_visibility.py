@@ -472,11 +472,47 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, inside, kl, cs, nx, ny, start,
             visit = az + tc * dz - sc * math.sqrt(max(0.0, tc * (1.0 - tc))) < hm
         if visit:
             for k in range(start[cell], start[cell + 1]):
-                hit = edge_blocks_clear(k, ax, ay, az, dx, dy, dz, c, rad, rl, dd, zlo, cx0, cy0, cx1, cy1, ch)
-                if hit == 1:
+                # edge_blocks_clear written out in the loop, sharing the plan-view crossing's products:
+                # the edge ends' signed distances from the track's line (times |d|) are -un and den - un
+                ex0 = cx0[k]
+                ey0 = cy0[k]
+                evx = cx1[k] - ex0
+                evy = cy1[k] - ey0
+                h = ch[k]
+                qx = ex0 - ax
+                qy = ey0 - ay
+                den = dx * evy - dy * evx
+                un = qx * dy - qy * dx
+                if den != 0.0:
+                    tc = (qx * evy - qy * evx) / den
+                    uc = un / den
+                    if 0.0 <= tc <= 1.0 and 0.0 <= uc <= 1.0:   # crossed in plan view
+                        if az + tc * dz < h:
+                            return k
+                        roof = True
+                s0 = -un
+                s1 = den - un
+                lo = s0 if s0 < s1 else s1
+                hi = s1 if s0 < s1 else s0
+                # the ray stays rad above the roof, or both ends lie rl or more to one side of the line
+                if (zlo - h >= rad) | ((dd > 0.0) & ((lo >= rl) | (hi <= -rl))):
+                    continue
+                p0 = dx * qx + dy * qy  # |d| x position of each edge end along the track
+                p1 = p0 + dx * evx + dy * evy
+                lo = p0 if p0 < p1 else p1
+                hi = p1 if p0 < p1 else p0
+                if (dd > 0.0) & ((hi <= -rl) | (lo >= dd + rl)):
+                    continue
+                # lower bound through the distance to the edge's line (see edge_blocks_clear)
+                ee = evx * evx + evy * evy
+                sg0 = evy * qx - evx * qy
+                sg1 = evx * dy - evy * dx
+                qa = sg1 * sg1 + c * ee
+                qb = 2.0 * sg0 * sg1 - c * ee
+                if (qb * qb < 4.0 * qa * sg0 * sg0) | (qb >= 0.0) | (-qb >= 2.0 * qa):
+                    continue
+                if _tube_min_negative(ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, qx, qy):
                     return k
-                if hit == 2:
-                    roof = True
         elif start[cell + 1] > start[cell]:
             roof = True
         if t_exit >= t1:

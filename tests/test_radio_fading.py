@@ -8,8 +8,13 @@ from scipy.optimize import brentq
 from scipy.special import ndtr
 from scipy.stats import norm
 
-from siting.radio import (RadioInputError, combined_level_quantile_db, fade_margin_db, hop_sigma_db,
-                          shadow_fading_sigma_db)
+from siting.radio import (
+    RadioInputError,
+    combined_level_quantile_db,
+    fade_margin_db,
+    hop_sigma_db,
+    shadow_fading_sigma_db,
+)
 from siting.radio.fading import _solve_rows
 
 

@@ -626,7 +626,7 @@ def test_clearance_between_two_masts_on_one_roof():
     ref, graze = reference_clearance([poly], [10.0], a, b, 0.6, LAM_3_5)
     np.testing.assert_array_equal(ref, got)
     assert not graze.any()
-    pts = lambda xyz: Points(xyz[:, 0], xyz[:, 1], xyz[:, 2], np.full(len(xyz), np.nan),  # noqa: E731
+    pts = lambda xyz: Points(xyz[:, 0], xyz[:, 1], xyz[:, 2], np.full(len(xyz), np.nan),
                              np.full(len(xyz), -1, np.int64))
     for i, expect in enumerate(got):
         pairs = visible_pairs(ob, pts(a[i:i + 1]), pts(b[i:i + 1]), 150.0, clearance_fraction=0.6,
