@@ -87,6 +87,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numba
 import numpy as np
 import pandas as pd
 import shapely
@@ -98,6 +99,8 @@ from .tables import Points
 __all__ = ["Obstacles", "visible_pairs", "line_of_sight", "los_graph", "degree_stats"]
 
 _MAX_GRID_CELLS = 4_000_000
+# Points per work item of the parallel pair search (dynamic scheduling; numba.set_parallel_chunksize).
+_SCAN_CHUNK = 16
 _E = np.zeros(0)
 _NO_BUILDINGS = (np.zeros(0, np.int64), _E, _E, _E, _E, _E, np.zeros(0, np.int64), _E, _E, _E, _E, _E)
 
@@ -510,12 +513,18 @@ def visible_pairs(
     inside_a, inside_b = roof_a > -np.inf, roof_b > -np.inf
     r = float(max_range_m)
     px0, py0, pcs, pnx, pny, pstart, porder = _point_grid(bx, by, r)
-    offsets, key = _k.pairs_in_range(
-        ax, ay, az, ahas, anx, any_, thr_a,
-        bx, by, bz, bhas, bnx, bny, thr_b,
-        r, px0, py0, pcs, pnx, pny, pstart, porder,
-        True, buried_a, buried_b, inside_a, inside_b, *kargs,
-    )  # fmt: skip
+    # dynamic scheduling in small chunks of points: the LOS work per point is uneven (clear rays walk their
+    # whole length, more so under the clearance rule); set here, as setting it inside the kernel stops caching
+    chunk = numba.set_parallel_chunksize(_SCAN_CHUNK)
+    try:
+        offsets, key = _k.pairs_in_range(
+            ax, ay, az, ahas, anx, any_, thr_a,
+            bx, by, bz, bhas, bnx, bny, thr_b,
+            r, px0, py0, pcs, pnx, pny, pstart, porder,
+            True, buried_a, buried_b, inside_a, inside_b, *kargs,
+        )  # fmt: skip
+    finally:
+        numba.set_parallel_chunksize(chunk)
     out_off = _k.output_offsets(offsets, key, bool(los_only))
     n_out = out_off[-1]
     fdt = np.dtype(float_dtype)
