@@ -108,8 +108,7 @@ Modules
 from .api import budget_sweep, greedy, lp_relaxation_bound, min_cost_cover, solve_coverage, solve_tables, write_lp
 from .assemble import Plan
 from .backends import Backend, CbcBackend, HighsBackend, Session, SolveResult
-from .problem import TargetUnreachable
-from .problem import _validate  # noqa: F401  (private names the tests use)
+from .problem import TargetUnreachable, _validate  # noqa: F401  (_validate: a private name the tests use)
 from .ranking import backups_for, rank_chosen
 from .reductions import _reduce, _superset_pairs  # noqa: F401
 from .settings import SolverSettings

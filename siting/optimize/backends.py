@@ -236,9 +236,9 @@ class HighsBackend:
             return res
         note = stale_start_note("HiGHS", res.primal, point)
         if start is None:
-            return replace(res, primal=point, dual=-_INF, status="stopped", notes=(
-                f"HiGHS reported the objective {res.primal:.10g} for a point of objective {point:.10g}; "
-                f"no bound is claimed",))
+            text = (f"HiGHS reported the objective {res.primal:.10g} for a point of objective {point:.10g}; "
+                    f"no bound is claimed.")
+            return replace(res, primal=point, dual=-_INF, status="stopped", notes=(text,))
         h2 = _quiet_highs()
         h2.passOptions(h.getOptions())
         h2.passModel(h.getLp())

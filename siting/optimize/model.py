@@ -8,7 +8,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from .problem import _INF, _TINY
+from .problem import _INF
 from .reductions import _Reduced, _site_local
 
 

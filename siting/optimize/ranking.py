@@ -93,7 +93,6 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     if len(chosen) == 0 or k <= 0:
         return empty
     C = sp.csr_array(sp.csr_array(cover), dtype=np.float64)
-    n = C.shape[0]
     w = np.asarray(weight, float)
     c = np.asarray(cost, float)
     site = np.asarray(option_site, np.int64)
