@@ -357,6 +357,12 @@ class _StagedSolve:
         if lp is None:  # no LP certificate to work from: the plain solve decides
             return self.brun(self.new(milp, None), self.start, self.left())
         x_lp, d, z_lp = lp
+        start_pt = self.feasible_start()
+        if start_pt is not None:
+            z_start = float(milp.obj @ start_pt)
+            if z_start - z_lp <= self.settings.mip_gap * max(abs(z_start), _TINY):
+                # the LP bound already proves the warm start (the tie-break solve on the demo): no more runs
+                return SolveResult(start_pt, z_start, z_lp, "optimal", "the LP bound meets the warm start")
         inc, from_solver = self.incumbent(x_lp)
         if inc is None:
             return self.fixed_model(milp, self.start, lambda res: res)
@@ -381,14 +387,19 @@ class _StagedSolve:
         n = self.n
         return np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n], float(lp.getInfo().objective_function_value)
 
+    def feasible_start(self):
+        """The warm start as a full point when it is complete and meets the model, else None."""
+        start, nv = self.start, self.nv
+        if start is None or len(start[0]) != nv:
+            return None
+        v = np.zeros(nv)
+        v[start[0]] = start[1]
+        return v if _satisfies(self.milp, v) else None
+
     def incumbent(self, x_lp):
         """Step 2: (the best feasible point, whether a solver found it rather than the warm start)."""
         milp, start, n, nv = self.milp, self.start, self.n, self.nv
-        inc = None
-        if start is not None and len(start[0]) == nv:
-            v = np.zeros(nv)
-            v[start[0]] = start[1]
-            inc = v if _satisfies(milp, v) else None
+        inc = self.feasible_start()
         keep = np.r_[x_lp > 1e-6, np.ones(nv - n, bool)]
         if start is not None:
             idx, val = np.asarray(start[0]), np.asarray(start[1])
