@@ -12,7 +12,7 @@ Users already covered by a base station directly are constants and not part of t
 
 Maximum coverage (:func:`solve_coverage`)::
 
-    maximise    sum_i w_i y_i  -  eps * sum_j c_j x_j          (eps: tie-break toward lower cost)
+    maximise    sum_i w_i y_i
     subject to  y_i <= sum_j C[j, i] x_j                 for every user i               (cover)
                 sum_{j: site(j) = s} x_j <= 1             for every site s               (one size per site)
                 sum_{j: site(j) in {s, t}} x_j <= 1      for every conflicting site pair (spacing on a wall)
@@ -20,22 +20,29 @@ Maximum coverage (:func:`solve_coverage`)::
                 sum_j x_j <= K                            if a panel count is given
                 x_j in {0, 1},  0 <= y_i <= 1
 
-``eps`` is chosen so that the whole cost term stays below 1e-4 of the smallest positive user weight, so
-it only separates plans of equal covered weight; the reported bound adds that term back, so it is a proven
-upper bound on the covered weight itself.
+Ties are broken by a second, lexicographic solve (:func:`solve._tie_break_solve`): minimise
+``sum_j c_j x_j`` subject to ``sum_i w_i y_i >= W1`` (the first plan's weight) and the same rows, so among
+plans of equal covered weight the cheapest is returned; the solver's bound is a bound on the covered weight
+itself (no tie-break term in the objective).
 
 Per-surface load cap ``L_j`` (only built when asked): a surface is steered to one user at a time, so it can
 carry at most ``L_j`` weight.  Users are assigned to surfaces with integer assignment variables ``z_ji``
 (``C[j, i] = 1``)::
 
-    maximise    sum_{j,i} w_i z_ji - eps * sum_j c_j x_j
+    maximise    sum_{j,i} w_i z_ji
     subject to  sum_j z_ji <= m_i                         (user class i holds m_i identical users)
                 z_ji <= m_i x_j                           (assign only to chosen surfaces)
                 sum_i w_i z_ji <= L_j x_j                 (load cap)
                 + the site, conflict, budget and count rows above;  z_ji integer in [0, m_i]
 
 Minimum cost (:func:`min_cost_cover`): minimise ``sum_j c_j x_j`` subject to ``sum_i w_i y_i >= T`` (or
-``sum w z >= T``) and the same rows.
+``sum w z >= T``) and the same rows; then the most weight among plans of that cost (second solve).  ``T`` is
+a weight or a share of the most weight a feasible plan covers (a maximum-coverage solve first).
+
+Certificates: every solver point's objective is recomputed and compared with the solver's (on a mismatch
+after a warm start the model is solved again without it); CBC's bound is read from its own output; the
+status says 'time_limit' only when the time limit was reached; ``time_limit_s`` is the wall clock of the
+whole call (docs/MODELS.md, section 3).
 
 Reductions (``reduce=True``; each keeps the optimum, see tests/test_optimize.py)
 ---------------------------------------------------------------------------------
@@ -101,7 +108,7 @@ Modules
 from .api import budget_sweep, greedy, lp_relaxation_bound, min_cost_cover, solve_coverage, solve_tables, write_lp
 from .assemble import Plan
 from .backends import Backend, CbcBackend, HighsBackend, Session, SolveResult
-from .problem import _validate  # noqa: F401  (private names the tests use)
+from .problem import TargetUnreachable, _validate  # noqa: F401  (_validate: a private name the tests use)
 from .ranking import backups_for, rank_chosen
 from .reductions import _reduce, _superset_pairs  # noqa: F401
 from .settings import SolverSettings
@@ -118,6 +125,7 @@ __all__ = [
     "lp_relaxation_bound",
     "write_lp",
     "SolverSettings",
+    "TargetUnreachable",
     "Backend",
     "Session",
     "SolveResult",

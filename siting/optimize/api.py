@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -14,7 +16,7 @@ from .model import _build, _pulp_problem
 from .problem import _validate
 from .reductions import _reduce
 from .settings import SolverSettings, settings_from
-from .solve import _solve, _sweep
+from .solve import _min_cost, _solve, _sweep
 
 _SWEEP_COLUMNS = ["budget", "covered_weight", "bound", "gap", "cost", "n_sites", "status"]
 
@@ -38,8 +40,10 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
     load_cap : weight one surface may carry (scalar, or one value per option); builds assignment variables.
     option_wall : (n_options,) wall id; when given, conflicts are checked to join spots on one wall.
     solver : 'highs' (default, model passed to highspy as arrays) or 'cbc' (through PuLP, hard timer).
-    time_limit_s : solver wall-clock limit [s].
-    mip_rel_gap : relative gap at which the solver stops and reports optimal.
+    time_limit_s : wall-clock limit [s] of the whole call: reductions, greedy and local search, and both
+        lexicographic solves (the plan is returned within 5 % or 1 s of it).
+    mip_rel_gap : relative gap at which the solver stops and reports optimal (also the gap of the second,
+        tie-breaking solve on cost).
     reduce : apply the optimum-preserving reductions of the module docstring and, with HiGHS, the staged
         solve (LP, incumbent, reduced-cost fixing); ``False`` passes the raw model to the solver as is.
     warm_start : start from greedy + swap local search.
@@ -55,29 +59,48 @@ def solve_coverage(cover, weight, cost, option_site, *, budget=None, max_count=N
     -------
     Plan
         See :class:`Plan`; ``chosen`` in rank order.  Without budget and count every useful option may
-        be chosen (one per site).
+        be chosen (one per site).  Among plans of equal covered weight the cheapest is returned: a second
+        solve minimises the cost subject to covering at least the first plan's weight (``Plan.tie_break``).
     """
+    t0 = time.perf_counter()
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
-    return _solve(inst, "max", None, settings, backend or backend_for(settings.name), reduce, warm_start)
+    return _solve(inst, "max", None, settings, backend or backend_for(settings.name), reduce, warm_start, t0=t0)
 
 
-def min_cost_cover(cover, weight, cost, option_site, target_weight, *, budget=None, max_count=None, conflicts=None,
-                   load_cap=None, option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
-                   warm_start=True, threads=None, solver_seed=0, settings: SolverSettings | None = None,
-                   backend: Backend | None = None) -> Plan:
-    """Cheapest set of options covering at least ``target_weight`` of user weight.
+def min_cost_cover(cover, weight, cost, option_site, target_weight=None, *, target_share=None, budget=None,
+                   max_count=None, conflicts=None, load_cap=None, option_wall=None, solver="highs", time_limit_s=60.0,
+                   mip_rel_gap=1e-4, reduce=True, warm_start=True, threads=None, solver_seed=0,
+                   settings: SolverSettings | None = None, backend: Backend | None = None) -> Plan:
+    """Cheapest set of options covering at least ``target_weight`` of user weight (or ``target_share``).
 
     Same arguments as :func:`solve_coverage`; ``Plan.mode == 'min_cost'`` and ``Plan.bound`` is a proven
-    lower bound on the cost.  Raises :class:`SolverError` when no plan can reach the target.  A target at
-    or below 1e-9 of the total weight counts as met by the empty plan.
+    lower bound on the cost.  Give exactly one of
+
+    target_weight : the weight to cover [weight units].
+    target_share : a share in [0, 1] of the most weight a *feasible* plan covers (one size per site,
+        spacing, budget, count), found by a maximum-coverage solve first (with at most half of
+        ``time_limit_s``); ``Plan.model_size['reachable_weight']`` holds that weight and
+        ``['reachable_bound']`` its proven upper bound.
+
+    Among the cheapest plans the one covering the most weight is returned (second solve, see
+    ``Plan.tie_break``).  Raises :class:`~siting.optimize.TargetUnreachable` (a :class:`SolverError`) when
+    no feasible plan reaches the target; its message and its ``reachable`` / ``bound`` attributes state
+    how much weight is reachable.  A target at or below 1e-9 of the total weight counts as met by the
+    empty plan.
     """
+    t0 = time.perf_counter()
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
-    if not np.isscalar(target_weight) or not np.isfinite(target_weight):
+    if (target_weight is None) == (target_share is None):
+        raise SitingError("optimiser arguments: give exactly one of 'target_weight' and 'target_share'")
+    if target_weight is not None and (not np.isscalar(target_weight) or not np.isfinite(target_weight)):
         raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
+    if target_share is not None and (not np.isscalar(target_share) or not 0 <= float(target_share) <= 1):
+        raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
-    return _solve(inst, "min", float(target_weight), settings, backend or backend_for(settings.name), reduce,
-                  warm_start)
+    return _min_cost(inst, None if target_weight is None else float(target_weight),
+                     None if target_share is None else float(target_share), settings,
+                     backend or backend_for(settings.name), reduce, warm_start, t0)
 
 
 def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, conflicts=None, load_cap=None,
@@ -89,7 +112,8 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
     Budgets are solved in increasing order on one model where the back end keeps models (HiGHS: only the
     budget row changes), each warm-started from the better of the previous plan (still feasible under a
     larger budget) and greedy; with other back ends each budget is solved afresh.  ``time_limit_s`` applies
-    to each budget.  Every point is assembled exactly as :func:`solve_coverage` assembles its plan, so the
+    to each budget (its greedy and both lexicographic solves); ties are broken toward the cheaper plan as in
+    :func:`solve_coverage`.  Every point is assembled exactly as :func:`solve_coverage` assembles its plan, so the
     statuses agree (a budget below the cheapest useful option: 'optimal' with nothing chosen).
 
     Returns

@@ -18,7 +18,7 @@ from ..errors import SolverError
 from .backends import SolveResult
 from .heuristics import _prune
 from .model import _Milp, _satisfies
-from .problem import _INF, _TINY, _Instance, _raw_size
+from .problem import _INF, _TINY, TargetUnreachable, _Instance, _raw_size
 from .ranking import rank_chosen
 from .reductions import _components, _Reduced
 
@@ -37,9 +37,11 @@ class Plan:
     bound : proven upper bound on ``objective`` (maximum coverage) or proven lower bound on ``cost``
         (minimum cost, ``mode == 'min_cost'``).
     gap : relative distance between plan and bound, 0 when proven optimal.
-    status : 'optimal', 'time_limit' (usable plan, gap reported), 'greedy_only' (the solver found
-        nothing better than the warm start in time), 'empty' (nothing to choose: no candidate option
-        covers a user who needs coverage).
+    status : 'optimal' (the bound proves the plan within the relative gap asked, whatever stopped the
+        solver), 'time_limit' (the time limit was reached; usable plan, gap reported), 'stopped' (the
+        solver stopped before the time limit without closing the gap, e.g. a point that disagreed with
+        its reported objective; gap reported), 'greedy_only' (the solver found nothing better than the
+        warm start), 'empty' (nothing to choose: no candidate option covers a user who needs coverage).
     solver : 'highs', 'cbc' or 'greedy'.
     cost : plan cost [currency units].
     greedy_objective : covered weight of the greedy + local search plan.
@@ -51,6 +53,11 @@ class Plan:
         'nothing_affordable' (no option within the budget adds covered weight; a budget below the cheapest
         useful option is one case), 'count_zero' (the panel count is 0), 'target_met' (minimum cost: the
         target is met without surfaces), 'no_candidates' (status 'empty').
+    tie_break : how ties were settled by the second, lexicographic solve: 'proven' (maximum coverage: no
+        plan covering as much weight is cheaper; minimum cost: no plan of this cost or less covers more
+        weight; both within the relative gap asked), 'not_proven' (the second solve ran out of time: the
+        plan is the best of both solves), 'skipped' (no time was left, or the first plan is not proven),
+        '' (nothing to break: an empty plan).
     """
 
     chosen: np.ndarray
@@ -67,6 +74,7 @@ class Plan:
     timings_s: dict = field(default_factory=dict)
     mode: str = "max_coverage"
     empty_reason: str = ""
+    tie_break: str = ""
 
 
 def _covered_users(inst: _Instance, chosen: np.ndarray) -> np.ndarray:
@@ -109,23 +117,50 @@ def _capped_served(inst: _Instance, red: _Reduced, chosen_red: np.ndarray, z: np
     return served
 
 
-def _message(mode, status, objective, bound, gap, cost, n, total, solver, target=None, reason=""):
-    """The plan in one plain sentence for the report."""
+def _message(mode, status, objective, bound, gap, cost, n, total, solver, target=None, reason="",
+             solver_status="", time_limit_s=None, notes=()):
+    """The plan in one plain sentence for the report (plus any notes on how it was found)."""
     share = objective / total if total > 0 else 0.0
     if n == 0 and reason:
-        return f"No surface is placed: {reason}."
+        return " ".join([f"No surface is placed: {reason}.", *notes])
     what = (f"{n} surface(s) costing {cost:g} cover weight {objective:g} ({100 * share:.1f} % of the weight "
             f"that no base station covers directly)")
     if mode == "min_cost":
         what = f"The cheapest plan found to cover weight {target:g}: " + what
+    limit = f" of {time_limit_s:g} s" if time_limit_s else ""
     if status == "optimal":
-        return f"{what}; proven optimal by {solver} (gap {100 * gap:.3g} %)."
-    if status == "time_limit":
-        return f"{what}; the time limit stopped {solver} with a proven gap of {100 * gap:.3g} % (bound {bound:g})."
-    if status == "greedy_only":
-        return (f"{what}; {solver} found nothing better than the greedy plan within the time limit "
+        text = f"{what}; proven optimal by {solver} (gap {100 * gap:.3g} %, bound {bound:g})."
+    elif status == "time_limit":
+        text = f"{what}; the time limit{limit} stopped {solver} with a proven gap of {100 * gap:.3g} % (bound {bound:g})."
+    elif status == "stopped":
+        text = (f"{what}; {solver} stopped before the time limit ({solver_status or 'no reason given'}) with a "
+                f"proven gap of {100 * gap:.3g} % (bound {bound:g}).")
+    elif status == "greedy_only":
+        why = f"within the time limit{limit}" if solver_status in ("time_limit", "killed") else \
+            f"(solver status '{solver_status}')"
+        text = (f"{what}; {solver} found nothing better than the greedy plan {why} "
                 f"(proven bound {bound:g}, gap {100 * gap:.3g} %).")
-    return f"{what}; solver status {status}."
+    else:
+        text = f"{what}; solver status {status}."
+    return " ".join([text, *notes])
+
+
+def _final_status(status: str, gap: float, mip_gap: float) -> str:
+    """The plan's status from how the solver stopped and the gap the bound proves.
+
+    A gap within the asked relative gap is 'optimal' whatever stopped the solver; otherwise the solver's
+    own reason stands, and a run that claimed optimality without a bound to match becomes 'stopped',
+    never 'time_limit' (no limit was reached).
+    """
+    if status == "empty":
+        return status
+    if gap <= max(mip_gap, 1e-9) * 1.0001 + 1e-12:
+        return "optimal"
+    if status == "greedy_only":
+        return status
+    if status in ("time_limit", "killed"):
+        return "time_limit"
+    return "stopped"
 
 
 def _finish_gap(mode, objective, cost, bound):
@@ -164,25 +199,26 @@ class Assembly:
     timings: dict
     t0: float
     sizes: dict
+    time_limit_s: float | None = None
 
     @classmethod
-    def start(cls, inst, red, mode, target, mip_gap, solver, reduce, timings, t0) -> Assembly:
+    def start(cls, inst, red, mode, target, mip_gap, solver, reduce, timings, t0, time_limit_s=None) -> Assembly:
         sizes = {"raw": _raw_size(inst), "components": _components(red) if reduce else None}
-        return cls(inst, red, mode, target, mip_gap, solver, timings, t0, sizes)
+        return cls(inst, red, mode, target, mip_gap, solver, timings, t0, sizes, time_limit_s)
 
     def for_budget(self, budget: float) -> Assembly:
         """The same assembly for another budget (sweep), with its own timings."""
         inst = _Instance(self.inst.C, self.inst.w, self.inst.c, self.inst.site, float(budget), self.inst.max_count,
                          self.inst.conflicts, self.inst.load_cap)
         return Assembly(inst, self.red, self.mode, self.target, self.mip_gap, self.solver, {}, time.perf_counter(),
-                        self.sizes)
+                        self.sizes, self.time_limit_s)
 
     @property
     def plan_mode(self) -> str:
         return "min_cost" if self.mode == "min" else "max_coverage"
 
     def plan(self, chosen_red, status, bound_raw, greedy_obj, z=None, milp: _Milp | None = None,
-             empty_reason="", reason="") -> Plan:
+             empty_reason="", reason="", solver_status="", notes=(), tie_break="") -> Plan:
         """The plan of options ``chosen_red`` (reduced numbering); ``bound_raw`` before it meets the plan."""
         inst, red = self.inst, self.red
         chosen = red.opt[chosen_red] if len(chosen_red) else np.zeros(0, np.int64)
@@ -194,8 +230,8 @@ class Assembly:
         cost = float(inst.c[chosen].sum()) if len(chosen) else 0.0
         m = self.plan_mode
         bound, gap = _finish_gap(m, objective, cost, bound_raw)
-        if status == "optimal" and gap > max(self.mip_gap, 1e-9) * 1.0001:
-            status = "time_limit"
+        solver_status = solver_status or status
+        status = _final_status(status, gap, self.mip_gap)
         if len(chosen):
             chosen = rank_chosen(chosen, inst.C, inst.w)["option"].to_numpy(np.int64)
         elif status == "optimal" and not empty_reason:
@@ -203,13 +239,14 @@ class Assembly:
             reason = reason or ("the target is already met without surfaces" if m == "min_cost"
                                 else "no affordable option adds covered weight")
         msg = _message(m, status, objective, bound, gap, cost, len(chosen), float(inst.w.sum()), self.solver,
-                       self.target, reason)
+                       self.target, reason, solver_status, self.time_limit_s, tuple(notes))
         size = {"raw": self.sizes["raw"], "reduced": milp.size if milp is not None else dict(_NO_MODEL)}
         size.update(red.stats)
         size["components"] = self.sizes["components"]
         self.timings["total"] = time.perf_counter() - self.t0
         return Plan(chosen, covered, objective, float(bound), float(gap), status, self.solver, cost,
-                    float(greedy_obj), msg, size, self.timings, m, empty_reason if len(chosen) == 0 else "")
+                    float(greedy_obj), msg, size, self.timings, m, empty_reason if len(chosen) == 0 else "",
+                    tie_break if len(chosen) else "")
 
 
 def settled_plan(asm: Assembly) -> Plan | None:
@@ -222,10 +259,9 @@ def settled_plan(asm: Assembly) -> Plan | None:
                         reason="the target weight is already met")
     if n == 0 or m == 0:
         if mode == "min":
-            raise SolverError(
+            raise TargetUnreachable(
                 f"no plan can cover the target weight {target:g}: no candidate option covers a user who needs "
-                f"coverage; lower the target or add candidate spots"
-            )
+                f"coverage (a feasible plan covers 0); lower the target or add candidate spots", 0.0, 0.0)
         return asm.plan(empty, "empty", 0.0, 0.0, empty_reason="no_candidates",
                         reason="no candidate option covers any user who still needs coverage")
     if mode == "max" and inst.max_count == 0:
@@ -249,10 +285,9 @@ def _checked(res: SolveResult, asm: Assembly, milp: _Milp) -> SolveResult:
                           f"solver ('highs' or 'cbc')")
     if res.status == "infeasible":
         if asm.mode == "min":
-            raise SolverError(
+            raise TargetUnreachable(
                 f"no plan can cover the target weight {asm.target:g} under the given constraints ({solver} proved "
-                f"the model infeasible); lower the target, raise the budget or count, or add candidate spots"
-            )
+                f"the model infeasible); lower the target, raise the budget or count, or add candidate spots")
         raise SolverError(f"{solver} reported the coverage model infeasible, which should not happen; "
                           f"check the budget and count arguments")
     return res
@@ -285,13 +320,13 @@ def plan_from_result(res: SolveResult, asm: Assembly, milp: _Milp, greedy_red, g
         z = res.values[n:] if red.cap is not None else None
         if mode == "max" and red.cap is None:
             chosen_red = _prune(red, chosen_red)
-        p = asm.plan(chosen_red, "optimal" if res.status == "optimal" else "time_limit", bound_raw, greedy_obj,
-                     z=z, milp=milp)
+        p = asm.plan(chosen_red, res.status, bound_raw, greedy_obj, z=z, milp=milp, notes=res.notes)
         # never return less than the warm start (a time-limited solver may not have used it)
         if not (mode == "max" and has_greedy and greedy_obj > p.objective + 1e-9):
             return p
     if has_greedy:
-        return asm.plan(greedy_red, "greedy_only", bound_raw, greedy_obj, milp=milp)
+        return asm.plan(greedy_red, "greedy_only", bound_raw, greedy_obj, milp=milp, solver_status=res.status,
+                        notes=res.notes)
     raise SolverError(
         f"{asm.solver} found no plan within {time_limit_s:g} s ({res.detail}) and there is no warm start; "
         f"raise time_limit_s or keep warm_start=True"

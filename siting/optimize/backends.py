@@ -31,9 +31,20 @@ class SolveResult:
     values: np.ndarray | None
     primal: float  # solver objective (minimise), inf if none
     dual: float  # solver dual bound (minimise), -inf if none
-    status: str  # 'optimal', 'time_limit', 'infeasible', 'killed', 'other', 'error'
+    status: str  # 'optimal', 'time_limit', 'stopped' (another limit), 'infeasible', 'killed', 'other', 'error'
     detail: str = ""
     n_fixed: int = 0  # options set to 0 by reduced-cost fixing (staged HiGHS path)
+    notes: tuple = ()  # plain sentences for the plan's message (a re-solve, a recovered fault)
+
+
+def objectives_agree(reported: float, recomputed: float) -> bool:
+    """The solver's objective and the objective of the point it returned agree (within its tolerances)."""
+    return abs(reported - recomputed) <= 1e-6 * (1.0 + abs(recomputed))
+
+
+def stale_start_note(solver: str, reported: float, recomputed: float) -> str:
+    return (f"{solver} reported the objective {reported:.10g} but handed back a point of objective "
+            f"{recomputed:.10g} (its warm start); the model was solved again without the start.")
 
 
 class Session(Protocol):
@@ -41,7 +52,7 @@ class Session(Protocol):
 
     def set_row_upper(self, row: int, value: float) -> None: ...
 
-    def run(self, start: Start | None) -> SolveResult: ...
+    def run(self, start: Start | None, time_limit_s: float | None = None) -> SolveResult: ...
 
 
 class Backend(Protocol):
@@ -145,8 +156,10 @@ def _highs_status(ms) -> str:
         return "optimal"
     if ms in (M.kInfeasible,):
         return "infeasible"
-    if ms in (M.kTimeLimit, M.kInterrupt, M.kSolutionLimit, M.kIterationLimit):
+    if ms == M.kTimeLimit:
         return "time_limit"
+    if ms in (M.kInterrupt, M.kSolutionLimit, M.kIterationLimit):
+        return "stopped"  # a limit other than time (the staged path's node limit): never called a time limit
     return "other"
 
 
@@ -205,7 +218,41 @@ class HighsBackend:
         return h
 
     def run(self, h, start, time_limit_s) -> SolveResult:
-        """One run of a prepared model from an optional start."""
+        """One run of a prepared model from an optional start, its point checked against its objective.
+
+        HiGHS 1.16 can log a better incumbent "in the reduced space", report it as optimal and hand back the
+        warm start unchanged.  So the objective of the returned point is recomputed; when it disagrees with
+        the reported one after a start was passed in, the model is solved again (a fresh copy, same options)
+        without the start, and the result says so in its notes.  When that run disagrees too, the better
+        point is returned with its true objective and no bound.
+        """
+        t_end = time.perf_counter() + float(time_limit_s)
+        res = self._run_once(h, start, time_limit_s)
+        if res.values is None:
+            return res
+        cost = np.asarray(h.getLp().col_cost_, float)
+        point = float(cost @ res.values)
+        if objectives_agree(res.primal, point):
+            return res
+        note = stale_start_note("HiGHS", res.primal, point)
+        if start is None:
+            text = (f"HiGHS reported the objective {res.primal:.10g} for a point of objective {point:.10g}; "
+                    f"no bound is claimed.")
+            return replace(res, primal=point, dual=-_INF, status="stopped", notes=(text,))
+        h2 = _quiet_highs()
+        h2.passOptions(h.getOptions())
+        h2.passModel(h.getLp())
+        res2 = self._run_once(h2, None, max(0.05, t_end - time.perf_counter()))
+        if res2.values is not None:
+            point2 = float(cost @ res2.values)
+            if objectives_agree(res2.primal, point2):
+                return replace(res2, notes=(note,))
+            if point2 < point:
+                res, point = res2, point2
+        return replace(res, primal=point, dual=-_INF, status="stopped",
+                       notes=(note[:-1] + "; that run disagreed too, so no bound is claimed.",))
+
+    def _run_once(self, h, start, time_limit_s) -> SolveResult:
         import highspy
 
         # HiGHS overruns its limit by a few percent: ask for a little less
@@ -249,8 +296,8 @@ class _HighsSession:
 
         self.h.changeRowBounds(row, -highspy.kHighsInf, float(value))
 
-    def run(self, start) -> SolveResult:
-        return self.backend.run(self.h, start, self.time_limit_s)
+    def run(self, start, time_limit_s=None) -> SolveResult:
+        return self.backend.run(self.h, start, self.time_limit_s if time_limit_s is None else time_limit_s)
 
 
 class _StagedSolve:
@@ -278,6 +325,13 @@ class _StagedSolve:
         self.backend, self.milp, self.start, self.settings = backend, milp, start, settings
         self.t_end = time.perf_counter() + float(settings.time_limit_s)
         self.n, self.nv = milp.n_x, len(milp.obj)
+        self.notes = []
+
+    def brun(self, h, start, time_limit_s) -> SolveResult:
+        """A run of the back end; its notes are kept for the final result."""
+        res = self.backend.run(h, start, time_limit_s)
+        self.notes.extend(res.notes)
+        return res
 
     def left(self):
         return max(0.05, self.t_end - time.perf_counter())
@@ -293,11 +347,22 @@ class _StagedSolve:
         return h
 
     def run(self) -> SolveResult:
+        res = self.stages()
+        notes = tuple(dict.fromkeys((*self.notes, *res.notes)))
+        return replace(res, notes=notes)
+
+    def stages(self) -> SolveResult:
         milp, n, nv = self.milp, self.n, self.nv
         lp = self.lp_relaxation()
         if lp is None:  # no LP certificate to work from: the plain solve decides
-            return self.backend.run(self.new(milp, None), self.start, self.left())
+            return self.brun(self.new(milp, None), self.start, self.left())
         x_lp, d, z_lp = lp
+        start_pt = self.feasible_start()
+        if start_pt is not None:
+            z_start = float(milp.obj @ start_pt)
+            if z_start - z_lp <= self.settings.mip_gap * max(abs(z_start), _TINY):
+                # the LP bound already proves the warm start (the tie-break solve on the demo): no more runs
+                return SolveResult(start_pt, z_start, z_lp, "optimal", "the LP bound meets the warm start")
         inc, from_solver = self.incumbent(x_lp)
         if inc is None:
             return self.fixed_model(milp, self.start, lambda res: res)
@@ -322,19 +387,24 @@ class _StagedSolve:
         n = self.n
         return np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n], float(lp.getInfo().objective_function_value)
 
+    def feasible_start(self):
+        """The warm start as a full point when it is complete and meets the model, else None."""
+        start, nv = self.start, self.nv
+        if start is None or len(start[0]) != nv:
+            return None
+        v = np.zeros(nv)
+        v[start[0]] = start[1]
+        return v if _satisfies(self.milp, v) else None
+
     def incumbent(self, x_lp):
         """Step 2: (the best feasible point, whether a solver found it rather than the warm start)."""
         milp, start, n, nv = self.milp, self.start, self.n, self.nv
-        inc = None
-        if start is not None and len(start[0]) == nv:
-            v = np.zeros(nv)
-            v[start[0]] = start[1]
-            inc = v if _satisfies(milp, v) else None
+        inc = self.feasible_start()
         keep = np.r_[x_lp > 1e-6, np.ones(nv - n, bool)]
         if start is not None:
             idx, val = np.asarray(start[0]), np.asarray(start[1])
             keep[idx[(idx < n) & (val > 0.5)]] = True
-        r = self.backend.run(self.new(replace(milp, col_hi=np.where(keep, milp.col_hi, 0.0)), inc), start,
+        r = self.brun(self.new(replace(milp, col_hi=np.where(keep, milp.col_hi, 0.0)), inc), start,
                              min(self.left(), max(1.0, 0.1 * float(self.settings.time_limit_s))))
         feasible = r.values is not None and _satisfies(milp, r.values)
         if feasible and (inc is None or milp.obj @ r.values < milp.obj @ inc):
@@ -350,12 +420,12 @@ class _StagedSolve:
             h = self.new(fixed, first)
             h.setOptionValue("mip_allow_restart", False)
             h.setOptionValue("mip_max_nodes", b.first_pass_nodes)
-            res = b.run(h, first, self.left())
+            res = self.brun(h, first, self.left())
             if h.getModelStatus() != highspy.HighsModelStatus.kSolutionLimit:  # closed, or out of time
                 return merged(res)
             if res.values is not None and _satisfies(self.milp, res.values):
                 first = (np.arange(self.nv), res.values)
-        return merged(b.run(self.new(fixed, first), first, self.left()))
+        return merged(self.brun(self.new(fixed, first), first, self.left()))
 
     def merged(self, res, inc, z_inc, z_lp, from_solver, n_fixed) -> SolveResult:
         """A result of the fixed model against the incumbent: the better plan, the larger valid bound."""
@@ -366,7 +436,7 @@ class _StagedSolve:
             vals = inc if from_solver else None
         dual = max(z_lp, min(res.dual, z_inc))
         return SolveResult(vals, _INF if vals is None else float(milp.obj @ vals), dual, res.status, res.detail,
-                           n_fixed)
+                           n_fixed, res.notes)
 
 
 # ----------------------------------------------------------------------------------------------------
@@ -378,9 +448,11 @@ class _StagedSolve:
 class CbcBackend:
     """CBC, the binary bundled with PuLP, on an MPS file under a hard wall-clock timer.
 
-    CBC ignores its own limit during the root LP, so the process is killed at 1.05 times the limit plus 5 s.
-    The status is read from CBC's solution file and its printed bound, never from PuLP's status string
-    (PuLP reports "Optimal" for time-limited runs).
+    CBC runs on wall-clock time (``-timeMode elapsed``) but ignores its limit during the root LP, so the
+    process is killed when the limit is reached (writing the model counts against it); a killed run has
+    no plan and no bound.  The status is read from CBC's solution file and the bound from CBC's own
+    printed "best possible" objective, never from PuLP's status string (PuLP reports "Optimal" for
+    time-limited runs) and never set to the plan's value: a stop at the relative gap keeps that gap.
     """
 
     name: ClassVar[str] = "cbc"
@@ -396,10 +468,12 @@ class CbcBackend:
             warnings.simplefilter("ignore", DeprecationWarning)  # the bundled-binary class is kept for its path
             solver = pulp.PULP_CBC_CMD(msg=False)
         t = float(settings.time_limit_s)
+        t_end = time.perf_counter() + t
         with tempfile.TemporaryDirectory(prefix="siting_cbc_") as tmp:
             mps, sol, mst = (os.path.join(tmp, f) for f in ("m.mps", "m.sol", "m.mst"))
             vs_, vnames, cnames, _ = prob.writeMPS(mps, rename=1)
-            args = [solver.path, mps, *_cbc_options(settings)]
+            left = max(0.05, t_end - time.perf_counter())
+            args = [solver.path, mps, *_cbc_options(replace(settings, time_limit_s=0.95 * left))]
             if start is not None:
                 idx, val = start
                 full = np.zeros(len(vs))
@@ -412,47 +486,72 @@ class CbcBackend:
             proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
                                     stdin=subprocess.DEVNULL, text=True)
             try:
-                out, _ = proc.communicate(timeout=t * 1.05 + 5.0)
+                out, _ = proc.communicate(timeout=max(0.05, t_end - time.perf_counter()))
             except subprocess.TimeoutExpired:
                 proc.kill()
                 proc.communicate()
-                return SolveResult(None, _INF, -_INF, "killed", "CBC stopped by the hard timer")
+                return SolveResult(None, _INF, -_INF, "killed", "CBC stopped by the hard timer at the time limit")
             if not os.path.exists(sol):
                 return SolveResult(None, _INF, -_INF, "other", out[-300:])
             with open(sol) as f:
                 head = f.readline()
             status, values, *_ = solver.readsol_MPS(sol, prob, vs_, vnames, cnames)
-        return _cbc_result(head, out, values, vs)
+        return _cbc_result(head, out, values, vs, time.perf_counter() >= t_end - 0.1 * t)
 
 
 def _cbc_options(settings: SolverSettings) -> list:
     seed = str(int(settings.seed) + 1)
-    args = ["-sec", f"{float(settings.time_limit_s):g}", "-ratio", f"{float(settings.mip_gap):g}",
+    args = ["-timeMode", "elapsed", "-sec", f"{float(settings.time_limit_s):g}", "-ratio", f"{float(settings.mip_gap):g}",
             "-randomSeed", seed, "-randomCbcSeed", seed]
     if settings.threads is not None:
         args += ["-threads", str(int(settings.threads))]
     return args
 
 
-def _cbc_result(head: str, out: str, values: dict, vs) -> SolveResult:
-    """Status, point and bounds from the solution file's first line and CBC's printed output."""
+def _cbc_bound(out: str) -> float:
+    """CBC's proven lower bound (minimising form) from its printed output, -inf when it printed none.
+
+    Read from the progress lines "... best possible <value> ..." (full precision; the last one is the
+    tightest, the bound only rises during the search) and the summary line "Lower bound: <value>" (printed
+    to 3 decimals, so it is lowered by half a unit of its last digit before use).
+    """
+    best = -_INF
+    for line in out.splitlines():
+        low = line.lower()
+        if "best possible" in low:
+            try:
+                best = max(best, float(low.split("best possible")[1].split()[0].strip(",")))
+            except (ValueError, IndexError):
+                pass
+        elif low.startswith("lower bound:"):
+            try:
+                txt = line.split(":")[1].split()[0]
+                digits = len(txt.split(".")[1]) if "." in txt else 0
+                best = max(best, float(txt) - 0.5 * 10.0 ** (-digits))
+            except (ValueError, IndexError):
+                pass
+    return best
+
+
+def _cbc_result(head: str, out: str, values: dict, vs, at_limit: bool = False) -> SolveResult:
+    """Status, point and bounds from the solution file's first line and CBC's printed output.
+
+    ``at_limit``: the run ended at its time limit (a stop on iterations or nodes then counts as a time
+    limit; CBC's root LP reports the time limit as "Stopped on iterations").
+    """
     words = head.split()
     # the first line says how CBC stopped, e.g. "Optimal - objective value -12.0",
-    # "Stopped on time - objective value -10.0", "Infeasible - objective value ...",
-    # "Stopped on time - no integer solution"
+    # "Optimal (within gap tolerance) - objective value -12.0", "Stopped on time - objective value -10.0",
+    # "Infeasible - objective value ...", "Stopped on time - no integer solution"
     has_sol = "objective value" in head and not head.startswith("Infeasible") and "no integer" not in head
     x = np.array([values.get(v.name, 0.0) for v in vs]) if has_sol else None
     primal = float(words[-1]) if has_sol else _INF
-    dual = -_INF
-    for line in out.splitlines():
-        low = line.lower()
-        if low.startswith("lower bound:") or low.startswith("best possible:"):
-            try:
-                dual = float(line.split(":")[1].split()[0])
-            except (ValueError, IndexError):
-                pass
-    if head.startswith("Optimal"):
-        return SolveResult(x, primal, primal, "optimal", head.strip())
+    dual = min(_cbc_bound(out), primal)
     if head.startswith("Infeasible") or head.startswith("Integer infeasible"):
         return SolveResult(None, _INF, _INF, "infeasible", head.strip())
-    return SolveResult(x, primal, dual, "time_limit", head.strip())
+    if head.startswith("Optimal"):
+        if "gap" not in head.lower():
+            dual = primal  # proven optimal outright (no gap tolerance in the status line)
+        return SolveResult(x, primal, dual, "optimal", head.strip())
+    status = "time_limit" if ("on time" in head or at_limit) else "stopped"
+    return SolveResult(x, primal, dual, status, head.strip())

@@ -6,10 +6,9 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 import scipy.sparse as sp
 
-from .problem import _EPS_SHARE, _INF, _TINY
+from .problem import _INF
 from .reductions import _Reduced, _site_local
 
 
@@ -27,9 +26,9 @@ class _Milp:
     n_x: int
     budget_row: int = -1
     target_row: int = -1
-    delta: float = 0.0  # max value of the tie-break term (added to the bound)
-    obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective (+ tie-break)
-    eps: float = 0.0  # tie-break weight per unit cost
+    delta: float = 0.0  # kept for callers of older versions: no tie-break term is in the objective any more
+    obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective
+    eps: float = 0.0  # kept for callers of older versions (ties are broken by a second, lexicographic solve)
 
     @property
     def size(self):
@@ -57,10 +56,16 @@ def _site_rows(site, conflicts):
 
 
 def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
-    """The model of the package docstring: maximum coverage (``mode='max'``) or minimum cost for ``target``."""
+    """The model of the package docstring: maximum coverage (``mode='max'``) or minimum cost (``'min'``).
+
+    ``target``: the row "covered weight >= target" (the minimum-cost target; in maximum coverage the
+    floor of the second, lexicographic solve).  The objective is the pure covered weight or the pure cost:
+    ties are broken by a second solve (see :func:`siting.optimize.solve._tie_break_solve`), not by a small
+    term in the objective, so the solver's bound is a bound on the plan's value itself.
+    """
     c = red.c
     n = red.C.shape[0]
-    eps, cost_cap = _tie_break(red, budget, max_count, mode)
+    eps, cost_cap = 0.0, 0.0
     rows = _Rows()
     if red.cap is None:
         obj, col_hi, integer, val_row = _cover_rows(red, eps, mode, rows)
@@ -76,7 +81,7 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
         budget_row = rows.add(sp.csr_array(np.r_[c, np.zeros(nv - n)][None, :]), [-_INF], [budget])
     if max_count is not None:
         rows.add(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]), [-_INF], [float(max_count)])
-    if mode == "min":
+    if target is not None:
         target_row = rows.add(sp.csr_array(val_row[None, :]), [target], [_INF])
     A, row_lo, row_hi = rows.stacked(nv)
     return _Milp(obj, A, row_lo, row_hi, np.zeros(nv), col_hi, integer, n, budget_row, target_row, eps * cost_cap,
@@ -104,25 +109,6 @@ class _Rows:
         lo = np.concatenate([np.asarray(v, float) for v in self.lo]) if self.lo else np.zeros(0)
         hi = np.concatenate([np.asarray(v, float) for v in self.hi]) if self.hi else np.zeros(0)
         return A, lo, hi
-
-
-def _tie_break(red: _Reduced, budget, max_count, mode):
-    """(tie-break weight per unit cost, the largest cost a plan can have): the whole cost term stays below
-    ``_EPS_SHARE`` of the smallest positive weight (maximum coverage only; 0 for minimum cost)."""
-    w, c = red.w, red.c
-    pos = w[w > 0]
-    wmin = pos.min() if len(pos) else 1.0
-    if red.C.shape[0]:
-        per_site_max = pd.Series(c).groupby(red.site).max().to_numpy()
-        caps = [per_site_max.sum()]
-        if budget is not None:
-            caps.append(budget)
-        if max_count is not None:
-            caps.append(np.sort(per_site_max)[::-1][:max_count].sum())
-        cost_cap = max(min(caps), _TINY)
-    else:
-        cost_cap = 1.0
-    return (_EPS_SHARE * wmin / cost_cap if mode == "max" else 0.0), cost_cap
 
 
 def _cover_rows(red: _Reduced, eps, mode, rows: _Rows):

@@ -9,11 +9,21 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from ..errors import SitingError
+from ..errors import SitingError, SolverError
 
 _INF = math.inf
 _TINY = 1e-12
 _EPS_SHARE = 1e-4  # whole tie-break cost term < this share of the smallest positive user weight
+
+
+class TargetUnreachable(SolverError):
+    """No feasible plan reaches the minimum-cost target; ``reachable`` is the most weight one covers (the
+    best plan found), ``bound`` a proven upper bound on it."""
+
+    def __init__(self, message: str, reachable: float = float("nan"), bound: float = float("nan"),
+                 advice: str = "lower the target, raise the budget or count, or add candidate spots"):
+        super().__init__(message)
+        self.reachable, self.bound, self.advice = reachable, bound, advice
 
 
 @dataclass

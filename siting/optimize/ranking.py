@@ -55,53 +55,107 @@ def rank_chosen(chosen, cover, weight) -> pd.DataFrame:
     })
 
 
-def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None) -> pd.DataFrame:
-    """Up to ``k`` unchosen spots per chosen option, ranked by the chosen option's exclusive weight they recover.
+_BACKUP_COLUMNS = ["option", "backup_rank", "backup_option", "recovered_weight", "recovered_share", "kept_weight",
+                   "weak", "placement"]
+_BACKUP_DTYPES = {"option": "int64", "backup_rank": "int64", "backup_option": "int64", "recovered_weight": "float64",
+                  "recovered_share": "float64", "kept_weight": "float64", "weak": "bool", "placement": "object"}
+WEAK_SHARE = 0.5  # a backup keeping less than half of what its primary contributes is flagged (common practice)
 
-    A backup is an option at a site that carries no chosen option, costing no more than the chosen one
-    (any size); per backup site the size recovering the most (then the cheapest) is listed.  With
-    ``conflicts`` (site pairs), spots conflicting with another chosen site are left out.  Only backups that
-    recover some weight are listed.
+
+def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None, option_wall=None,
+                option_building=None) -> pd.DataFrame:
+    """Up to ``k`` unchosen spots per chosen option, ranked by the plan's covered weight after the swap.
+
+    For chosen option ``r`` and a candidate ``a``, the plan with ``r`` swapped for ``a`` is evaluated
+    exactly: ``kept_weight = W - E_r + R_a`` where ``W`` is the plan's covered weight, ``E_r`` the weight
+    only ``r`` covers in the plan, and ``R_a`` the weight ``a`` covers that the rest of the plan leaves
+    uncovered (``recovered_weight``; it counts users ``r`` did not cover too).  ``recovered_share`` =
+    ``R_a / E_r`` (1 when ``r`` covers nothing alone): the share of the primary's contribution the swap keeps
+    (above 1: the swap gains).  ``weak`` flags a share below 0.5.
+
+    A candidate is an option at a site that carries no chosen option, costing no more than ``r`` (so budget
+    and count still hold), and, with ``conflicts`` (site pairs), in spacing conflict with no chosen site but
+    ``r``'s own.  Per site the best size is kept (most weight kept, then cheapest, then lowest index).
+    Diversity, when ``option_wall`` is given: at most one backup per wall (the best), so the list never
+    holds the same spot at another height or a metre along the same wall twice; ``placement`` says
+    where the backup is against the primary: 'other_building' (needs ``option_building``), 'other_wall',
+    'same_wall' ('' when walls are not given).  Order: backups that are not weak first, then by placement
+    (another building before another wall of the same building before the primary's own wall), then by
+    ``kept_weight`` (descending), cost, index.  The coverage is evaluated without load caps.
 
     Returns
     -------
-    DataFrame with columns option, backup_rank (1..k), backup_option, recovered_weight.
+    DataFrame with columns option, backup_rank (1..k), backup_option, recovered_weight, recovered_share,
+    kept_weight, weak, placement.
     """
-    cols = ["option", "backup_rank", "backup_option", "recovered_weight"]
+    empty = pd.DataFrame({c: pd.Series(dtype=t) for c, t in _BACKUP_DTYPES.items()})
     chosen = np.unique(np.asarray(chosen, np.int64))
-    empty = pd.DataFrame({"option": pd.Series(dtype="int64"), "backup_rank": pd.Series(dtype="int64"),
-                          "backup_option": pd.Series(dtype="int64"), "recovered_weight": pd.Series(dtype="float64")})
     if len(chosen) == 0 or k <= 0:
         return empty
-    C = sp.csr_array(cover).astype(np.float64)
+    C = sp.csr_array(sp.csr_array(cover), dtype=np.float64)
     w = np.asarray(weight, float)
     c = np.asarray(cost, float)
     site = np.asarray(option_site, np.int64)
+    wall = None if option_wall is None else np.asarray(option_wall)
+    bldg = None if option_building is None else np.asarray(option_building)
     Csub = sp.csr_array(C[chosen])
     cnt = np.asarray(Csub.sum(axis=0)).ravel()
-    # X[u, r] = w_u when user u is covered only by chosen option r
-    X = sp.csr_array(Csub.multiply((cnt == 1)[None, :] * w[None, :])).T
-    Rm = sp.coo_array(C @ X)
-    a, r, v = Rm.row, Rm.col, Rm.data
-    chosen_sites = np.zeros(site.max() + 1 if len(site) else 0, bool)
-    chosen_sites[site[chosen]] = True
-    ok = (~chosen_sites[site[a]]) & (c[a] <= c[chosen[r]] * (1 + 1e-12) + 1e-12) & (v > 0)
+    W = float(w[cnt > 0].sum())
+    E = Csub @ np.where(cnt == 1, w, 0.0)  # weight only each chosen option covers
+    G0 = C @ np.where(cnt == 0, w, 0.0)  # weight an option adds to the plan as it is
+    # M[a, r]: weight of r's exclusive users that option a covers
+    X = sp.csc_array(Csub.multiply((cnt == 1)[None, :] * w[None, :]).T)
+    M = sp.csc_array(C @ X)
+    chosen_sites = np.isin(site, site[chosen])
+    nconf = pair_conf = None
     if conflicts is not None and len(np.asarray(conflicts)):
         cf = np.asarray(conflicts, np.int64)
-        ns = max(chosen_sites.shape[0], cf.max() + 1)
+        ns = int(max(site.max() + 1, cf.max() + 1))
         adj = _conflict_adj(None, cf, ns)
         cs = np.zeros(ns)
         cs[site[chosen]] = 1.0
-        nconf = adj @ cs
-        pair = np.asarray(adj[site[a], site[chosen[r]]]).ravel().astype(float)
-        ok &= (nconf[site[a]] - pair) <= 0
-    df = pd.DataFrame({"option": chosen[r[ok]], "backup_option": a[ok], "site": site[a[ok]],
-                       "recovered_weight": v[ok], "cost": c[a[ok]]})
-    if df.empty:
+        nconf = adj @ cs  # chosen sites in conflict with each site
+        pair_conf = adj
+    frames = []
+    for r_i, r in enumerate(chosen):
+        rec = G0 + M[:, [r_i]].toarray().ravel()
+        ok = ~chosen_sites & (c <= c[r] * (1 + 1e-12) + 1e-12) & (rec > 0)
+        if nconf is not None:
+            own = np.asarray(pair_conf[site[np.flatnonzero(ok)], [site[r]] * int(ok.sum())]).ravel() \
+                if ok.any() else np.zeros(0)
+            idx = np.flatnonzero(ok)
+            ok[idx] = (nconf[site[idx]] - own) <= 0
+        a = np.flatnonzero(ok)
+        if len(a) == 0:
+            continue
+        share = rec[a] / E[r_i] if E[r_i] > 0 else np.ones(len(a))
+        df = pd.DataFrame({"option": r, "backup_option": a, "site": site[a], "recovered_weight": rec[a],
+                           "recovered_share": share, "kept_weight": W - E[r_i] + rec[a], "cost": c[a]})
+        df["weak"] = df["recovered_share"] < WEAK_SHARE
+        tier = np.zeros(len(a), np.int64)
+        placement = np.full(len(a), "", object)
+        if wall is not None:
+            same_wall = wall[a] == wall[r]
+            tier += 2 * same_wall
+            placement[:] = np.where(same_wall, "same_wall", "other_wall")
+            if bldg is not None:
+                other_b = bldg[a] != bldg[r]
+                tier += (~other_b & ~same_wall)
+                placement[other_b] = "other_building"
+        elif bldg is not None:
+            other_b = bldg[a] != bldg[r]
+            tier += ~other_b
+            placement[:] = np.where(other_b, "other_building", "same_building")
+        df["tier"], df["placement"] = tier, placement
+        df = df.sort_values(["kept_weight", "cost", "backup_option"], ascending=[False, True, True], kind="stable")
+        df = df.drop_duplicates("site", keep="first")
+        if wall is not None:
+            df = df.assign(wall=wall[df["backup_option"].to_numpy()]).drop_duplicates("wall", keep="first")
+        df = df.sort_values(["weak", "tier", "kept_weight", "cost", "backup_option"],
+                            ascending=[True, True, False, True, True], kind="stable").head(k)
+        frames.append(df)
+    if not frames:
         return empty
-    df = df.sort_values(["option", "recovered_weight", "cost", "backup_option"], ascending=[True, False, True, True],
-                        kind="stable")
-    df = df.drop_duplicates(["option", "site"], keep="first").groupby("option", sort=True).head(k)
-    df["backup_rank"] = df.groupby("option").cumcount() + 1
-    return df[cols].reset_index(drop=True).astype({"option": "int64", "backup_rank": "int64",
-                                                   "backup_option": "int64", "recovered_weight": "float64"})
+    out = pd.concat(frames, ignore_index=True)
+    out["backup_rank"] = out.groupby("option").cumcount() + 1
+    return out[_BACKUP_COLUMNS].reset_index(drop=True).astype(_BACKUP_DTYPES)
