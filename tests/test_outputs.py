@@ -218,14 +218,14 @@ def test_site_weights_match_brute_force(bundle):
         others = {u for u, r in ref.items() if r["covers"] - {s.option_id}}
         assert s.exclusive_weight == pytest.approx(sum(w[u] for u in mine - others))
         assert s.shared_weight == pytest.approx(sum(w[u] for u in mine & others))
-        assert s.marginal_weight == pytest.approx(sum(w[u] for u in mine - seen))
+        assert s.weight_gained == pytest.approx(sum(w[u] for u in mine - seen))
         seen |= mine
-        cum += s.marginal_weight
-        assert s.cumulative_weight == pytest.approx(cum)
+        cum += s.weight_gained
+        assert s.cumulative_covered_weight == pytest.approx(cum)
     # the last cumulative weight is the covered weight after the plan
-    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    assert fig.sites["cumulative_covered_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
     # the test plan's own ranking (built by set arithmetic in make_bundle) agrees on the marginal weights
-    np.testing.assert_allclose(fig.sites["marginal_weight"], bundle.ranking["marginal_weight"])
+    np.testing.assert_allclose(fig.sites["weight_gained"], bundle.ranking["marginal_weight"])
 
 
 @pytest.mark.parametrize("az, name", [
@@ -336,7 +336,7 @@ def test_survey_csv_round_trip(out, bundle):
     np.testing.assert_allclose(csv["lat"], gj.geometry.y, atol=1e-7)
     assert "addr:postcode" in csv.columns and set(csv["addr:postcode"].astype(str)) <= {"10115", "10117"}
     for c in ("building_id", "facing", "facing_deg", "mount_height_m", "size_id", "elements", "cost",
-              "weight_gained", "cumulative_weight", "serving_bs_id", "backup_1_site_id", "backup_1_lon",
+              "weight_gained", "cumulative_covered_weight", "serving_bs_id", "backup_1_site_id", "backup_1_lon",
               "backup_2_lat", "notes"):
         assert c in csv.columns, c
     # backups: the spots named in the bundle, with the lon/lat pyproj gives them
@@ -496,7 +496,7 @@ def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
     write_outputs(tmp_path, make_bundle(random_state=3))
     before = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle(random_state=4))
     after = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     assert after == before  # previous complete files, none truncated
@@ -507,7 +507,7 @@ def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
 
 def test_failed_first_write_leaves_no_file(tmp_path, monkeypatch):
     monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle())
     assert list(tmp_path.glob("*.geojson")) == [] and not (tmp_path / "run.json").exists()
     assert atomic.leftover_temp_files(tmp_path) == []
@@ -527,10 +527,10 @@ def test_failed_geopackage_write_keeps_previous(tmp_path, monkeypatch):
             raise OSError("disk full (injected)")
 
     monkeypatch.setattr(pyogrio, "write_dataframe", broken)
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle(random_state=11, formats=("gpkg",)))
     assert (tmp_path / "plan.gpkg").read_bytes() == before
-    assert Path(calls[0]).parent == tmp_path and Path(calls[0]).name != "plan.gpkg"
+    assert Path(calls[0]).parent.parent == tmp_path and Path(calls[0]).name != "plan.gpkg"  # in the staging folder
     assert atomic.leftover_temp_files(tmp_path) == []
 
 
@@ -637,7 +637,7 @@ def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
     assert fig.summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"] - w[drop].sum())
     assert not fig.users["covered_after"].to_numpy()[drop].any()
     assert (fig.users["serving_site_id"].to_numpy()[drop] == -1).all()
-    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    assert fig.sites["cumulative_covered_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
     assert any("load cap" in n for n in fig.notes)
     # without a cap in the parameters, plan.covered is not consulted
     b.params["surfaces"]["load_cap_weight"] = 0.0

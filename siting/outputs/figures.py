@@ -13,7 +13,7 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .derive import PlanFigures
+from .derive import PlanFigures, currency_label
 
 OKABE_ITO = {
     "black": "#000000", "orange": "#E69F00", "sky_blue": "#56B4E9", "bluish_green": "#009E73",
@@ -101,7 +101,7 @@ def district_map(bundle, fig_data: PlanFigures) -> bytes:
     return _png(fig)
 
 
-def coverage_curve(sweep: pd.DataFrame | None, summary: dict) -> bytes | None:
+def coverage_curve(sweep: pd.DataFrame | None, summary: dict, currency: str = "") -> bytes | None:
     """Covered weight against budget from the sweep (None when there is no sweep)."""
     if sweep is None or not len(sweep) or not {"budget", "covered_weight"} <= set(sweep.columns):
         return None
@@ -119,7 +119,7 @@ def coverage_curve(sweep: pd.DataFrame | None, summary: dict) -> bytes | None:
         ax.axvline(summary["budget"], color=OKABE_ITO["bluish_green"], linestyle="-.", label="this plan's budget")
         ax.plot([summary["plan_cost"]], [100 * summary["covered_share_after"]], linestyle="none", marker="*",
                 markersize=12, color=OKABE_ITO["bluish_green"], label="this plan")
-    ax.set_xlabel("budget [currency units]")
+    ax.set_xlabel(f"budget [{currency_label(currency)}]")
     ax.set_ylabel("covered demand weight [% of total]")
     ax.set_title("Coverage against budget")
     ax.grid(True, linewidth=0.3, alpha=0.5)
