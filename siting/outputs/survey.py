@@ -222,15 +222,18 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
              f"</title><style>{_CSS}</style></head><body>",
              f"<h1>{esc(title)}: survey list</h1>",
              f"<p>{len(frame)} site(s) in rank order. Coordinates are WGS84 longitude / latitude; facing is the "
-             "outward wall normal, clockwise from north. Backup spots can replace a site that fails the survey.</p>"]
+             "outward wall normal, clockwise from north. Backup spots can replace a site that fails the survey.</p>",
+             "<p class=\"legend\">Maps: " + "; ".join(f"<span style=\"color:{c}\">{esc(sym)}</span> {esc(text)}"
+                                                    for c, sym, text in figures.SITE_MAP_LEGEND) + ".</p>"]
     if not len(frame):
         parts.append(f"<p><strong>{esc(fig.summary.get('empty_plan_reason') or 'No site was chosen.')}</strong></p>")
     tags = tag_columns(bundle.buildings)
     by_rank = fig.sites.set_index("rank")
+    maps = figures.SiteMaps(bundle, fig) if len(frame) else None
     for _, r in frame.iterrows():
         rank = int(r["rank"])
         site = by_rank.loc[rank]
-        png = base64.b64encode(figures.site_map(bundle, fig, rank)).decode("ascii")
+        png = base64.b64encode(maps.png(rank)).decode("ascii")
         cur = currency_label(getattr(bundle, "currency", ""))
         rows = [
             ("site id", int(r["site_id"])), ("lon, lat", f"{r['lon']:.7f}, {r['lat']:.7f}"),
@@ -250,7 +253,8 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
         checks = "".join(f"<div><span></span>{esc(c)}</div>" for c in FIELD_CHECKS)
         note = esc(str(r["notes"])) if r["notes"] else ""
         parts.append(
-            f"<section class=\"site\" id=\"site-{rank}\"><div><img alt=\"map around site {int(r['site_id'])}\" "
+            f"<section class=\"site\" id=\"site-{rank}\"><div><img alt=\"map around site {int(r['site_id'])}, "
+            f"facing {esc(str(r['facing']))}, {2 * maps.r:g} m across\" "
             f"src=\"data:image/png;base64,{png}\"></div><div><h2>Rank {rank}: site {int(r['site_id'])}</h2>"
             f"<table>{table}</table>{backup_table(fig.backups, rank)}<div class=\"check\">{checks}</div>"
             f"<div class=\"notes\">notes: {note}</div></div></section>")
