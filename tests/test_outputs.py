@@ -14,6 +14,7 @@ import importlib.metadata
 import io
 import json
 import math
+import os
 import re
 from pathlib import Path
 from types import SimpleNamespace
@@ -959,3 +960,289 @@ def test_survey_csv_cells_cannot_run_as_formulas(tmp_path):
     assert set(csv["building_id"]) == {"b0", "b1"}  # both buildings carry chosen sites
     assert {"'=HYPERLINK(\"http://x\")", "'@SUM(A1)", "'-2+3", "plain"} == names
     assert pd.api.types.is_float_dtype(csv["lon"]) and (csv["lon"] > 0).all()  # numbers untouched
+
+
+# ------------------------------------------------------------------------------------------ complete sets
+
+def _snapshot(folder: Path) -> dict:
+    """Every file under ``folder`` (relative path -> bytes), hidden files included."""
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _visible(snap: dict) -> dict:
+    return {k: v for k, v in snap.items() if not k.startswith(".")}
+
+
+def _enospc_after(real, n_ok: int, calls: list):
+    """``real`` for the first ``n_ok`` calls, then a full disk (errno ENOSPC) halfway through a file."""
+    import errno
+
+    def broken(path, *args, **kw):
+        calls.append(Path(path))
+        if len(calls) > n_ok:
+            Path(path).write_bytes(b"half a file")
+            raise OSError(errno.ENOSPC, "No space left on device (injected)")
+        return real(path, *args, **kw)
+    return broken
+
+
+@pytest.mark.parametrize("n_ok", [0, 1, 3, 5])
+def test_a_failure_while_writing_leaves_the_previous_set(tmp_path, monkeypatch, n_ok):
+    """A disk that fills up after n_ok files of the new set: the folder keeps exactly the previous set."""
+    write_outputs(tmp_path, make_bundle(random_state=3))
+    (tmp_path / "my notes.txt").write_text("the user's own file")
+    before = _snapshot(tmp_path)
+    calls: list = []
+    monkeypatch.setattr(atomic, "write_with", _enospc_after(atomic.write_with, n_ok, calls))
+    with pytest.raises(SitingError, match="No space left") as err:
+        write_outputs(tmp_path, make_bundle(random_state=4, budget=900.0))
+    assert "previous set is left as it was" in str(err.value)
+    assert len(calls) == n_ok + 1 and all(p.parts[-2].startswith(atomic.STAGING_PREFIX) or
+                                          p.parts[-3].startswith(atomic.STAGING_PREFIX) for p in calls)
+    assert _snapshot(tmp_path) == before  # no new file, no staging folder, no temporary file left
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+def test_a_failure_in_a_figure_leaves_no_partial_first_set(tmp_path, monkeypatch):
+    from siting.outputs import figures as figures_mod
+
+    def broken(*a, **kw):
+        raise RuntimeError("figure failed (injected)")
+    monkeypatch.setattr(figures_mod, "snr_cdf", broken)
+    with pytest.raises(RuntimeError, match="injected"):
+        write_outputs(tmp_path / "out", make_bundle())
+    assert _snapshot(tmp_path / "out") == {}
+
+
+def _kill_commit_after(monkeypatch, n_moves: int):
+    """Make the commit stop dead (as a SIGKILL would: no clean-up code runs) after ``n_moves`` renames."""
+    real = atomic.os.replace
+    count = [0]
+
+    class Killed(BaseException):
+        pass
+
+    def replace(src, dst):
+        if atomic.STAGING_PREFIX in str(src) and atomic.STAGING_PREFIX not in str(dst):  # a move into place
+            if count[0] >= n_moves:
+                raise Killed()
+            count[0] += 1
+        return real(src, dst)
+    monkeypatch.setattr(atomic.os, "replace", replace)
+    return Killed
+
+
+@pytest.mark.parametrize("n_moves", [0, 2, 6, 11])
+def test_a_commit_killed_midway_is_finished_by_the_next_run(tmp_path, monkeypatch, n_moves):
+    """Killed while the new set moves into place: no run.json marks the mixed folder complete, and the next
+    write into the folder first completes the interrupted set, giving exactly the new set."""
+    old_b, new_b = make_bundle(random_state=3), make_bundle(random_state=4, budget=900.0)
+    ref_new = tmp_path / "ref"
+    write_outputs(ref_new, new_b)
+    d = tmp_path / "out"
+    write_outputs(d, old_b)
+    killed = _kill_commit_after(monkeypatch, n_moves)
+    with pytest.raises(killed):
+        write_outputs(d, new_b)
+    monkeypatch.undo()
+    assert not (d / "run.json").exists() and (d / atomic.JOURNAL).exists()
+    assert atomic.recover(d) is True
+    got, ref = _visible(_snapshot(d)), _visible(_snapshot(ref_new))
+    assert sorted(got) == sorted(ref)
+    for name in ("surfaces.geojson", "demand.geojson", "survey.csv"):
+        assert got[name] == ref[name], name
+    assert json.loads(got["run.json"])["manifest"] == json.loads(ref["run.json"])["manifest"]
+    assert atomic.leftover_temp_files(d) == [] and not (d / atomic.JOURNAL).exists()
+
+
+def test_a_kill_before_the_commit_leaves_the_previous_set(tmp_path, monkeypatch):
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    before = _snapshot(d)
+
+    class Killed(BaseException):
+        pass
+    monkeypatch.setattr(atomic.OutputSet, "__exit__", lambda *a: None)  # a killed process cleans nothing up
+    monkeypatch.setattr(atomic.OutputSet, "commit", lambda self, files: (_ for _ in ()).throw(Killed()))
+    with pytest.raises(Killed):
+        write_outputs(d, make_bundle(random_state=4))
+    monkeypatch.undo()
+    assert _visible(_snapshot(d)) == _visible(before)  # only a hidden staging folder was added
+    assert atomic.recover(d) is False and _snapshot(d) == before
+
+
+def test_only_files_of_a_previous_run_are_replaced_or_removed(tmp_path):
+    d = tmp_path
+    b = make_bundle(formats=("geojson", "gpkg"), include_candidates=True)
+    write_outputs(d, b)
+    run = json.loads((d / "run.json").read_text())
+    man = run["manifest"]
+    assert man["complete"] is True and "run.json" in man["files"] and "plan.gpkg" in man["files"]
+    assert sorted(man["files"]) == sorted(p.relative_to(d).as_posix() for p in d.rglob("*") if p.is_file())
+    (d / "keep.txt").write_text("mine")
+    (d / "figures" / "my_photo.png").write_bytes(b"\x89PNG mine")
+    # a smaller set: the candidates layer, the GeoPackage and the sweep figure of the previous run go away
+    write_outputs(d, make_bundle(budget=900.0, sweep=None))
+    assert not (d / "plan.gpkg").exists() and not (d / "candidates.geojson").exists()
+    assert not (d / "figures" / "coverage_curve.png").exists()
+    assert (d / "keep.txt").read_text() == "mine" and (d / "figures" / "my_photo.png").exists()
+    # a tampered record cannot make a run remove a file outside the set's names or outside the folder
+    victim_out, victim_in = tmp_path.parent / f"{tmp_path.name}-victim.txt", d / "keep.txt"
+    victim_out.write_text("outside")
+    run = json.loads((d / "run.json").read_text())
+    run["manifest"]["files"] += [f"../{victim_out.name}", "keep.txt", "/etc/hostname"]
+    (d / "run.json").write_text(json.dumps(run))
+    write_outputs(d, make_bundle())
+    assert victim_out.read_text() == "outside" and victim_in.read_text() == "mine"
+    victim_out.unlink()
+
+
+def test_a_users_own_file_of_the_same_name_is_refused_then_allowed(tmp_path):
+    (tmp_path / "report.html").write_text("<p>my own report</p>")
+    with pytest.raises(SitingError, match=r"no siting run created there: report\.html"):
+        write_outputs(tmp_path, make_bundle())
+    assert (tmp_path / "report.html").read_text() == "<p>my own report</p>"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html"]
+    write_outputs(tmp_path, make_bundle(), overwrite=True)
+    assert "my own report" not in (tmp_path / "report.html").read_text()
+
+
+def test_extra_files_join_the_set(tmp_path):
+    def graph(path):
+        Path(path).write_text("<graphml/>\n")
+    files = write_outputs(tmp_path, make_bundle(), extra_files={"los_graph": ("los_graph.graphml", graph)})
+    assert files["los_graph"] == tmp_path / "los_graph.graphml" and files["los_graph"].read_text() == "<graphml/>\n"
+    assert "los_graph.graphml" in json.loads((tmp_path / "run.json").read_text())["manifest"]["files"]
+    write_outputs(tmp_path, make_bundle())  # a rerun without it removes it: it was siting's
+    assert not (tmp_path / "los_graph.graphml").exists()
+
+
+# ------------------------------------------------------------------------------------------ output folder
+
+from siting.errors import JobError  # noqa: E402
+from siting.outputs import check_output_folder, planned_files  # noqa: E402
+
+
+def test_output_folder_checks_accept_a_fresh_or_own_folder(tmp_path):
+    inputs = [tmp_path / "data" / "buildings.geojson"]
+    inputs[0].parent.mkdir()
+    inputs[0].write_text("{}")
+    assert check_output_folder(tmp_path / "out" / "new", inputs) == (tmp_path / "out" / "new").resolve()
+    write_outputs(tmp_path / "out", make_bundle())
+    (tmp_path / "out" / "unrelated.txt").write_text("x")  # other files do not matter
+    assert check_output_folder(tmp_path / "out", inputs) == (tmp_path / "out").resolve()
+
+
+@pytest.mark.parametrize("case, match", [
+    ("input_folder", "is the folder of the input"),
+    ("contains_input", "contains the input"),
+    ("is_input", "is the input"),
+    ("home", "is your home folder"),
+    ("root", "is the file-system root"),
+    ("file", "is an existing file"),
+    ("under_file", "is a file, not a folder"),
+    ("users_report", r"no siting run created there and that a run would replace: report\.html, survey\.csv"),
+    ("directory_named_like_output", r"would replace: run\.json"),
+])
+def test_output_folder_checks_refuse(tmp_path, monkeypatch, case, match):
+    data = tmp_path / "city" / "data"
+    data.mkdir(parents=True)
+    inp = data / "buildings.geojson"
+    inp.write_text("{}")
+    folder = {"input_folder": data, "contains_input": tmp_path / "city", "is_input": inp, "root": Path("/"),
+              "file": inp, "under_file": inp / "out"}.get(case, tmp_path / "out")
+    if case == "home":
+        monkeypatch.setenv("HOME", str(tmp_path / "out"))
+        (tmp_path / "out").mkdir()
+        folder = Path("~")
+    if case == "users_report":
+        (tmp_path / "out").mkdir()
+        (tmp_path / "out" / "report.html").write_text("mine")
+        (tmp_path / "out" / "survey.csv").write_text("mine")
+    if case == "directory_named_like_output":
+        (tmp_path / "out" / "run.json").mkdir(parents=True)
+    with pytest.raises(JobError, match=match) as err:
+        check_output_folder(folder, [inp])
+    msg = str(err.value)
+    assert "output.folder" in msg and ("choose another output.folder" in msg or "set output.folder" in msg
+                                       or "--overwrite" in msg), msg
+    if case == "users_report":  # --overwrite lifts only this refusal
+        check_output_folder(folder, [inp], overwrite=True)
+
+
+@pytest.mark.skipif(os.geteuid() == 0 if hasattr(os, "geteuid") else True,
+                    reason="root may write anywhere, so a read-only folder cannot be simulated")
+def test_output_folder_check_refuses_a_read_only_folder(tmp_path):
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o555)
+    try:
+        with pytest.raises(JobError, match="not writable"):
+            check_output_folder(ro, [])
+        with pytest.raises(JobError, match="cannot be created"):
+            check_output_folder(ro / "sub", [])
+    finally:
+        ro.chmod(0o755)
+
+
+def test_output_folder_check_refuses_what_os_access_denies(tmp_path, monkeypatch):
+    """The permission rule itself, for runs as root (where chmod cannot make a folder read-only)."""
+    real = os.access
+    monkeypatch.setattr(os, "access", lambda p, mode, **kw: False if Path(p) == tmp_path / "ro" else real(p, mode, **kw))
+    (tmp_path / "ro").mkdir()
+    with pytest.raises(JobError, match=r"'.*ro' is not writable by this user; fix its permissions"):
+        check_output_folder(tmp_path / "ro", [])
+
+
+def test_planned_files_match_what_is_written(tmp_path):
+    b = make_bundle(formats=("geojson", "gpkg"), include_candidates=True)
+    write_outputs(tmp_path, b)
+    written = sorted(p.relative_to(tmp_path).as_posix() for p in tmp_path.rglob("*") if p.is_file())
+    assert written == planned_files(("geojson", "gpkg"), True)
+
+
+_KILL_SCRIPT = """
+import os, signal, sys
+from pathlib import Path
+sys.path.insert(0, {root!r})
+from tests.test_outputs import make_bundle
+from siting.outputs import atomic, write_outputs
+real, n = os.replace, [0]
+def replace(src, dst):
+    n[0] += 1
+    if n[0] == {kill_at}:
+        os.kill(os.getpid(), signal.SIGKILL)
+    return real(src, dst)
+atomic.os.replace = replace
+write_outputs(Path({folder!r}), make_bundle(random_state=4, budget=900.0))
+print("finished", n[0])
+"""
+
+
+@pytest.mark.parametrize("kill_at", [2, 7, 13, 15, 19, 25])
+def test_sigkill_during_the_outputs_gives_the_old_or_the_new_set(tmp_path, kill_at):
+    """SIGKILL at several renames of the outputs (staging, journal, moves into place): the folder holds the
+    previous set, or, once the next run has recovered the interrupted commit, exactly the new set."""
+    import subprocess
+    import sys
+
+    old, new = tmp_path / "old", tmp_path / "new"
+    write_outputs(old, make_bundle(random_state=3))
+    write_outputs(new, make_bundle(random_state=4, budget=900.0))
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    root = str(Path(__file__).resolve().parents[1])
+    proc = subprocess.run([sys.executable, "-c", _KILL_SCRIPT.format(root=root, kill_at=kill_at, folder=str(d))],
+                          capture_output=True, text=True, timeout=300, env={**os.environ, "PYTHONPATH": root})
+    assert proc.returncode == -9, proc.stderr[-2000:]  # killed, never finished
+    complete = (d / "run.json").exists()
+    atomic.recover(d)
+    got = _visible(_snapshot(d))
+    canon = {k: v for k, v in got.items() if k.endswith((".geojson", ".csv"))}
+    old_set, new_set = _visible(_snapshot(old)), _visible(_snapshot(new))
+    matches = [name for name, ref in (("old", old_set), ("new", new_set))
+               if sorted(got) == sorted(ref) and canon == {k: v for k, v in ref.items() if k.endswith((".geojson", ".csv"))}]
+    assert matches, (kill_at, sorted(got))
+    if complete and matches == ["new"]:  # a run.json was in place at the kill: it was the new one, complete
+        assert json.loads(got["run.json"])["manifest"]["complete"] is True
+    assert atomic.leftover_temp_files(d) == []

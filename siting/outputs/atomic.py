@@ -198,8 +198,8 @@ def _apply_commit(folder: Path, journal: dict, allowed: Callable[[str], bool] | 
 
 
 def recover(folder: str | os.PathLike, allowed: Callable[[str], bool] | None = None) -> bool:
-    """Complete a commit a killed run left half done, and remove staging folders of runs killed before
-    their commit.  Returns True when a commit was completed."""
+    """Complete a commit a killed run left half done, and remove staging folders and temporary files of runs
+    killed before their commit.  Returns True when a commit was completed."""
     folder = Path(folder)
     done = False
     journal = None
@@ -213,8 +213,11 @@ def recover(folder: str | os.PathLike, allowed: Callable[[str], bool] | None = N
         _apply_commit(folder, journal, allowed)
         done = True
     if folder.is_dir():
-        for p in folder.glob(STAGING_PREFIX + "*"):
-            if p.is_dir() and not p.is_symlink():
+        for p in folder.glob(TMP_PREFIX + "*"):
+            if p.is_symlink() or p.is_file():
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()  # a temporary file of a killed write (e.g. of the journal)
+            elif p.is_dir() and p.name.startswith(STAGING_PREFIX):
                 _shutil.rmtree(p, ignore_errors=True)
     return done
 

@@ -415,7 +415,8 @@ body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-se
        max-width: 70em; margin: 1.5em auto; padding: 0 1em; line-height: 1.4; }
 h1 { font-size: 1.6em; } h2 { font-size: 1.25em; border-bottom: 1px solid #999; margin-top: 1.6em; }
 table { border-collapse: collapse; font-size: .88em; margin: .5em 0; }
-td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-align: top; }
+td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-align: top; overflow-wrap: anywhere; }
+table { max-width: 100%; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; }
 img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 .lead { font-size: 1.05em; background: #f2f2f2; padding: .6em .9em; border-left: 4px solid #0072B2; }
