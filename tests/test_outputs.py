@@ -1246,3 +1246,249 @@ def test_sigkill_during_the_outputs_gives_the_old_or_the_new_set(tmp_path, kill_
     if complete and matches == ["new"]:  # a run.json was in place at the kill: it was the new one, complete
         assert json.loads(got["run.json"])["manifest"]["complete"] is True
     assert atomic.leftover_temp_files(d) == []
+
+
+# ------------------------------------------------------------------------------------------ 3-D, ids, angles
+
+def test_three_d_footprints_do_not_break_the_figures(tmp_path):
+    """Footprints with x, y, z coordinates (and a multipolygon of them) are drawn by their x, y."""
+    import shapely
+    from shapely.geometry import MultiPolygon
+
+    b = make_bundle()
+    g3 = shapely.force_3d(b.buildings.geometry.to_numpy(), z=12.5)
+    g3[1] = MultiPolygon([g3[1], shapely.affinity.translate(g3[1], xoff=200.0)])
+    b.buildings = b.buildings.set_geometry(gpd.GeoSeries(g3, crs=b.buildings.crs))
+    assert b.buildings.has_z.all()
+    write_outputs(tmp_path, b)
+    two_d = tmp_path / "flat"
+    write_outputs(two_d, make_bundle())
+    img = matplotlib.image.imread(tmp_path / "figures" / "district_map.png")
+    assert img.shape[0] > 1000
+    assert (tmp_path / "survey.html").stat().st_size > 0 and (tmp_path / "run.json").exists()
+
+
+def test_ids_print_as_integers_and_facings_stay_below_360(tmp_path):
+    b = make_bundle()
+    sites = b.sites.copy()
+    # ids read from a numeric column of the input (an object column holding floats passes the contract)
+    sites["building_id"] = pd.Series([2106.0] * 5 + [2107.0] * 5 + [2106.0], dtype=object)
+    sites["normal_az_deg"] = np.r_[np.full(5, 359.97), np.full(5, -0.02), 360.0]
+    b.sites = sites
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv", dtype=str, keep_default_na=False)
+    assert set(csv["building_id"]) <= {"2106", "2107"}
+    assert set(csv["facing_deg"].astype(float)) == {0.0} and set(csv["facing"]) == {"N"}
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert all(0.0 <= s["facing_deg"] < 360.0 for s in run["sites"])
+    surv = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert "2106.0" not in surv and "360.0" not in surv and "2106" in surv
+    assert "2106.0" not in (tmp_path / "report.html").read_text(encoding="utf-8")
+    cand = json.loads((tmp_path / "surfaces.geojson").read_text())
+    assert {f["properties"]["building_id"] for f in cand["features"]} <= {"2106", "2107"}
+
+
+@pytest.mark.parametrize("az, shown", [(359.94, 359.9), (359.95, 0.0), (360.0, 0.0), (-0.04, 0.0), (-0.06, 359.9),
+                                        (720.25, 0.2), (180.0, 180.0)])
+def test_angle_folding(az, shown):
+    from siting.outputs.derive import angle_deg
+
+    got = float(angle_deg(az))
+    assert got == pytest.approx(shown, abs=1e-9) and 0.0 <= got < 360.0 and math.copysign(1, got) == 1
+
+
+# ------------------------------------------------------------------------------------------ survey pack
+
+def test_backups_tell_a_field_team_where_to_go(tmp_path):
+    b = make_bundle()
+    write_outputs(tmp_path, b)
+    fig = derive(b)
+    bk = fig.backups
+    assert len(bk) == len(b.backups)
+    # distance from the primary spot: plain Euclidean distance in the projected CRS (pyproj-free check)
+    for r in bk.itertuples():
+        prim = b.sites.iloc[r.site_id]
+        bs = b.sites.iloc[r.backup_site_id]
+        assert r.backup_distance_m == pytest.approx(math.hypot(bs.x - prim.x, bs.y - prim.y), abs=0.05)
+        assert r.backup_building_id == bs.building_id and r.same_building == (bs.building_idx == prim.building_idx)
+        assert r.backup_address == b.buildings["address"].iloc[bs.building_idx]
+        assert r.backup_mount_height_m == bs.z_m
+    # the optimiser's order is kept per site
+    for opt, g in b.backups.groupby("option", sort=False):
+        rank = int(fig.sites.loc[fig.sites.option_id == opt, "rank"].iloc[0])
+        assert list(bk.loc[bk["rank"] == rank, "backup_option_id"]) == list(g["backup_option"])
+    csv = pd.read_csv(tmp_path / "survey.csv", keep_default_na=False, na_values=[""])
+    for c in ("backup_1_building_id", "backup_1_address", "backup_1_distance_m", "backup_1_lon", "backup_1_lat",
+              "backup_2_distance_m", "backup_1_recovered_weight"):
+        assert c in csv.columns, c
+    html_text = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert html_text.count('class="backups"') == len(fig.sites)
+    assert "From primary" in html_text and "Canyon Street" in html_text
+
+
+def test_extra_backup_columns_are_shown_when_given(tmp_path):
+    b = make_bundle()
+    b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.8, 0.25),
+                                 weak=b.backups["backup_rank"] == 2)
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv")
+    assert set(csv["backup_1_recovered_share"]) == {0.8} and set(csv["backup_2_weak"]) == {True}
+    text = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert "recovered share 80 %" in text and "recovered share 25 %, weak" in text
+    assert json.loads((tmp_path / "run.json").read_text())["backups"][0]["recovered_share"] == 0.8
+
+
+def test_currency_beside_every_cost(tmp_path):
+    b = make_bundle(currency="EUR")
+    write_outputs(tmp_path, b)
+    html_text = (tmp_path / "report.html").read_text(encoding="utf-8")
+    figs = _html_key_figures(html_text)
+    assert figs["plan_cost"].endswith(" EUR") and figs["budget"].endswith(" EUR")
+    assert "Cost [EUR]" in html_text and "Budget [EUR]" in html_text
+    md = (tmp_path / "report.md").read_text(encoding="utf-8")
+    assert re.search(r"^\| Cost of the plan \| [\d.]+ EUR \|$", md, re.M)
+    csv = pd.read_csv(tmp_path / "survey.csv")
+    assert set(csv["currency"]) == {"EUR"}
+    surv = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert len(re.findall(r"<th>cost</th><td>[\d.]+ EUR</td>", surv)) == len(csv)
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert run["summary"]["currency"] == "EUR"
+    # no currency given: "cost units", never a bare number
+    write_outputs(tmp_path / "plain", make_bundle())
+    assert _html_key_figures((tmp_path / "plain" / "report.html").read_text())["plan_cost"].endswith(" cost units")
+
+
+def test_one_name_per_quantity_and_the_cumulative_baseline(out):
+    d, _ = out
+    csv = pd.read_csv(d / "survey.csv")
+    surf = json.loads((d / "surfaces.geojson").read_text())["features"][0]["properties"]
+    run = json.loads((d / "run.json").read_text())
+    for cols in (list(csv.columns), list(surf), list(run["sites"][0])):
+        assert "weight_gained" in cols and "marginal_weight" not in cols and "cumulative_weight" not in cols
+        assert "cumulative_covered_weight" in cols
+    html_text = (d / "report.html").read_text(encoding="utf-8")
+    assert "Covered weight after this site (direct included)" in html_text
+    # the first row starts from the weight covered directly: cumulative = direct + weight gained
+    s = run["summary"]
+    first = run["sites"][0]
+    assert first["cumulative_covered_weight"] == pytest.approx(s["covered_weight_before"] + first["weight_gained"])
+    assert "direct included" in (d / "survey.html").read_text(encoding="utf-8")
+    assert "marginal_weight" in run["definitions"]["weight_gained"]  # the optimiser's name, for readers
+
+
+def test_demand_points_say_why_they_are_not_covered(out, bundle):
+    d, _ = out
+    ref = _brute_force(bundle)
+    dem = gpd.read_file(d / "demand.geojson")
+    target = TARGET_DB
+    for r in dem.itertuples():
+        st = ref[r.user_id]
+        if r.covered_before:
+            assert r.reason == "covered directly"
+        elif r.newly_covered:
+            assert r.reason == "covered by the plan"
+        elif st["serving_site_id"] >= 0:
+            # a surface serves it (better than direct) but not up to the target
+            assert r.reason.startswith("below target with the plan")
+            assert r.shortfall_db == pytest.approx(target - st["snr_plan_db"], abs=0.006)
+        else:
+            assert r.reason.startswith(("below target:", "no base station"))
+    below = dem["reason"].str.startswith("below target with the plan")
+    assert below.any()
+    run = json.loads((d / "run.json").read_text())
+    assert run["summary"]["n_users_below_target_with_plan"] == int(below.sum())
+    assert f"{int(below.sum())} demand point(s)" in (d / "report.html").read_text(encoding="utf-8")
+
+
+def test_coverage_rows_are_defined_in_run_json(out, bundle):
+    d, _ = out
+    run = json.loads((d / "run.json").read_text())
+    assert run["counts"]["coverage_rows"] == len(bundle.coverage)
+    assert run["counts"]["coverage_rows_at_target"] == int((bundle.coverage["snr_db"] >= TARGET_DB).sum())
+    assert "whatever the SNR" in run["definitions"]["counts.coverage_rows"]
+
+
+def test_repeated_notes_are_listed_once_with_a_count(tmp_path):
+    b = make_bundle(run_info={"notes": ["tile warning"] * 34 + ["other"]})
+    fig = derive(b)
+    assert fig.notes[:2] == ["tile warning (34 times)", "other"]
+
+
+# ------------------------------------------------------------------------------------------ print quality
+
+def test_report_map_is_print_ready(out, bundle):
+    """A4 landscape at >= 200 dpi, with scale bar, north arrow, CRS name, labelled stations and surfaces, the
+    facing arrows in the legend, and no two labels overlapping."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
+    from PIL import Image
+
+    from siting.outputs import figures as figures_mod
+
+    d, _ = out
+    with Image.open(d / "figures" / "district_map.png") as im:
+        w, h = im.size
+        dpi = im.info.get("dpi", (0, 0))[0]
+    # A4 is 297 x 210 mm (ISO 216); at 200 dpi its printable width (12 mm margins) is about 2150 px
+    assert dpi >= 199 and w >= 2000 and h >= 1400 and 1.3 < w / h < 1.6
+    fig = figures_mod.district_figure(bundle, derive(bundle))
+    ax = fig.axes[0]
+    assert any(isinstance(a, AnchoredSizeBar) for a in ax.artists)
+    texts = [t.get_text() for t in ax.texts] + [t.get_text() for t in fig.texts]
+    assert "N" in texts
+    crs = pyproj.CRS(bundle.crs)
+    caption = fig.texts[0].get_text()
+    assert crs.name in caption and "EPSG:32633" in caption and "grid north" in caption
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert any("facing" in t for t in legend) and any("base station" in t for t in legend)
+    placed = {str(t[2]) for t in fig.placed_labels}
+    assert set(bundle.base_stations["bs_id"]) <= placed  # every station labelled
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    labels = [t for t in ax.texts if t.get_text() and t.get_text() != "N"]
+    boxes = [t.get_window_extent(renderer) for t in labels]
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j]), (labels[i].get_text(), labels[j].get_text())
+
+
+def test_crowded_labels_are_moved_or_left_out_never_overlapping():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from siting.outputs.figures import place_labels
+
+    fig = Figure(figsize=(4, 3))
+    canvas = FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    ax.set_xlim(0, 100)
+    ax.set_ylim(0, 100)
+    rng = np.random.default_rng(5)
+    pts = rng.normal(50, 2.0, (40, 2))  # 40 labels on a 2 m spot
+    renderer = canvas.get_renderer()
+    shown = place_labels(ax, renderer, [(x, y, f"site {i}", {"fontsize": 8}) for i, (x, y) in enumerate(pts)])
+    assert 4 <= sum(shown) < 40
+    boxes = [t.get_window_extent(renderer) for t in ax.texts]
+    assert len(boxes) == sum(shown)
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j])
+
+
+@pytest.mark.parametrize("span, bar", [(640.0, 100.0), (120.0, 20.0), (5000.0, 1000.0), (37.0, 5.0), (9.0, 1.0)])
+def test_scale_bar_length_is_round(span, bar):
+    from siting.outputs.figures import nice_length
+
+    assert nice_length(span) == bar  # 1, 2 or 5 x 10^k, at most a fifth of the span (common practice)
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+def test_report_tables_fit_a_1400_px_page(tmp_path):
+    from tests.browser import page_widths
+
+    b = make_bundle(budget=2000.0, currency="EUR")
+    b.buildings = b.buildings.assign(name=["A building with a rather long name, " * 3, ""])
+    write_outputs(tmp_path, b)
+    res = page_widths(tmp_path / "report.html", 1400)
+    assert res["scroll_width"] <= 1400, res["scroll_width"]
+    for t in res["tables"]:
+        assert t["right"] <= t["parent_right"] + 0.5, t  # no table wider than its column, so nothing scrolls

@@ -156,6 +156,11 @@ MAP_DPI = 200
 
 
 def district_map(bundle, fig_data: PlanFigures) -> bytes:
+    """The district map as PNG bytes at print resolution (see :func:`district_figure`)."""
+    return _png(district_figure(bundle, fig_data), tight=False, dpi=MAP_DPI)
+
+
+def district_figure(bundle, fig_data: PlanFigures) -> Figure:
     """Print-ready map (A4 landscape at 200 dpi): buildings, labelled base stations, chosen surfaces with rank
     and facing, demand by coverage state, scale bar, north arrow, CRS name, non-overlapping labels."""
     import pyproj
@@ -232,7 +237,8 @@ def district_map(bundle, fig_data: PlanFigures) -> bytes:
     if hidden:
         fig.text(0.06, 0.045, f"{hidden} label(s) left out where labels would overlap; the survey list has every "
                  "site.", fontsize=8, ha="left", va="bottom")
-    return _png(fig, tight=False, dpi=MAP_DPI)
+    fig.placed_labels = [t for t, ok in zip(items, shown) if ok]
+    return fig
 
 
 def derive_text(values) -> list[str]:
