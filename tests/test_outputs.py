@@ -1492,3 +1492,35 @@ def test_report_tables_fit_a_1400_px_page(tmp_path):
     assert res["scroll_width"] <= 1400, res["scroll_width"]
     for t in res["tables"]:
         assert t["right"] <= t["parent_right"] + 0.5, t  # no table wider than its column, so nothing scrolls
+
+
+def test_building_paths_keep_holes_and_drop_z():
+    from matplotlib.path import Path as MPath
+    from shapely.geometry import LineString, MultiPolygon, Polygon
+
+    from siting.outputs.figures import _building_paths
+
+    courtyard = Polygon([(0, 0, 5), (10, 0, 5), (10, 10, 5), (0, 10, 5)], [[(4, 4, 5), (4, 6, 5), (6, 6, 5), (6, 4, 5)]])
+    two = MultiPolygon([Polygon([(20, 0), (21, 0), (21, 1)]), Polygon([(30, 0), (31, 0), (31, 1)])])
+    paths = _building_paths([courtyard, None, LineString([(0, 0), (1, 1)]), two], 1.0, 2.0)
+    assert len(paths) == 3  # the courtyard block and both parts; the line and the missing geometry skipped
+    p = paths[0]
+    assert p.vertices.shape == (10, 2)
+    np.testing.assert_array_equal(p.vertices[:5], np.array(courtyard.exterior.coords)[:, :2] - (1.0, 2.0))
+    np.testing.assert_array_equal(p.vertices[5:], np.array(courtyard.interiors[0].coords)[:, :2] - (1.0, 2.0))
+    assert list(p.codes) == [MPath.MOVETO, *[MPath.LINETO] * 3, MPath.CLOSEPOLY] * 2
+    # drawn, the courtyard stays empty (a hole wound against its exterior, as RFC 7946 section 3.1.6 asks)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.collections import PathCollection
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(1, 1), dpi=100)
+    canvas = FigureCanvasAgg(fig)
+    ax = fig.add_axes([0, 0, 1, 1])
+    ax.add_collection(PathCollection([p], facecolor="black", edgecolor="none"))
+    ax.set_xlim(-1, 9)
+    ax.set_ylim(-2, 8)
+    canvas.draw()
+    px = np.asarray(canvas.buffer_rgba())[..., 0]  # rows from the top; 10 px per metre
+    # shifted by (1, 2): (3, 1) lies in the block (black), (4, 3) is the courtyard centre (white)
+    assert px[100 - 30, 40] < 50 and px[100 - 50, 50] > 200
