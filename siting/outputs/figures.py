@@ -276,7 +276,7 @@ def coverage_curve(sweep: pd.DataFrame | None, summary: dict, currency: str = ""
     ax.grid(True, linewidth=0.3, alpha=0.5)
     ax.legend(fontsize=8, frameon=False)
     fig.tight_layout()
-    return _png(fig)
+    return _png(fig, tight=False)  # tight_layout above already fits everything: one draw less
 
 
 def sweep_table(sweep: pd.DataFrame, summary: dict) -> pd.DataFrame:
@@ -327,7 +327,7 @@ def snr_cdf(fig_data: PlanFigures, snr_target_db: float) -> bytes:
     ax.grid(True, linewidth=0.3, alpha=0.5)
     ax.legend(fontsize=8, frameon=False, loc="upper left")
     fig.tight_layout()
-    return _png(fig)
+    return _png(fig, tight=False)
 
 
 #: What the survey list's small maps show (printed once on the survey page).
