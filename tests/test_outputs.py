@@ -1488,10 +1488,11 @@ def test_report_tables_fit_a_1400_px_page(tmp_path):
     b = make_bundle(budget=2000.0, currency="EUR")
     b.buildings = b.buildings.assign(name=["A building with a rather long name, " * 3, ""])
     write_outputs(tmp_path, b)
-    res = page_widths(tmp_path / "report.html", 1400)
-    assert res["scroll_width"] <= 1400, res["scroll_width"]
-    for t in res["tables"]:
-        assert t["right"] <= t["parent_right"] + 0.5, t  # no table wider than its column, so nothing scrolls
+    for page in ("report.html", "survey.html"):
+        res = page_widths(tmp_path / page, 1400)
+        assert res["scroll_width"] <= 1400, (page, res["scroll_width"])
+        for t in res["tables"]:
+            assert t["right"] <= t["parent_right"] + 0.5, (page, t)  # no table wider than its column
 
 
 def test_building_paths_keep_holes_and_drop_z():

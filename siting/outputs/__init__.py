@@ -6,15 +6,18 @@
 =========================  =================================================================================
 ``surfaces.geojson``       chosen surfaces (points, rank order) with the survey fields
 ``surface_walls.geojson``  each chosen panel as a short line along its wall, as long as the panel is wide
-``demand.geojson``         demand points: direct SNR, SNR with the plan, covered before / after, serving site
+``demand.geojson``         demand points: direct SNR, SNR with the plan, covered before / after, serving site,
+                           why a point is not covered (``reason``, ``shortfall_db``)
 ``links.geojson``          base station -> surface -> served user lines
 ``candidates.geojson``     every candidate spot considered (only with ``include_candidates``)
 ``plan.gpkg``              all of the above as GeoPackage layers (only when ``formats`` has ``"gpkg"``)
 ``survey.csv``             the survey list, one row per chosen site in rank order
-``survey.html``            printable survey list with a small map per site
+``survey.html``            printable survey list (A4): a small map per site, backups with building, address,
+                           wall, height and distance from the primary spot
 ``report.html``            self-contained report (figures embedded, no scripts, no network)
-``report.md``              the same report in Markdown, figures in ``figures/*.png``
-``run.json``               every figure, the parameters, input hashes, timings and versions (written last)
+``report.md``              the same report in Markdown, figures in ``figures/*.png`` (the map at A4, 200 dpi)
+``run.json``               every figure, the parameters, input hashes, timings, versions, the definitions of
+                           its less obvious names and the ``manifest`` of the set (moved into place last)
 =========================  =================================================================================
 
 The set is complete or absent: every file is first written into a staging folder inside ``out_dir``, and
@@ -73,9 +76,10 @@ class OutputBundle:
     """has: chosen (option ids in rank order), objective, bound, gap, status, solver, cost, message,
     greedy_objective, timings_s, model_size"""
     ranking: pandas.DataFrame
-    """option, rank, marginal_weight, cumulative_weight, exclusive_weight, shared_weight"""
+    """option, rank (only these are read; the weights are recomputed and printed as ``weight_gained``)"""
     backups: pandas.DataFrame
-    """option, backup_rank, backup_option, recovered_weight"""
+    """option, backup_rank, backup_option, recovered_weight, in the order to show; any further column (e.g.
+    recovered_share, weak) is shown as given"""
     sweep: pandas.DataFrame | None
     """budget, covered_weight, bound, gap, cost, n_sites, status"""
     snr_target_db: float

@@ -118,15 +118,17 @@ body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-se
 h1 { font-size: 1.4em; } h2 { font-size: 1.15em; margin: 0 0 .4em 0; }
 table { border-collapse: collapse; font-size: .85em; }
 td, th { border: 1px solid #999; padding: 2px 6px; text-align: left; vertical-align: top; }
-.site { display: flex; gap: 1em; border-top: 2px solid #000; padding: .8em 0; page-break-inside: avoid;
-        break-inside: avoid; }
+.site { border-top: 2px solid #000; padding: .8em 0; page-break-inside: avoid; break-inside: avoid; }
+.site .top { display: flex; gap: 1em; align-items: flex-start; }
+td { overflow-wrap: anywhere; } table.backups { width: 100%; }
 .site img { width: 300px; height: auto; border: 1px solid #ccc; }
 .check { margin-top: .4em; font-size: .85em; } .check span { display: inline-block; width: 1em; height: 1em;
         border: 1px solid #000; margin-right: .4em; vertical-align: middle; }
 table.backups { margin-top: .5em; font-size: .78em; } caption { text-align: left; font-weight: bold; }
 .notes { min-height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
 @page { size: A4; margin: 12mm; }
-@media print { body { margin: 0; font-size: 10pt; } .site { page-break-inside: avoid; } .site img { width: 60mm; } }
+@media print { body { margin: 0; font-size: 9pt; } .site { page-break-inside: avoid; } .site img { width: 55mm; }
+  table { font-size: 7.5pt; } td, th { padding: 1px 3px; } }
 """
 
 FIELD_CHECKS = (
@@ -253,10 +255,10 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
         checks = "".join(f"<div><span></span>{esc(c)}</div>" for c in FIELD_CHECKS)
         note = esc(str(r["notes"])) if r["notes"] else ""
         parts.append(
-            f"<section class=\"site\" id=\"site-{rank}\"><div><img alt=\"map around site {int(r['site_id'])}, "
+            f"<section class=\"site\" id=\"site-{rank}\"><div class=\"top\"><div><img alt=\"map around site {int(r['site_id'])}, "
             f"facing {esc(str(r['facing']))}, {2 * maps.r:g} m across\" "
             f"src=\"data:image/png;base64,{png}\"></div><div><h2>Rank {rank}: site {int(r['site_id'])}</h2>"
-            f"<table>{table}</table>{backup_table(fig.backups, rank)}<div class=\"check\">{checks}</div>"
-            f"<div class=\"notes\">notes: {note}</div></div></section>")
+            f"<table>{table}</table></div></div>{backup_table(fig.backups, rank)}<div class=\"check\">{checks}</div>"
+            f"<div class=\"notes\">notes: {note}</div></section>")
     parts.append("</body></html>\n")
     return "\n".join(parts)
