@@ -688,7 +688,8 @@ def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) ->
     counts["coverage_rows"] = fig.summary["n_coverage_rows"]
     counts["coverage_rows_at_target"] = fig.summary["n_coverage_rows_at_target"]
     return jsonable({
-        "format": "siting-run", "format_version": 1, "title": bundle.title,
+        # format 2: weight_gained, cumulative_covered_weight, manifest, definitions, counts
+        "format": "siting-run", "format_version": 2, "title": bundle.title,
         "crs": pyproj.CRS(bundle.crs).to_string(),
         "summary": fig.summary,
         "coverage_by_kind": fig.by_kind,

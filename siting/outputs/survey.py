@@ -198,7 +198,8 @@ def backup_table(backups: pd.DataFrame, rank: int) -> str:
     if not len(bk):
         return "<p class=\"backups\">Backup spots: none.</p>"
     extra = [c for c in bk.columns if c not in BACKUP_FIXED]
-    head = ["#", "Site", "Building", "Address", "Wall facing", "Height", "From primary", "lon, lat", "Recovers"]
+    head = ["#", "Site", "Building", "Address", "Wall facing", "Height", "Panel", "From primary", "lon, lat",
+            "Recovers"]
     rows = []
     for _, b in bk.iterrows():
         building = str(b["backup_building_id"]) + (f" ({b['backup_name']})" if b["backup_name"] else "")
@@ -208,7 +209,8 @@ def backup_table(backups: pd.DataFrame, rank: int) -> str:
         rows.append([str(int(b["backup_rank"])), str(int(b["backup_site_id"])), building,
                      str(b["backup_address"] or "-"),
                      f"{b['backup_facing_deg']:.1f}\u00b0 ({b['backup_facing']})",
-                     f"{b['backup_mount_height_m']:.1f} m", f"{b['backup_distance_m']:.1f} m",
+                     f"{b['backup_mount_height_m']:.1f} m", str(b["backup_size_id"] or "-"),
+                     f"{b['backup_distance_m']:.1f} m",
                      f"{b['backup_lon']:.7f}, {b['backup_lat']:.7f}",
                      recovers + (f"; {more}" if more else "")])
     h = "".join(f"<th>{esc(c)}</th>" for c in head)
