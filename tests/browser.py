@@ -63,7 +63,7 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
                        "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
                        "--run-all-compositor-stages-before-draw", f"--virtual-time-budget={budget_ms}", "--dump-dom",
                        probe.resolve().as_uri()]
-                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
                 m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
                 if m is not None:
                     break
@@ -103,7 +103,7 @@ def page_widths(html_path: str | os.PathLike, window_px: int = 1400, timeout_s: 
                        "--disable-background-networking", "--disable-component-update", "--disable-sync",
                        "--disable-dev-shm-usage", f"--user-data-dir={tmp}", f"--window-size={window_px},1000",
                        "--hide-scrollbars", f"--virtual-time-budget={budget_ms}", "--dump-dom", probe.resolve().as_uri()]
-                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
                 m = re.search(r'<pre id="__width">(.*?)</pre>', proc.stdout, re.S)
                 if m is not None:
                     break

@@ -27,8 +27,19 @@ import pyogrio
 import pyproj
 import pytest
 
-from siting.errors import SitingError
-from siting.outputs import OutputBundle, atomic, compass_point, derive, element_count, element_pitch_m, layers, write_outputs
+from siting.errors import JobError, SitingError
+from siting.outputs import (
+    OutputBundle,
+    atomic,
+    check_output_folder,
+    compass_point,
+    derive,
+    element_count,
+    element_pitch_m,
+    layers,
+    planned_files,
+    write_outputs,
+)
 from siting.outputs import report as report_mod
 from tests import canonical
 from tests.browser import check_page, find_chromium
@@ -1119,10 +1130,6 @@ def test_extra_files_join_the_set(tmp_path):
 
 # ------------------------------------------------------------------------------------------ output folder
 
-from siting.errors import JobError  # noqa: E402
-from siting.outputs import check_output_folder, planned_files  # noqa: E402
-
-
 def test_output_folder_checks_accept_a_fresh_or_own_folder(tmp_path):
     inputs = [tmp_path / "data" / "buildings.geojson"]
     inputs[0].parent.mkdir()
@@ -1233,7 +1240,7 @@ def test_sigkill_during_the_outputs_gives_the_old_or_the_new_set(tmp_path, kill_
     write_outputs(d, make_bundle(random_state=3))
     root = str(Path(__file__).resolve().parents[1])
     proc = subprocess.run([sys.executable, "-c", _KILL_SCRIPT.format(root=root, kill_at=kill_at, folder=str(d))],
-                          capture_output=True, text=True, timeout=300, env={**os.environ, "PYTHONPATH": root})
+                          capture_output=True, text=True, timeout=300, check=False, env={**os.environ, "PYTHONPATH": root})
     assert proc.returncode == -9, proc.stderr[-2000:]  # killed, never finished
     complete = (d / "run.json").exists()
     atomic.recover(d)

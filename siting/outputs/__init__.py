@@ -40,8 +40,8 @@ import pyproj
 
 from ..errors import SitingError
 from . import atomic, figures, folder, layers, report, survey
-from .folder import check_output_folder, output_folder_problems, planned_files
 from .derive import PlanFigures, compass_point, derive, element_count, element_pitch_m
+from .folder import check_output_folder, output_folder_problems, planned_files
 
 __all__ = ["OutputBundle", "PlanFigures", "write_outputs", "derive", "compass_point", "element_count",
            "element_pitch_m", "FORMATS", "check_output_folder", "output_folder_problems",
@@ -146,7 +146,7 @@ def write_outputs(out_dir, bundle: OutputBundle, *, extra_files: dict | None = N
     try:
         out.mkdir(parents=True, exist_ok=True)
         extra_names = [rel for rel, _ in extra.values()]
-        allowed = lambda rel: folder.siting_name(rel, extra_names)  # noqa: E731
+        allowed = lambda rel: folder.siting_name(rel, extra_names)
         atomic.recover(out, allowed)
     except OSError as exc:
         raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "

@@ -458,7 +458,6 @@ def derive(b) -> PlanFigures:
     lon_s, lat_s = to_lonlat(b.crs, s["x"], s["y"])
     bld = b.buildings.reset_index(drop=True)
     bidx = s["building_idx"].to_numpy(np.int64)
-    okb = (bidx >= 0) & (bidx < len(bld))
     bld_name, bld_addr = text_values(bld["name"]), text_values(bld["address"])
 
     def bld_text(vals, idx):

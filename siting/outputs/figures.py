@@ -122,7 +122,7 @@ def meridian_convergence_deg(crs, x: float, y: float) -> float | None:
         crs = pyproj.CRS(crs)
         lon, lat = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(x, y)
         return float(pyproj.Proj(crs).get_factors(lon, lat).meridian_convergence)
-    except Exception:  # noqa: BLE001 - a projection without factors: no figure
+    except Exception:
         return None
 
 

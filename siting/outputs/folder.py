@@ -60,9 +60,7 @@ def foreign_files(folder: str | os.PathLike, files: Iterable[str]) -> list[str]:
     out = []
     for rel in files:
         p = folder / rel
-        if p.is_symlink() or (p.exists() and not p.is_file()):
-            out.append(rel)
-        elif p.exists() and rel not in ours:
+        if p.is_symlink() or (p.exists() and not p.is_file()) or p.exists() and rel not in ours:
             out.append(rel)
     return sorted(out)
 
