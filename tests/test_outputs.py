@@ -1532,3 +1532,18 @@ def test_building_paths_keep_holes_and_drop_z():
     px = np.asarray(canvas.buffer_rgba())[..., 0]  # rows from the top; 10 px per metre
     # shifted by (1, 2): (3, 1) lies in the block (black), (4, 3) is the courtyard centre (white)
     assert px[100 - 30, 40] < 50 and px[100 - 50, 50] > 200
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+def test_script_bearing_names_do_not_run_in_a_browser(tmp_path):
+    """Payloads in names, addresses and ids: were one written unescaped, the script would throw and the image
+    would fail to load, both caught by the page's error listener (tests/browser.py)."""
+    b = make_bundle(currency="<script>throw new Error('pwned currency')</script>")
+    b.buildings = b.buildings.assign(name=["<script>throw new Error('pwned')</script>", "<img src=x onerror=1>"],
+                                     address=["<svg onload=alert(1)>", "<iframe src=javascript:alert(2)>"])
+    b.backups = b.backups.assign(note="<script>throw new Error('pwned backup')</script>")
+    write_outputs(tmp_path, b)
+    for page in ("survey.html", "report.html"):
+        res = check_page(tmp_path / page)
+        assert res["errors"] == [] and res["console_errors"] == [], (page, res["errors"], res["console_errors"])
+        assert "pwned" not in " ".join(res["console"])
