@@ -1547,3 +1547,19 @@ def test_script_bearing_names_do_not_run_in_a_browser(tmp_path):
         res = check_page(tmp_path / page)
         assert res["errors"] == [] and res["console_errors"] == [], (page, res["errors"], res["console_errors"])
         assert "pwned" not in " ".join(res["console"])
+
+
+def test_a_second_run_into_a_busy_folder_is_refused(tmp_path):
+    """While one run holds the folder, another gets a clear error and the first run's staging is untouched."""
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    before = _snapshot(d)
+    with atomic.folder_lock(d):
+        staging = d / f"{atomic.STAGING_PREFIX}busy"
+        staging.mkdir()  # the first run's work in progress
+        with pytest.raises(SitingError, match="being written by another siting run"):
+            write_outputs(d, make_bundle(random_state=4))
+        assert staging.is_dir()
+        staging.rmdir()
+    assert _snapshot(d) == before
+    write_outputs(d, make_bundle(random_state=4))  # free again

@@ -145,8 +145,19 @@ def write_outputs(out_dir, bundle: OutputBundle, *, extra_files: dict | None = N
                           "or choose another output.folder")
     try:
         out.mkdir(parents=True, exist_ok=True)
-        extra_names = [rel for rel, _ in extra.values()]
-        allowed = lambda rel: folder.siting_name(rel, extra_names)
+    except OSError as exc:
+        raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
+                          "choose another output.folder or fix its permissions") from exc
+    with atomic.folder_lock(out):
+        rel = _write_locked(out, bundle, fig, formats, extra, overwrite, t, t_start)
+    return {k: out / v for k, v in rel.items()}
+
+
+def _write_locked(out: Path, bundle, fig, formats, extra, overwrite, t, t_start) -> dict:
+    """Recover an interrupted commit, refuse foreign files, then stage and commit the set (folder locked)."""
+    extra_names = [rel for rel, _ in extra.values()]
+    allowed = lambda rel: folder.siting_name(rel, extra_names)  # noqa: E731
+    try:
         atomic.recover(out, allowed)
     except OSError as exc:
         raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
@@ -164,7 +175,7 @@ def write_outputs(out_dir, bundle: OutputBundle, *, extra_files: dict | None = N
         raise SitingError(f"output folder '{out}': writing the output set failed ({exc.strerror or exc}); the "
                           "previous set is left as it was; free disk space or fix the folder's permissions and "
                           "run again") from exc
-    return {k: out / v for k, v in rel.items()}
+    return rel
 
 
 def _write_set(st, bundle, fig, formats, extra, t, t_start) -> dict:
