@@ -63,7 +63,7 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
                        "--disable-dev-shm-usage", f"--user-data-dir={tmp}", "--enable-logging=stderr", "--v=0",
                        "--run-all-compositor-stages-before-draw", f"--virtual-time-budget={budget_ms}", "--dump-dom",
                        probe.resolve().as_uri()]
-                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
                 m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
                 if m is not None:
                     break
@@ -76,3 +76,39 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
     result["console_errors"] = [ln for ln in console if re.search(r"ERROR|Uncaught|Failed to load|net::ERR", ln)]
     result["console"] = console
     return result
+
+
+_WIDTH_TAIL = """<script>window.addEventListener('load',function(){var t=Array.prototype.slice.call(
+document.querySelectorAll('table'));var out={scroll_width:document.documentElement.scrollWidth,
+client_width:document.documentElement.clientWidth,tables:t.map(function(e){var r=e.getBoundingClientRect();
+var p=e.parentElement.getBoundingClientRect();return {id:e.id,right:r.right,parent_right:p.right,
+width:r.width};})};var p=document.createElement('pre');p.id='__width';p.textContent=JSON.stringify(out);
+document.body.appendChild(p);});</script>"""
+
+
+def page_widths(html_path: str | os.PathLike, window_px: int = 1400, timeout_s: float = 90.0) -> dict:
+    """Lay ``html_path`` out in headless Chromium at ``window_px`` wide; return the page's scroll and client
+    widths and each table's right edge and width (CSS pixels)."""
+    exe = find_chromium()
+    if exe is None:
+        raise RuntimeError("no Chromium binary found")
+    html_path = Path(html_path)
+    text = html_path.read_text(encoding="utf-8").replace("</body>", _WIDTH_TAIL + "</body>", 1)
+    with tempfile.TemporaryDirectory() as tmp:
+        probe = html_path.with_name(".browser-width-" + html_path.name)
+        probe.write_text(text, encoding="utf-8")
+        try:
+            for budget_ms in (5000, 30000):
+                cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+                       "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                       "--disable-dev-shm-usage", f"--user-data-dir={tmp}", f"--window-size={window_px},1000",
+                       "--hide-scrollbars", f"--virtual-time-budget={budget_ms}", "--dump-dom", probe.resolve().as_uri()]
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
+                m = re.search(r'<pre id="__width">(.*?)</pre>', proc.stdout, re.S)
+                if m is not None:
+                    break
+        finally:
+            probe.unlink(missing_ok=True)
+    if m is None:
+        raise RuntimeError(f"Chromium gave no width result (exit {proc.returncode}); stderr tail:\n{proc.stderr[-2000:]}")
+    return json.loads(m.group(1).replace("&quot;", '"').replace("&lt;", "<").replace("&gt;", ">").replace("&amp;", "&"))

@@ -14,6 +14,7 @@ import importlib.metadata
 import io
 import json
 import math
+import os
 import re
 from pathlib import Path
 from types import SimpleNamespace
@@ -26,8 +27,19 @@ import pyogrio
 import pyproj
 import pytest
 
-from siting.errors import SitingError
-from siting.outputs import OutputBundle, atomic, compass_point, derive, element_count, element_pitch_m, layers, write_outputs
+from siting.errors import JobError, SitingError
+from siting.outputs import (
+    OutputBundle,
+    atomic,
+    check_output_folder,
+    compass_point,
+    derive,
+    element_count,
+    element_pitch_m,
+    layers,
+    planned_files,
+    write_outputs,
+)
 from siting.outputs import report as report_mod
 from tests import canonical
 from tests.browser import check_page, find_chromium
@@ -218,14 +230,14 @@ def test_site_weights_match_brute_force(bundle):
         others = {u for u, r in ref.items() if r["covers"] - {s.option_id}}
         assert s.exclusive_weight == pytest.approx(sum(w[u] for u in mine - others))
         assert s.shared_weight == pytest.approx(sum(w[u] for u in mine & others))
-        assert s.marginal_weight == pytest.approx(sum(w[u] for u in mine - seen))
+        assert s.weight_gained == pytest.approx(sum(w[u] for u in mine - seen))
         seen |= mine
-        cum += s.marginal_weight
-        assert s.cumulative_weight == pytest.approx(cum)
+        cum += s.weight_gained
+        assert s.cumulative_covered_weight == pytest.approx(cum)
     # the last cumulative weight is the covered weight after the plan
-    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    assert fig.sites["cumulative_covered_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
     # the test plan's own ranking (built by set arithmetic in make_bundle) agrees on the marginal weights
-    np.testing.assert_allclose(fig.sites["marginal_weight"], bundle.ranking["marginal_weight"])
+    np.testing.assert_allclose(fig.sites["weight_gained"], bundle.ranking["marginal_weight"])
 
 
 @pytest.mark.parametrize("az, name", [
@@ -336,7 +348,7 @@ def test_survey_csv_round_trip(out, bundle):
     np.testing.assert_allclose(csv["lat"], gj.geometry.y, atol=1e-7)
     assert "addr:postcode" in csv.columns and set(csv["addr:postcode"].astype(str)) <= {"10115", "10117"}
     for c in ("building_id", "facing", "facing_deg", "mount_height_m", "size_id", "elements", "cost",
-              "weight_gained", "cumulative_weight", "serving_bs_id", "backup_1_site_id", "backup_1_lon",
+              "weight_gained", "cumulative_covered_weight", "serving_bs_id", "backup_1_site_id", "backup_1_lon",
               "backup_2_lat", "notes"):
         assert c in csv.columns, c
     # backups: the spots named in the bundle, with the lon/lat pyproj gives them
@@ -496,7 +508,7 @@ def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
     write_outputs(tmp_path, make_bundle(random_state=3))
     before = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle(random_state=4))
     after = {p.name: p.read_bytes() for p in tmp_path.glob("*.geojson")}
     assert after == before  # previous complete files, none truncated
@@ -507,7 +519,7 @@ def test_failed_write_keeps_previous_file(tmp_path, monkeypatch):
 
 def test_failed_first_write_leaves_no_file(tmp_path, monkeypatch):
     monkeypatch.setattr(layers, "_dump_geojson", _half_then_fail(layers._dump_geojson))
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle())
     assert list(tmp_path.glob("*.geojson")) == [] and not (tmp_path / "run.json").exists()
     assert atomic.leftover_temp_files(tmp_path) == []
@@ -527,10 +539,10 @@ def test_failed_geopackage_write_keeps_previous(tmp_path, monkeypatch):
             raise OSError("disk full (injected)")
 
     monkeypatch.setattr(pyogrio, "write_dataframe", broken)
-    with pytest.raises(OSError, match="injected"):
+    with pytest.raises(SitingError, match="injected"):
         write_outputs(tmp_path, make_bundle(random_state=11, formats=("gpkg",)))
     assert (tmp_path / "plan.gpkg").read_bytes() == before
-    assert Path(calls[0]).parent == tmp_path and Path(calls[0]).name != "plan.gpkg"
+    assert Path(calls[0]).parent.parent == tmp_path and Path(calls[0]).name != "plan.gpkg"  # in the staging folder
     assert atomic.leftover_temp_files(tmp_path) == []
 
 
@@ -637,7 +649,7 @@ def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
     assert fig.summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"] - w[drop].sum())
     assert not fig.users["covered_after"].to_numpy()[drop].any()
     assert (fig.users["serving_site_id"].to_numpy()[drop] == -1).all()
-    assert fig.sites["cumulative_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
+    assert fig.sites["cumulative_covered_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
     assert any("load cap" in n for n in fig.notes)
     # without a cap in the parameters, plan.covered is not consulted
     b.params["surfaces"]["load_cap_weight"] = 0.0
@@ -959,3 +971,595 @@ def test_survey_csv_cells_cannot_run_as_formulas(tmp_path):
     assert set(csv["building_id"]) == {"b0", "b1"}  # both buildings carry chosen sites
     assert {"'=HYPERLINK(\"http://x\")", "'@SUM(A1)", "'-2+3", "plain"} == names
     assert pd.api.types.is_float_dtype(csv["lon"]) and (csv["lon"] > 0).all()  # numbers untouched
+
+
+# ------------------------------------------------------------------------------------------ complete sets
+
+def _snapshot(folder: Path) -> dict:
+    """Every file under ``folder`` (relative path -> bytes), hidden files included."""
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _visible(snap: dict) -> dict:
+    return {k: v for k, v in snap.items() if not k.startswith(".")}
+
+
+def _enospc_after(real, n_ok: int, calls: list):
+    """``real`` for the first ``n_ok`` calls, then a full disk (errno ENOSPC) halfway through a file."""
+    import errno
+
+    def broken(path, *args, **kw):
+        calls.append(Path(path))
+        if len(calls) > n_ok:
+            Path(path).write_bytes(b"half a file")
+            raise OSError(errno.ENOSPC, "No space left on device (injected)")
+        return real(path, *args, **kw)
+    return broken
+
+
+@pytest.mark.parametrize("n_ok", [0, 1, 3, 5])
+def test_a_failure_while_writing_leaves_the_previous_set(tmp_path, monkeypatch, n_ok):
+    """A disk that fills up after n_ok files of the new set: the folder keeps exactly the previous set."""
+    write_outputs(tmp_path, make_bundle(random_state=3))
+    (tmp_path / "my notes.txt").write_text("the user's own file")
+    before = _snapshot(tmp_path)
+    calls: list = []
+    monkeypatch.setattr(atomic, "write_with", _enospc_after(atomic.write_with, n_ok, calls))
+    with pytest.raises(SitingError, match="No space left") as err:
+        write_outputs(tmp_path, make_bundle(random_state=4, budget=900.0))
+    assert "previous set is left as it was" in str(err.value)
+    assert len(calls) == n_ok + 1 and all(p.parts[-2].startswith(atomic.STAGING_PREFIX) or
+                                          p.parts[-3].startswith(atomic.STAGING_PREFIX) for p in calls)
+    assert _snapshot(tmp_path) == before  # no new file, no staging folder, no temporary file left
+    assert atomic.leftover_temp_files(tmp_path) == []
+
+
+def test_a_failure_in_a_figure_leaves_no_partial_first_set(tmp_path, monkeypatch):
+    from siting.outputs import figures as figures_mod
+
+    def broken(*a, **kw):
+        raise RuntimeError("figure failed (injected)")
+    monkeypatch.setattr(figures_mod, "snr_cdf", broken)
+    with pytest.raises(RuntimeError, match="injected"):
+        write_outputs(tmp_path / "out", make_bundle())
+    assert _snapshot(tmp_path / "out") == {}
+
+
+def _kill_commit_after(monkeypatch, n_moves: int):
+    """Make the commit stop dead (as a SIGKILL would: no clean-up code runs) after ``n_moves`` renames."""
+    real = atomic.os.replace
+    count = [0]
+
+    class Killed(BaseException):
+        pass
+
+    def replace(src, dst):
+        if atomic.STAGING_PREFIX in str(src) and atomic.STAGING_PREFIX not in str(dst):  # a move into place
+            if count[0] >= n_moves:
+                raise Killed()
+            count[0] += 1
+        return real(src, dst)
+    monkeypatch.setattr(atomic.os, "replace", replace)
+    return Killed
+
+
+@pytest.mark.parametrize("n_moves", [0, 2, 6, 11])
+def test_a_commit_killed_midway_is_finished_by_the_next_run(tmp_path, monkeypatch, n_moves):
+    """Killed while the new set moves into place: no run.json marks the mixed folder complete, and the next
+    write into the folder first completes the interrupted set, giving exactly the new set."""
+    old_b, new_b = make_bundle(random_state=3), make_bundle(random_state=4, budget=900.0)
+    ref_new = tmp_path / "ref"
+    write_outputs(ref_new, new_b)
+    d = tmp_path / "out"
+    write_outputs(d, old_b)
+    killed = _kill_commit_after(monkeypatch, n_moves)
+    with pytest.raises(killed):
+        write_outputs(d, new_b)
+    monkeypatch.undo()
+    assert not (d / "run.json").exists() and (d / atomic.JOURNAL).exists()
+    assert atomic.recover(d) is True
+    got, ref = _visible(_snapshot(d)), _visible(_snapshot(ref_new))
+    assert sorted(got) == sorted(ref)
+    for name in ("surfaces.geojson", "demand.geojson", "survey.csv"):
+        assert got[name] == ref[name], name
+    assert json.loads(got["run.json"])["manifest"] == json.loads(ref["run.json"])["manifest"]
+    assert atomic.leftover_temp_files(d) == [] and not (d / atomic.JOURNAL).exists()
+
+
+def test_a_kill_before_the_commit_leaves_the_previous_set(tmp_path, monkeypatch):
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    before = _snapshot(d)
+
+    class Killed(BaseException):
+        pass
+    monkeypatch.setattr(atomic.OutputSet, "__exit__", lambda *a: None)  # a killed process cleans nothing up
+    monkeypatch.setattr(atomic.OutputSet, "commit", lambda self, files: (_ for _ in ()).throw(Killed()))
+    with pytest.raises(Killed):
+        write_outputs(d, make_bundle(random_state=4))
+    monkeypatch.undo()
+    assert _visible(_snapshot(d)) == _visible(before)  # only a hidden staging folder was added
+    assert atomic.recover(d) is False and _snapshot(d) == before
+
+
+def test_only_files_of_a_previous_run_are_replaced_or_removed(tmp_path):
+    d = tmp_path
+    b = make_bundle(formats=("geojson", "gpkg"), include_candidates=True)
+    write_outputs(d, b)
+    run = json.loads((d / "run.json").read_text())
+    man = run["manifest"]
+    assert man["complete"] is True and "run.json" in man["files"] and "plan.gpkg" in man["files"]
+    assert sorted(man["files"]) == sorted(p.relative_to(d).as_posix() for p in d.rglob("*") if p.is_file())
+    (d / "keep.txt").write_text("mine")
+    (d / "figures" / "my_photo.png").write_bytes(b"\x89PNG mine")
+    # a smaller set: the candidates layer, the GeoPackage and the sweep figure of the previous run go away
+    write_outputs(d, make_bundle(budget=900.0, sweep=None))
+    assert not (d / "plan.gpkg").exists() and not (d / "candidates.geojson").exists()
+    assert not (d / "figures" / "coverage_curve.png").exists()
+    assert (d / "keep.txt").read_text() == "mine" and (d / "figures" / "my_photo.png").exists()
+    # a tampered record cannot make a run remove a file outside the set's names or outside the folder
+    victim_out, victim_in = tmp_path.parent / f"{tmp_path.name}-victim.txt", d / "keep.txt"
+    victim_out.write_text("outside")
+    run = json.loads((d / "run.json").read_text())
+    run["manifest"]["files"] += [f"../{victim_out.name}", "keep.txt", "/etc/hostname"]
+    (d / "run.json").write_text(json.dumps(run))
+    write_outputs(d, make_bundle())
+    assert victim_out.read_text() == "outside" and victim_in.read_text() == "mine"
+    victim_out.unlink()
+
+
+def test_a_users_own_file_of_the_same_name_is_refused_then_allowed(tmp_path):
+    (tmp_path / "report.html").write_text("<p>my own report</p>")
+    with pytest.raises(SitingError, match=r"no siting run created there: report\.html"):
+        write_outputs(tmp_path, make_bundle())
+    assert (tmp_path / "report.html").read_text() == "<p>my own report</p>"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.html"]
+    write_outputs(tmp_path, make_bundle(), overwrite=True)
+    assert "my own report" not in (tmp_path / "report.html").read_text()
+
+
+def test_extra_files_join_the_set(tmp_path):
+    def graph(path):
+        Path(path).write_text("<graphml/>\n")
+    files = write_outputs(tmp_path, make_bundle(), extra_files={"los_graph": ("los_graph.graphml", graph)})
+    assert files["los_graph"] == tmp_path / "los_graph.graphml" and files["los_graph"].read_text() == "<graphml/>\n"
+    assert "los_graph.graphml" in json.loads((tmp_path / "run.json").read_text())["manifest"]["files"]
+    write_outputs(tmp_path, make_bundle())  # a rerun without it removes it: it was siting's
+    assert not (tmp_path / "los_graph.graphml").exists()
+
+
+# ------------------------------------------------------------------------------------------ output folder
+
+def test_output_folder_checks_accept_a_fresh_or_own_folder(tmp_path):
+    inputs = [tmp_path / "data" / "buildings.geojson"]
+    inputs[0].parent.mkdir()
+    inputs[0].write_text("{}")
+    assert check_output_folder(tmp_path / "out" / "new", inputs) == (tmp_path / "out" / "new").resolve()
+    write_outputs(tmp_path / "out", make_bundle())
+    (tmp_path / "out" / "unrelated.txt").write_text("x")  # other files do not matter
+    assert check_output_folder(tmp_path / "out", inputs) == (tmp_path / "out").resolve()
+
+
+@pytest.mark.parametrize("case, match", [
+    ("input_folder", "is the folder of the input"),
+    ("contains_input", "contains the input"),
+    ("is_input", "is the input"),
+    ("home", "is your home folder"),
+    ("root", "is the file-system root"),
+    ("file", "is an existing file"),
+    ("under_file", "is a file, not a folder"),
+    ("users_report", r"no siting run created there and that a run would replace: report\.html, survey\.csv"),
+    ("directory_named_like_output", r"would replace: run\.json"),
+])
+def test_output_folder_checks_refuse(tmp_path, monkeypatch, case, match):
+    data = tmp_path / "city" / "data"
+    data.mkdir(parents=True)
+    inp = data / "buildings.geojson"
+    inp.write_text("{}")
+    folder = {"input_folder": data, "contains_input": tmp_path / "city", "is_input": inp, "root": Path("/"),
+              "file": inp, "under_file": inp / "out"}.get(case, tmp_path / "out")
+    if case == "home":
+        monkeypatch.setenv("HOME", str(tmp_path / "out"))
+        (tmp_path / "out").mkdir()
+        folder = Path("~")
+    if case == "users_report":
+        (tmp_path / "out").mkdir()
+        (tmp_path / "out" / "report.html").write_text("mine")
+        (tmp_path / "out" / "survey.csv").write_text("mine")
+    if case == "directory_named_like_output":
+        (tmp_path / "out" / "run.json").mkdir(parents=True)
+    with pytest.raises(JobError, match=match) as err:
+        check_output_folder(folder, [inp])
+    msg = str(err.value)
+    assert "output.folder" in msg and ("choose another output.folder" in msg or "set output.folder" in msg
+                                       or "--overwrite" in msg), msg
+    if case == "users_report":  # --overwrite lifts only this refusal
+        check_output_folder(folder, [inp], overwrite=True)
+
+
+@pytest.mark.skipif(os.geteuid() == 0 if hasattr(os, "geteuid") else True,
+                    reason="root may write anywhere, so a read-only folder cannot be simulated")
+def test_output_folder_check_refuses_a_read_only_folder(tmp_path):
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o555)
+    try:
+        with pytest.raises(JobError, match="not writable"):
+            check_output_folder(ro, [])
+        with pytest.raises(JobError, match="cannot be created"):
+            check_output_folder(ro / "sub", [])
+    finally:
+        ro.chmod(0o755)
+
+
+def test_output_folder_check_refuses_what_os_access_denies(tmp_path, monkeypatch):
+    """The permission rule itself, for runs as root (where chmod cannot make a folder read-only)."""
+    real = os.access
+    monkeypatch.setattr(os, "access", lambda p, mode, **kw: False if Path(p) == tmp_path / "ro" else real(p, mode, **kw))
+    (tmp_path / "ro").mkdir()
+    with pytest.raises(JobError, match=r"'.*ro' is not writable by this user; fix its permissions"):
+        check_output_folder(tmp_path / "ro", [])
+
+
+def test_planned_files_match_what_is_written(tmp_path):
+    b = make_bundle(formats=("geojson", "gpkg"), include_candidates=True)
+    write_outputs(tmp_path, b)
+    written = sorted(p.relative_to(tmp_path).as_posix() for p in tmp_path.rglob("*") if p.is_file())
+    assert written == planned_files(("geojson", "gpkg"), True)
+
+
+_KILL_SCRIPT = """
+import os, signal, sys
+from pathlib import Path
+sys.path.insert(0, {root!r})
+from tests.test_outputs import make_bundle
+from siting.outputs import atomic, write_outputs
+real, n = os.replace, [0]
+def replace(src, dst):
+    n[0] += 1
+    if n[0] == {kill_at}:
+        os.kill(os.getpid(), signal.SIGKILL)
+    return real(src, dst)
+atomic.os.replace = replace
+write_outputs(Path({folder!r}), make_bundle(random_state=4, budget=900.0))
+print("finished", n[0])
+"""
+
+
+@pytest.mark.parametrize("kill_at", [2, 7, 13, 15, 19, 25])
+def test_sigkill_during_the_outputs_gives_the_old_or_the_new_set(tmp_path, kill_at):
+    """SIGKILL at several renames of the outputs (staging, journal, moves into place): the folder holds the
+    previous set, or, once the next run has recovered the interrupted commit, exactly the new set."""
+    import subprocess
+    import sys
+
+    old, new = tmp_path / "old", tmp_path / "new"
+    write_outputs(old, make_bundle(random_state=3))
+    write_outputs(new, make_bundle(random_state=4, budget=900.0))
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    root = str(Path(__file__).resolve().parents[1])
+    proc = subprocess.run([sys.executable, "-c", _KILL_SCRIPT.format(root=root, kill_at=kill_at, folder=str(d))],
+                          capture_output=True, text=True, timeout=300, check=False, env={**os.environ, "PYTHONPATH": root})
+    assert proc.returncode == -9, proc.stderr[-2000:]  # killed, never finished
+    complete = (d / "run.json").exists()
+    atomic.recover(d)
+    got = _visible(_snapshot(d))
+    canon = {k: v for k, v in got.items() if k.endswith((".geojson", ".csv"))}
+    old_set, new_set = _visible(_snapshot(old)), _visible(_snapshot(new))
+    matches = [name for name, ref in (("old", old_set), ("new", new_set))
+               if sorted(got) == sorted(ref) and canon == {k: v for k, v in ref.items() if k.endswith((".geojson", ".csv"))}]
+    assert matches, (kill_at, sorted(got))
+    if complete and matches == ["new"]:  # a run.json was in place at the kill: it was the new one, complete
+        assert json.loads(got["run.json"])["manifest"]["complete"] is True
+    assert atomic.leftover_temp_files(d) == []
+
+
+# ------------------------------------------------------------------------------------------ 3-D, ids, angles
+
+def test_three_d_footprints_do_not_break_the_figures(tmp_path):
+    """Footprints with x, y, z coordinates (and a multipolygon of them) are drawn by their x, y."""
+    import shapely
+    from shapely.geometry import MultiPolygon
+
+    b = make_bundle()
+    g3 = shapely.force_3d(b.buildings.geometry.to_numpy(), z=12.5)
+    g3[1] = MultiPolygon([g3[1], shapely.affinity.translate(g3[1], xoff=200.0)])
+    b.buildings = b.buildings.set_geometry(gpd.GeoSeries(g3, crs=b.buildings.crs))
+    assert b.buildings.has_z.all()
+    write_outputs(tmp_path, b)
+    two_d = tmp_path / "flat"
+    write_outputs(two_d, make_bundle())
+    img = matplotlib.image.imread(tmp_path / "figures" / "district_map.png")
+    assert img.shape[0] > 1000
+    assert (tmp_path / "survey.html").stat().st_size > 0 and (tmp_path / "run.json").exists()
+
+
+def test_ids_print_as_integers_and_facings_stay_below_360(tmp_path):
+    b = make_bundle()
+    sites = b.sites.copy()
+    # ids read from a numeric column of the input (an object column holding floats passes the contract)
+    sites["building_id"] = pd.Series([2106.0] * 5 + [2107.0] * 5 + [2106.0], dtype=object)
+    sites["normal_az_deg"] = np.r_[np.full(5, 359.97), np.full(5, -0.02), 360.0]
+    b.sites = sites
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv", dtype=str, keep_default_na=False)
+    assert set(csv["building_id"]) <= {"2106", "2107"}
+    assert set(csv["facing_deg"].astype(float)) == {0.0} and set(csv["facing"]) == {"N"}
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert all(0.0 <= s["facing_deg"] < 360.0 for s in run["sites"])
+    surv = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert "2106.0" not in surv and "360.0" not in surv and "2106" in surv
+    assert "2106.0" not in (tmp_path / "report.html").read_text(encoding="utf-8")
+    cand = json.loads((tmp_path / "surfaces.geojson").read_text())
+    assert {f["properties"]["building_id"] for f in cand["features"]} <= {"2106", "2107"}
+
+
+@pytest.mark.parametrize("az, shown", [(359.94, 359.9), (359.95, 0.0), (360.0, 0.0), (-0.04, 0.0), (-0.06, 359.9),
+                                        (720.25, 0.2), (180.0, 180.0)])
+def test_angle_folding(az, shown):
+    from siting.outputs.derive import angle_deg
+
+    got = float(angle_deg(az))
+    assert got == pytest.approx(shown, abs=1e-9) and 0.0 <= got < 360.0 and math.copysign(1, got) == 1
+
+
+# ------------------------------------------------------------------------------------------ survey pack
+
+def test_backups_tell_a_field_team_where_to_go(tmp_path):
+    b = make_bundle()
+    write_outputs(tmp_path, b)
+    fig = derive(b)
+    bk = fig.backups
+    assert len(bk) == len(b.backups)
+    # distance from the primary spot: plain Euclidean distance in the projected CRS (pyproj-free check)
+    for r in bk.itertuples():
+        prim = b.sites.iloc[r.site_id]
+        bs = b.sites.iloc[r.backup_site_id]
+        assert r.backup_distance_m == pytest.approx(math.hypot(bs.x - prim.x, bs.y - prim.y), abs=0.05)
+        assert r.backup_building_id == bs.building_id and r.same_building == (bs.building_idx == prim.building_idx)
+        assert r.backup_address == b.buildings["address"].iloc[bs.building_idx]
+        assert r.backup_mount_height_m == bs.z_m
+    # the optimiser's order is kept per site
+    for opt, g in b.backups.groupby("option", sort=False):
+        rank = int(fig.sites.loc[fig.sites.option_id == opt, "rank"].iloc[0])
+        assert list(bk.loc[bk["rank"] == rank, "backup_option_id"]) == list(g["backup_option"])
+    csv = pd.read_csv(tmp_path / "survey.csv", keep_default_na=False, na_values=[""])
+    for c in ("backup_1_building_id", "backup_1_address", "backup_1_distance_m", "backup_1_lon", "backup_1_lat",
+              "backup_2_distance_m", "backup_1_recovered_weight"):
+        assert c in csv.columns, c
+    html_text = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert html_text.count('class="backups"') == len(fig.sites)
+    assert "From primary" in html_text and "Canyon Street" in html_text
+
+
+def test_extra_backup_columns_are_shown_when_given(tmp_path):
+    b = make_bundle()
+    b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.8, 0.25),
+                                 weak=b.backups["backup_rank"] == 2)
+    write_outputs(tmp_path, b)
+    csv = pd.read_csv(tmp_path / "survey.csv")
+    assert set(csv["backup_1_recovered_share"]) == {0.8} and set(csv["backup_2_weak"]) == {True}
+    text = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert "recovered share 80 %" in text and "recovered share 25 %, weak" in text
+    assert json.loads((tmp_path / "run.json").read_text())["backups"][0]["recovered_share"] == 0.8
+
+
+def test_currency_beside_every_cost(tmp_path):
+    b = make_bundle(currency="EUR")
+    write_outputs(tmp_path, b)
+    html_text = (tmp_path / "report.html").read_text(encoding="utf-8")
+    figs = _html_key_figures(html_text)
+    assert figs["plan_cost"].endswith(" EUR") and figs["budget"].endswith(" EUR")
+    assert "Cost [EUR]" in html_text and "Budget [EUR]" in html_text
+    md = (tmp_path / "report.md").read_text(encoding="utf-8")
+    assert re.search(r"^\| Cost of the plan \| [\d.]+ EUR \|$", md, re.M)
+    csv = pd.read_csv(tmp_path / "survey.csv")
+    assert set(csv["currency"]) == {"EUR"}
+    surv = (tmp_path / "survey.html").read_text(encoding="utf-8")
+    assert len(re.findall(r"<th>cost</th><td>[\d.]+ EUR</td>", surv)) == len(csv)
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert run["summary"]["currency"] == "EUR"
+    # no currency given: "cost units", never a bare number
+    write_outputs(tmp_path / "plain", make_bundle())
+    assert _html_key_figures((tmp_path / "plain" / "report.html").read_text())["plan_cost"].endswith(" cost units")
+
+
+def test_one_name_per_quantity_and_the_cumulative_baseline(out):
+    d, _ = out
+    csv = pd.read_csv(d / "survey.csv")
+    surf = json.loads((d / "surfaces.geojson").read_text())["features"][0]["properties"]
+    run = json.loads((d / "run.json").read_text())
+    for cols in (list(csv.columns), list(surf), list(run["sites"][0])):
+        assert "weight_gained" in cols and "marginal_weight" not in cols and "cumulative_weight" not in cols
+        assert "cumulative_covered_weight" in cols
+    html_text = (d / "report.html").read_text(encoding="utf-8")
+    assert "Covered weight after this site (direct included)" in html_text
+    # the first row starts from the weight covered directly: cumulative = direct + weight gained
+    s = run["summary"]
+    first = run["sites"][0]
+    assert first["cumulative_covered_weight"] == pytest.approx(s["covered_weight_before"] + first["weight_gained"])
+    assert "direct included" in (d / "survey.html").read_text(encoding="utf-8")
+    assert "marginal_weight" in run["definitions"]["weight_gained"]  # the optimiser's name, for readers
+
+
+def test_demand_points_say_why_they_are_not_covered(out, bundle):
+    d, _ = out
+    ref = _brute_force(bundle)
+    dem = gpd.read_file(d / "demand.geojson")
+    target = TARGET_DB
+    for r in dem.itertuples():
+        st = ref[r.user_id]
+        if r.covered_before:
+            assert r.reason == "covered directly"
+        elif r.newly_covered:
+            assert r.reason == "covered by the plan"
+        elif st["serving_site_id"] >= 0:
+            # a surface serves it (better than direct) but not up to the target
+            assert r.reason.startswith("below target with the plan")
+            assert r.shortfall_db == pytest.approx(target - st["snr_plan_db"], abs=0.006)
+        else:
+            assert r.reason.startswith(("below target:", "no base station"))
+    below = dem["reason"].str.startswith("below target with the plan")
+    assert below.any()
+    run = json.loads((d / "run.json").read_text())
+    assert run["summary"]["n_users_below_target_with_plan"] == int(below.sum())
+    assert f"{int(below.sum())} demand point(s)" in (d / "report.html").read_text(encoding="utf-8")
+
+
+def test_coverage_rows_are_defined_in_run_json(out, bundle):
+    d, _ = out
+    run = json.loads((d / "run.json").read_text())
+    assert run["counts"]["coverage_rows"] == len(bundle.coverage)
+    assert run["counts"]["coverage_rows_at_target"] == int((bundle.coverage["snr_db"] >= TARGET_DB).sum())
+    assert "whatever the SNR" in run["definitions"]["counts.coverage_rows"]
+
+
+def test_repeated_notes_are_listed_once_with_a_count(tmp_path):
+    b = make_bundle(run_info={"notes": ["tile warning"] * 34 + ["other"]})
+    fig = derive(b)
+    assert fig.notes[:2] == ["tile warning (34 times)", "other"]
+
+
+# ------------------------------------------------------------------------------------------ print quality
+
+def test_report_map_is_print_ready(out, bundle):
+    """A4 landscape at >= 200 dpi, with scale bar, north arrow, CRS name, labelled stations and surfaces, the
+    facing arrows in the legend, and no two labels overlapping."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
+    from PIL import Image
+
+    from siting.outputs import figures as figures_mod
+
+    d, _ = out
+    with Image.open(d / "figures" / "district_map.png") as im:
+        w, h = im.size
+        dpi = im.info.get("dpi", (0, 0))[0]
+    # A4 is 297 x 210 mm (ISO 216); at 200 dpi its printable width (12 mm margins) is about 2150 px
+    assert dpi >= 199 and w >= 2000 and h >= 1400 and 1.3 < w / h < 1.6
+    fig = figures_mod.district_figure(bundle, derive(bundle))
+    ax = fig.axes[0]
+    assert any(isinstance(a, AnchoredSizeBar) for a in ax.artists)
+    texts = [t.get_text() for t in ax.texts] + [t.get_text() for t in fig.texts]
+    assert "N" in texts
+    crs = pyproj.CRS(bundle.crs)
+    caption = fig.texts[0].get_text()
+    assert crs.name in caption and "EPSG:32633" in caption and "grid north" in caption
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert any("facing" in t for t in legend) and any("base station" in t for t in legend)
+    placed = {str(t[2]) for t in fig.placed_labels}
+    assert set(bundle.base_stations["bs_id"]) <= placed  # every station labelled
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    labels = [t for t in ax.texts if t.get_text() and t.get_text() != "N"]
+    boxes = [t.get_window_extent(renderer) for t in labels]
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j]), (labels[i].get_text(), labels[j].get_text())
+
+
+def test_crowded_labels_are_moved_or_left_out_never_overlapping():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from siting.outputs.figures import place_labels
+
+    fig = Figure(figsize=(4, 3))
+    canvas = FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    ax.set_xlim(0, 100)
+    ax.set_ylim(0, 100)
+    rng = np.random.default_rng(5)
+    pts = rng.normal(50, 2.0, (40, 2))  # 40 labels on a 2 m spot
+    renderer = canvas.get_renderer()
+    shown = place_labels(ax, renderer, [(x, y, f"site {i}", {"fontsize": 8}) for i, (x, y) in enumerate(pts)])
+    assert 4 <= sum(shown) < 40
+    boxes = [t.get_window_extent(renderer) for t in ax.texts]
+    assert len(boxes) == sum(shown)
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j])
+
+
+@pytest.mark.parametrize("span, bar", [(640.0, 100.0), (120.0, 20.0), (5000.0, 1000.0), (37.0, 5.0), (9.0, 1.0)])
+def test_scale_bar_length_is_round(span, bar):
+    from siting.outputs.figures import nice_length
+
+    assert nice_length(span) == bar  # 1, 2 or 5 x 10^k, at most a fifth of the span (common practice)
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+def test_report_tables_fit_a_1400_px_page(tmp_path):
+    from tests.browser import page_widths
+
+    b = make_bundle(budget=2000.0, currency="EUR")
+    b.buildings = b.buildings.assign(name=["A building with a rather long name, " * 3, ""])
+    write_outputs(tmp_path, b)
+    for page in ("report.html", "survey.html"):
+        res = page_widths(tmp_path / page, 1400)
+        assert res["scroll_width"] <= 1400, (page, res["scroll_width"])
+        for t in res["tables"]:
+            assert t["right"] <= t["parent_right"] + 0.5, (page, t)  # no table wider than its column
+
+
+def test_building_paths_keep_holes_and_drop_z():
+    from matplotlib.path import Path as MPath
+    from shapely.geometry import LineString, MultiPolygon, Polygon
+
+    from siting.outputs.figures import _building_paths
+
+    courtyard = Polygon([(0, 0, 5), (10, 0, 5), (10, 10, 5), (0, 10, 5)], [[(4, 4, 5), (4, 6, 5), (6, 6, 5), (6, 4, 5)]])
+    two = MultiPolygon([Polygon([(20, 0), (21, 0), (21, 1)]), Polygon([(30, 0), (31, 0), (31, 1)])])
+    paths = _building_paths([courtyard, None, LineString([(0, 0), (1, 1)]), two], 1.0, 2.0)
+    assert len(paths) == 3  # the courtyard block and both parts; the line and the missing geometry skipped
+    p = paths[0]
+    assert p.vertices.shape == (10, 2)
+    np.testing.assert_array_equal(p.vertices[:5], np.array(courtyard.exterior.coords)[:, :2] - (1.0, 2.0))
+    np.testing.assert_array_equal(p.vertices[5:], np.array(courtyard.interiors[0].coords)[:, :2] - (1.0, 2.0))
+    assert list(p.codes) == [MPath.MOVETO, *[MPath.LINETO] * 3, MPath.CLOSEPOLY] * 2
+    # drawn, the courtyard stays empty (a hole wound against its exterior, as RFC 7946 section 3.1.6 asks)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.collections import PathCollection
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(1, 1), dpi=100)
+    canvas = FigureCanvasAgg(fig)
+    ax = fig.add_axes([0, 0, 1, 1])
+    ax.add_collection(PathCollection([p], facecolor="black", edgecolor="none"))
+    ax.set_xlim(-1, 9)
+    ax.set_ylim(-2, 8)
+    canvas.draw()
+    px = np.asarray(canvas.buffer_rgba())[..., 0]  # rows from the top; 10 px per metre
+    # shifted by (1, 2): (3, 1) lies in the block (black), (4, 3) is the courtyard centre (white)
+    assert px[100 - 30, 40] < 50 and px[100 - 50, 50] > 200
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="no Chromium installed (CI installs the Debian 'chromium' package)")
+def test_script_bearing_names_do_not_run_in_a_browser(tmp_path):
+    """Payloads in names, addresses and ids: were one written unescaped, the script would throw and the image
+    would fail to load, both caught by the page's error listener (tests/browser.py)."""
+    b = make_bundle(currency="<script>throw new Error('pwned currency')</script>")
+    b.buildings = b.buildings.assign(name=["<script>throw new Error('pwned')</script>", "<img src=x onerror=1>"],
+                                     address=["<svg onload=alert(1)>", "<iframe src=javascript:alert(2)>"])
+    b.backups = b.backups.assign(note="<script>throw new Error('pwned backup')</script>")
+    write_outputs(tmp_path, b)
+    for page in ("survey.html", "report.html"):
+        res = check_page(tmp_path / page)
+        assert res["errors"] == [] and res["console_errors"] == [], (page, res["errors"], res["console_errors"])
+        assert "pwned" not in " ".join(res["console"])
+
+
+def test_a_second_run_into_a_busy_folder_is_refused(tmp_path):
+    """While one run holds the folder, another gets a clear error and the first run's staging is untouched."""
+    d = tmp_path / "out"
+    write_outputs(d, make_bundle(random_state=3))
+    before = _snapshot(d)
+    with atomic.folder_lock(d):
+        staging = d / f"{atomic.STAGING_PREFIX}busy"
+        staging.mkdir()  # the first run's work in progress
+        with pytest.raises(SitingError, match="being written by another siting run"):
+            write_outputs(d, make_bundle(random_state=4))
+        assert staging.is_dir()
+        staging.rmdir()
+    assert _snapshot(d) == before
+    write_outputs(d, make_bundle(random_state=4))  # free again

@@ -6,23 +6,30 @@
 =========================  =================================================================================
 ``surfaces.geojson``       chosen surfaces (points, rank order) with the survey fields
 ``surface_walls.geojson``  each chosen panel as a short line along its wall, as long as the panel is wide
-``demand.geojson``         demand points: direct SNR, SNR with the plan, covered before / after, serving site
+``demand.geojson``         demand points: direct SNR, SNR with the plan, covered before / after, serving site,
+                           why a point is not covered (``reason``, ``shortfall_db``)
 ``links.geojson``          base station -> surface -> served user lines
 ``candidates.geojson``     every candidate spot considered (only with ``include_candidates``)
 ``plan.gpkg``              all of the above as GeoPackage layers (only when ``formats`` has ``"gpkg"``)
 ``survey.csv``             the survey list, one row per chosen site in rank order
-``survey.html``            printable survey list with a small map per site
+``survey.html``            printable survey list (A4): a small map per site, backups with building, address,
+                           wall, height and distance from the primary spot
 ``report.html``            self-contained report (figures embedded, no scripts, no network)
-``report.md``              the same report in Markdown, figures in ``figures/*.png``
-``run.json``               every figure, the parameters, input hashes, timings and versions (written last)
+``report.md``              the same report in Markdown, figures in ``figures/*.png`` (the map at A4, 200 dpi)
+``run.json``               every figure, the parameters, input hashes, timings, versions, the definitions of
+                           its less obvious names and the ``manifest`` of the set (moved into place last)
 =========================  =================================================================================
 
-Each file is written to a temporary file in the same folder and renamed into place, so a reader never sees
-a half-written file; ``run.json`` is written last, so its presence marks a complete set.
+The set is complete or absent: every file is first written into a staging folder inside ``out_dir``, and
+moved into place only when all of them are written; ``run.json`` is moved last and lists in ``manifest`` the
+files of the set, the only files a later run replaces or removes (see :mod:`siting.outputs.atomic`).  A run
+that fails, is killed or runs out of disk while writing leaves the previous set as it was.
+:func:`check_output_folder` refuses unsafe output folders before a run starts.
 """
 
 from __future__ import annotations
 
+import json
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,11 +39,13 @@ import pandas
 import pyproj
 
 from ..errors import SitingError
-from . import atomic, figures, layers, report, survey
+from . import atomic, figures, folder, layers, report, survey
 from .derive import PlanFigures, compass_point, derive, element_count, element_pitch_m
+from .folder import check_output_folder, output_folder_problems, planned_files
 
 __all__ = ["OutputBundle", "PlanFigures", "write_outputs", "derive", "compass_point", "element_count",
-           "element_pitch_m", "FORMATS"]
+           "element_pitch_m", "FORMATS", "check_output_folder", "output_folder_problems",
+           "planned_files"]
 
 FORMATS = ("geojson", "gpkg")
 
@@ -67,9 +76,10 @@ class OutputBundle:
     """has: chosen (option ids in rank order), objective, bound, gap, status, solver, cost, message,
     greedy_objective, timings_s, model_size"""
     ranking: pandas.DataFrame
-    """option, rank, marginal_weight, cumulative_weight, exclusive_weight, shared_weight"""
+    """option, rank (only these are read; the weights are recomputed and printed as ``weight_gained``)"""
     backups: pandas.DataFrame
-    """option, backup_rank, backup_option, recovered_weight"""
+    """option, backup_rank, backup_option, recovered_weight, in the order to show; any further column (e.g.
+    recovered_share, weak) is shown as given"""
     sweep: pandas.DataFrame | None
     """budget, covered_weight, bound, gap, cost, n_sites, status"""
     snr_target_db: float
@@ -88,6 +98,8 @@ class OutputBundle:
     """one row per chosen option: option_id, feed_bs_idx (-1 none), feed_below_peak_db, back_lobe_feed,
     guessed_height_links, exposure_w_m2, exposure_where, exposure_reference_w_m2, exposure_share
     (see :data:`siting.outputs.derive.SITE_CHECK_COLUMNS`); None when not computed"""
+    currency: str = ""
+    """currency of every cost (e.g. "EUR"); empty: costs print in "cost units" """
     sensitivity: pandas.DataFrame | None = None
     """model, covered_weight, covered_directly_weight: the chosen plan under the planning model, each planning
     assumption relaxed alone and the upper-bound model; None when not computed"""
@@ -103,62 +115,123 @@ def _check_formats(formats) -> tuple:
     return tuple(formats)
 
 
-def write_outputs(out_dir, bundle: OutputBundle) -> dict:
-    """Write every output of a plan into ``out_dir``; return ``{name: path}`` of the files written.
+def write_outputs(out_dir, bundle: OutputBundle, *, extra_files: dict | None = None,
+                  overwrite: bool = False) -> dict:
+    """Write every output of a plan into ``out_dir`` as one complete set; return ``{name: path}`` of its files.
 
     All figures are computed (and the bundle checked) before the first file is touched, so a bad bundle
-    raises :class:`~siting.errors.SitingError` and leaves ``out_dir`` as it was.  ``run.json`` is written last.
+    raises :class:`~siting.errors.SitingError` and leaves ``out_dir`` as it was.  The whole set is written
+    into a staging folder first and moved into place only when every file is written (see
+    :mod:`siting.outputs.atomic`): a failure or a full disk while writing leaves the previous set as it was,
+    and ``run.json`` (moved last) lists in ``manifest`` the files this run created, the only files a later
+    run replaces or removes.
+
+    Parameters
+    ----------
+    out_dir : the output folder (created when missing).
+    bundle : the plan and every table (see :class:`OutputBundle`).
+    extra_files : ``{name: (relative path, writer)}`` for further files of the set; ``writer(path)`` writes
+        the file at ``path`` (e.g. the runner's LOS graph: ``{"los_graph": ("los_graph.graphml", fn)}``).
+    overwrite : replace files of the set's names that no siting run created (default: refuse, naming them).
     """
     t_start = time.perf_counter()
     formats = _check_formats(bundle.formats)
+    extra = dict(extra_files or {})
     fig = derive(bundle)
     t = {"derive": time.perf_counter() - t_start}
     out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise SitingError(f"output folder: expected a folder at '{out}', found a file; remove or rename the file, "
+                          "or choose another output.folder")
     try:
-        (out / "figures").mkdir(parents=True, exist_ok=True)
+        out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
-                          "choose another outputs.folder or fix its permissions") from exc
-    written: dict[str, Path] = {}
+                          "choose another output.folder or fix its permissions") from exc
+    with atomic.folder_lock(out):
+        rel = _write_locked(out, bundle, fig, formats, extra, overwrite, t, t_start)
+    return {k: out / v for k, v in rel.items()}
+
+
+def _write_locked(out: Path, bundle, fig, formats, extra, overwrite, t, t_start) -> dict:
+    """Recover an interrupted commit, refuse foreign files, then stage and commit the set (folder locked)."""
+    extra_names = [rel for rel, _ in extra.values()]
+    allowed = lambda rel: folder.siting_name(rel, extra_names)  # noqa: E731
+    try:
+        atomic.recover(out, allowed)
+    except OSError as exc:
+        raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
+                          "choose another output.folder or fix its permissions") from exc
+    names = folder.planned_files(formats, bundle.include_candidates, extra_names)
+    clash = [] if overwrite else folder.foreign_files(out, names)
+    if clash:
+        raise SitingError(f"output folder '{out}' holds files that no siting run created there: {', '.join(clash)}; "
+                          "move them away, choose another output.folder, or allow it with --overwrite")
+    try:
+        with atomic.OutputSet(out, allowed) as st:
+            rel = _write_set(st, bundle, fig, formats, extra, t, t_start)
+            st.commit(list(rel.values()))
+    except OSError as exc:
+        raise SitingError(f"output folder '{out}': writing the output set failed ({exc.strerror or exc}); the "
+                          "previous set is left as it was; free disk space or fix the folder's permissions and "
+                          "run again") from exc
+    return rel
+
+
+def _write_set(st, bundle, fig, formats, extra, t, t_start) -> dict:
+    """Write every file of the set into the staging folder; return ``{name: relative path}``, run.json last."""
+    rel: dict[str, str] = {}
+
+    def put(name: str, path: str, write) -> None:
+        write(st.path(path))
+        rel[name] = path
 
     t0 = time.perf_counter()
     lay = layers.build_layers(bundle, fig)
     if "geojson" in formats:
         for layer in lay:
-            written[f"{layer.name}_geojson"] = layers.write_geojson(out / f"{layer.name}.geojson", layer)
+            put(f"{layer.name}_geojson", f"{layer.name}.geojson", lambda p, la=layer: layers.write_geojson(p, la))
     if "gpkg" in formats:
-        written["gpkg"] = layers.write_gpkg(out / "plan.gpkg", lay)
+        put("gpkg", "plan.gpkg", lambda p: layers.write_gpkg(p, lay))
     t["layers"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
     frame = survey.survey_frame(bundle, fig)
-    written["survey_csv"] = survey.write_survey_csv(out / "survey.csv", frame)
-    written["survey_html"] = atomic.write_text(out / "survey.html", survey.survey_html(bundle, fig, frame, bundle.title))
+    put("survey_csv", "survey.csv", lambda p: survey.write_survey_csv(p, frame))
+    put("survey_html", "survey.html",
+        lambda p: atomic.write_text(p, survey.survey_html(bundle, fig, frame, bundle.title)))
     t["survey"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
     pngs = {"district_map": figures.district_map(bundle, fig),
-            "coverage_curve": figures.coverage_curve(bundle.sweep, fig.summary),
+            "coverage_curve": figures.coverage_curve(bundle.sweep, fig.summary, currency=bundle.currency),
             "snr_cdf": figures.snr_cdf(fig, float(bundle.snr_target_db))}
     figure_files = {}
     for name, png in pngs.items():
         if png is not None:
-            written[f"figure_{name}"] = atomic.write_bytes(out / "figures" / f"{name}.png", png)
+            put(f"figure_{name}", f"figures/{name}.png", lambda p, data=png: atomic.write_bytes(p, data))
             figure_files[name] = f"figures/{name}.png"
     t["figures"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
-    rel = {k: str(Path(v).relative_to(out)) for k, v in written.items()}
-    rel.update(report_html="report.html", report_md="report.md", run_json="run.json")
-    record = report.run_record(bundle, fig, rel, t)
-    written["report_html"] = atomic.write_text(out / "report.html", report.report_html(bundle, fig, pngs, record))
-    written["report_md"] = atomic.write_text(out / "report.md", report.report_md(bundle, fig, figure_files, record))
+    for name, (path, writer) in extra.items():
+        put(name, path, writer)
+    if extra:
+        t["extra_files"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    files = dict(rel, report_html="report.html", report_md="report.md", run_json="run.json")
+    record = report.run_record(bundle, fig, files, t)
+    put("report_html", "report.html", lambda p: atomic.write_text(p, report.report_html(bundle, fig, pngs, record)))
+    put("report_md", "report.md",
+        lambda p: atomic.write_text(p, report.report_md(bundle, fig, figure_files, record)))
     t["report"] = time.perf_counter() - t0
     t["total"] = time.perf_counter() - t_start
     record["timings_s"].update({f"outputs.{k}": v for k, v in t.items()})
+    record["manifest"] = {"complete": True, "created_by": "siting",
+                          "note": "the files of this output set; a later run replaces or removes only these",
+                          "files": sorted([*rel.values(), "run.json"])}
 
-    import json
-
-    written["run_json"] = atomic.write_text(out / "run.json", json.dumps(record, indent=1, allow_nan=False,
-                                                                         ensure_ascii=False) + "\n")
-    return written
+    put("run_json", "run.json", lambda p: atomic.write_text(
+        p, json.dumps(record, indent=1, allow_nan=False, ensure_ascii=False) + "\n"))
+    return rel

@@ -19,8 +19,12 @@ Rules (from the plan's coverage relation)
   fed from a station's back lobe or some of its links depend on guessed building heights.
 * For a chosen site: *exclusive weight* is the newly covered weight that no other chosen site reaches at
   the target, *shared weight* the newly covered weight it reaches together with other chosen sites;
-  *marginal weight* is what it adds in rank order, and *cumulative weight* the covered weight (direct
-  included) after the sites up to it.
+  *weight gained* (``weight_gained``; the optimiser's ranking calls it ``marginal_weight``) is the newly covered
+  weight it adds in rank order, and *cumulative covered weight* (``cumulative_covered_weight``) the covered
+  weight after the sites up to it, the weight covered directly included.
+* A demand point's ``reason`` says why it is or is not covered: covered directly, covered by the plan, below
+  the target with the plan (a chosen surface improves it, not enough), left out by the load cap, no chosen
+  surface reaches it, or no base station in range.
 """
 
 from __future__ import annotations
@@ -70,6 +74,40 @@ def element_count(width_m, height_m, pitch_m: float) -> np.ndarray:
     return (np.floor(w * (1 + 1e-9)) * np.floor(h * (1 + 1e-9))).astype(np.int64)
 
 
+def text_values(values) -> np.ndarray:
+    """Ids and names from input data as text: missing -> "", integral numbers without a decimal point
+    (``2106``, not ``2106.0``), everything else as ``str``."""
+    arr = pd.Series(values, dtype=object) if not isinstance(values, pd.Series) else values
+    if pd.api.types.is_integer_dtype(arr.dtype) or pd.api.types.is_bool_dtype(arr.dtype):
+        return arr.astype(str).to_numpy(object)
+
+    def one(v):
+        if v is None or v is pd.NA:
+            return ""
+        if isinstance(v, (float, np.floating)):
+            if not np.isfinite(v):
+                return "" if np.isnan(v) else str(v)
+            return str(int(v)) if float(v).is_integer() and abs(v) < 2 ** 63 else repr(float(v))
+        if isinstance(v, (int, np.integer)):
+            return str(int(v))
+        return str(v)
+    return np.asarray([one(v) for v in arr.to_numpy(object)], dtype=object)
+
+
+def angle_deg(az_deg, decimals: int = 1) -> np.ndarray:
+    """Azimuths rounded to ``decimals`` and folded into [0, 360): 359.97 prints as 0.0, never as 360.0."""
+    a = np.round(np.mod(np.asarray(az_deg, dtype=float), 360.0), decimals)
+    return np.where(a >= 360.0, a - 360.0, a) + 0.0  # + 0.0 turns -0.0 into 0.0
+
+
+def dedupe_notes(notes) -> list[str]:
+    """Each distinct note once, in first-seen order, with a count when it repeats."""
+    counts: dict[str, int] = {}
+    for n in notes or []:
+        counts[str(n)] = counts.get(str(n), 0) + 1
+    return [n if c == 1 else f"{n} ({c} times)" for n, c in counts.items()]
+
+
 def to_lonlat(crs, x, y) -> tuple[np.ndarray, np.ndarray]:
     """Projected x, y [m] -> WGS84 longitude, latitude [deg], rounded to 7 decimals (about 1 cm)."""
     lon, lat = district_to_lonlat(x, y, crs)
@@ -110,7 +148,8 @@ class PlanFigures:
     users: pd.DataFrame
     """one row per user: user_id, x, y, lon, lat, kind, weight, snr_direct_db, snr_plan_db, covered_before,
     covered_after, newly_covered, direct_bs_id, serving_option_id (-1 none), serving_site_id (-1 none),
-    serving_rank (0 none), serving_bs_idx (-1 none)"""
+    serving_rank (0 none), serving_bs_idx (-1 none), reason (see :data:`REASONS`), shortfall_db (target minus
+    SNR with the plan when not covered, else NaN)"""
     sites: pd.DataFrame
     """one row per chosen site in rank order (see :data:`SITE_COLUMNS`)"""
     by_kind: pd.DataFrame
@@ -119,7 +158,10 @@ class PlanFigures:
     links: pd.DataFrame
     """served (surface, user) pairs: rank, option_id, site_id, user_id, bs_idx, bs_id, snr_db"""
     backups: pd.DataFrame
-    """rank, site_id, backup_rank, backup_option_id, backup_site_id, backup_lon, backup_lat, recovered_weight"""
+    """rank, site_id, backup_rank, backup_option_id, backup_site_id, backup_lon, backup_lat, recovered_weight,
+    backup_building_id, backup_name, backup_address, backup_facing_deg, backup_facing, backup_mount_height_m,
+    backup_size_id, backup_distance_m (horizontal, from the primary spot), same_building, and any further column
+    of the optimiser's table (e.g. recovered_share, weak) as given; in the optimiser's order per site"""
     candidates: pd.DataFrame
     """every candidate spot: site_id, building_id, lon, lat, facing_deg, facing, mount_height_m,
     wall_free_m, source, n_options, chosen"""
@@ -132,11 +174,35 @@ class PlanFigures:
 SITE_COLUMNS = (
     "rank", "site_id", "option_id", "lon", "lat", "x", "y", "building_id", "name", "address",
     "facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
-    "cost", "marginal_weight", "exclusive_weight", "shared_weight", "cumulative_weight", "cumulative_share",
+    "cost", "weight_gained", "exclusive_weight", "shared_weight", "cumulative_covered_weight",
+    "cumulative_covered_share",
     "n_users_served", "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "wall_free_m",
     "feed_bs_id", "feed_below_peak_db", "back_lobe_feed", "guessed_height_links", "exposure_w_m2",
     "exposure_where", "exposure_reference_w_m2", "exposure_share", "notes",
 )
+
+#: Columns of the optimiser's backup table that :func:`derive` reads; any further column is passed through.
+BACKUP_INPUT_COLUMNS = ("option", "backup_rank", "backup_option", "recovered_weight")
+
+#: Why a demand point is or is not covered (the demand layer's ``reason``), in the order they are decided.
+REASONS = {
+    "direct": "covered directly",
+    "plan": "covered by the plan",
+    "load_cap": "reaches the target, but the load cap leaves no room on the surface",
+    "below": "below target with the plan: a chosen surface improves it, not enough",
+    "direct_better": "below target: its direct path beats every chosen surface",
+    "unreached": "below target: no chosen surface reaches it",
+    "no_signal": "no base station in range",
+}
+
+
+def _reasons(before, newly, left_out, served, reached, has_signal) -> np.ndarray:
+    """The ``reason`` of every demand point (see :data:`REASONS`)."""
+    return np.select(
+        [before, newly, left_out, served, reached, ~has_signal],
+        [REASONS["direct"], REASONS["plan"], REASONS["load_cap"], REASONS["below"], REASONS["direct_better"],
+         REASONS["no_signal"]], REASONS["unreached"]).astype(object)
+
 
 #: Columns of the runner's per-surface field checks (``OutputBundle.site_checks``), one row per chosen option.
 SITE_CHECK_COLUMNS = ("option_id", "feed_bs_idx", "feed_below_peak_db", "back_lobe_feed", "guessed_height_links",
@@ -322,6 +388,7 @@ def derive(b) -> PlanFigures:
     reach = best_snr >= target
     # with a per-surface load cap the optimiser assigns users to surfaces; only its 'covered' users are served
     assigned = np.ones(n_users, dtype=bool)
+    left_out = np.zeros(n_users, dtype=bool)
     plan_cov = _plan_attr(b.plan, "covered", None)
     if _load_cap(b.params) and plan_cov is not None and len(plan_cov) == n_users:
         assigned = np.asarray(plan_cov, dtype=bool)
@@ -342,7 +409,7 @@ def derive(b) -> PlanFigures:
     serving_bs = np.where(served, best_bs, -1)
 
     lon_u, lat_u = to_lonlat(b.crs, users["x"], users["y"])
-    bs_ids = b.base_stations["bs_id"].astype(str).to_numpy()
+    bs_ids = text_values(b.base_stations["bs_id"])
 
     def bs_name(idx):
         idx = np.asarray(idx, dtype=np.int64)
@@ -356,6 +423,8 @@ def derive(b) -> PlanFigures:
         "covered_after": after, "newly_covered": newly, "direct_bs_id": bs_name(direct_bs),
         "serving_option_id": serving_opt, "serving_site_id": serving_site, "serving_rank": serving_rank,
         "serving_bs_idx": serving_bs,
+        "reason": _reasons(before, newly, left_out, served, best_opt >= 0, np.isfinite(snr_direct) | (best_opt >= 0)),
+        "shortfall_db": np.where(after | ~np.isfinite(snr_plan), np.nan, np.round(target - snr_plan, 2)),
     })
 
     # which chosen sites reach which not-yet-covered users at the target (deduplicated pairs)
@@ -389,9 +458,15 @@ def derive(b) -> PlanFigures:
     lon_s, lat_s = to_lonlat(b.crs, s["x"], s["y"])
     bld = b.buildings.reset_index(drop=True)
     bidx = s["building_idx"].to_numpy(np.int64)
-    okb = (bidx >= 0) & (bidx < len(bld))
-    name = np.where(okb, bld["name"].astype(str).to_numpy()[np.clip(bidx, 0, max(len(bld) - 1, 0))], "") if len(bld) else np.full(k, "")
-    addr = np.where(okb, bld["address"].astype(str).to_numpy()[np.clip(bidx, 0, max(len(bld) - 1, 0))], "") if len(bld) else np.full(k, "")
+    bld_name, bld_addr = text_values(bld["name"]), text_values(bld["address"])
+
+    def bld_text(vals, idx):
+        idx = np.asarray(idx, dtype=np.int64)
+        if not len(bld):
+            return np.full(len(idx), "", dtype=object)
+        ok = (idx >= 0) & (idx < len(bld))
+        return np.where(ok, vals[np.clip(idx, 0, len(bld) - 1)], "").astype(object)
+    name, addr = bld_text(bld_name, bidx), bld_text(bld_addr, bidx)
 
     su = u[u["serving_rank"] > 0]
     gain = su["snr_plan_db"] - su["snr_direct_db"]
@@ -424,12 +499,33 @@ def derive(b) -> PlanFigures:
             "backup_rank": bk["backup_rank"].to_numpy(np.int64), "backup_option_id": bk["backup_option"].to_numpy(np.int64),
             "backup_site_id": bsite, "backup_lon": blon, "backup_lat": blat,
             "recovered_weight": bk["recovered_weight"].to_numpy(float) if "recovered_weight" in bk else np.nan,
-        }).sort_values(["rank", "backup_rank"], kind="stable").reset_index(drop=True)
+        })
+        # where the backup is, for a field team: its building, wall, height and distance from the primary
+        prim = options["site_id"].to_numpy(np.int64)[bk["option"].to_numpy(np.int64)]
+        sx, sy = sites["x"].to_numpy(float), sites["y"].to_numpy(float)
+        bb = sites["building_idx"].to_numpy(np.int64)[bsite]
+        bface = angle_deg(sites["normal_az_deg"].to_numpy(float)[bsite])
+        backups = backups.assign(
+            backup_building_id=text_values(sites["building_id"].iloc[bsite].reset_index(drop=True)),
+            backup_name=bld_text(bld_name, bb), backup_address=bld_text(bld_addr, bb),
+            backup_facing_deg=bface, backup_facing=compass_point(bface),
+            backup_mount_height_m=sites["z_m"].to_numpy(float)[bsite],
+            backup_size_id=text_values(options["size_id"].iloc[bk["backup_option"].to_numpy(np.int64)].reset_index(drop=True)),
+            backup_distance_m=np.round(np.hypot(sx[bsite] - sx[prim], sy[bsite] - sy[prim]), 1),
+            same_building=sites["building_idx"].to_numpy(np.int64)[bsite] == sites["building_idx"].to_numpy(np.int64)[prim],
+        )
+        for c in bk.columns:  # further columns of the optimiser (e.g. a recovered share, a weak flag), as given
+            if c not in BACKUP_INPUT_COLUMNS and c not in backups.columns:
+                backups[c] = bk[c].to_numpy()
+        backups = backups.sort_values(["rank", "backup_rank"], kind="stable").reset_index(drop=True)
     else:
         backups = pd.DataFrame({c: pd.Series(dtype=t) for c, t in (
             ("rank", "int64"), ("site_id", "int64"), ("backup_rank", "int64"), ("backup_option_id", "int64"),
             ("backup_site_id", "int64"), ("backup_lon", "float64"), ("backup_lat", "float64"),
-            ("recovered_weight", "float64"))})
+            ("recovered_weight", "float64"), ("backup_building_id", "object"), ("backup_name", "object"),
+            ("backup_address", "object"), ("backup_facing_deg", "float64"), ("backup_facing", "object"),
+            ("backup_mount_height_m", "float64"), ("backup_size_id", "object"), ("backup_distance_m", "float64"),
+            ("same_building", "bool"))})
     backup_ids = backups.groupby("rank")["backup_site_id"].agg(lambda v: ";".join(str(i) for i in v))
     backup_ids = backup_ids.reindex(np.arange(1, k + 1), fill_value="").to_numpy(object)
 
@@ -447,17 +543,17 @@ def derive(b) -> PlanFigures:
             site_notes[i].append(f"{int(n_guess)} link(s) depend on guessed building heights: measure those "
                                  "heights")
     site_notes = np.asarray(["; ".join(n) for n in site_notes] if k else [], dtype=object)
-    facing = np.mod(s["normal_az_deg"].to_numpy(float), 360.0)
+    facing = angle_deg(s["normal_az_deg"].to_numpy(float))
     sites_out = pd.DataFrame({
         "rank": np.arange(1, k + 1), "site_id": s["site_id"].to_numpy(np.int64), "option_id": chosen,
         "lon": lon_s, "lat": lat_s, "x": s["x"].to_numpy(float), "y": s["y"].to_numpy(float),
-        "building_id": s["building_id"].astype(str).to_numpy(), "name": name.astype(object), "address": addr.astype(object),
-        "facing_deg": np.round(facing, 1), "facing": compass_point(facing), "mount_height_m": s["z_m"].to_numpy(float),
-        "size_id": o["size_id"].astype(str).to_numpy(), "width_m": width, "height_m": height,
+        "building_id": text_values(s["building_id"]), "name": name, "address": addr,
+        "facing_deg": facing, "facing": compass_point(facing), "mount_height_m": s["z_m"].to_numpy(float),
+        "size_id": text_values(o["size_id"]), "width_m": width, "height_m": height,
         "area_m2": width * height, "elements": elements, "cost": o["cost"].to_numpy(float),
-        "marginal_weight": marginal, "exclusive_weight": excl, "shared_weight": shared,
-        "cumulative_weight": cumulative,
-        "cumulative_share": np.round(cumulative / total_w, 6) if total_w > 0 else np.zeros(k),
+        "weight_gained": marginal, "exclusive_weight": excl, "shared_weight": shared,
+        "cumulative_covered_weight": cumulative,
+        "cumulative_covered_share": np.round(cumulative / total_w, 6) if total_w > 0 else np.zeros(k),
         "n_users_served": n_served, "served_weight": w_served, "median_snr_gain_db": np.round(med_gain, 2),
         "serving_bs_id": bs_name(feed), "backup_site_ids": backup_ids, "wall_free_m": wall_free,
         **checks, "notes": site_notes,
@@ -485,10 +581,10 @@ def derive(b) -> PlanFigures:
     lon_c, lat_c = to_lonlat(b.crs, sites["x"], sites["y"])
     chosen_sites = np.zeros(len(sites), dtype=bool)
     chosen_sites[o["site_id"].to_numpy(np.int64)] = True
-    cand_facing = np.mod(sites["normal_az_deg"].to_numpy(float), 360.0)
+    cand_facing = angle_deg(sites["normal_az_deg"].to_numpy(float))
     candidates = pd.DataFrame({
-        "site_id": sites["site_id"].to_numpy(np.int64), "building_id": sites["building_id"].astype(str).to_numpy(),
-        "lon": lon_c, "lat": lat_c, "facing_deg": np.round(cand_facing, 1), "facing": compass_point(cand_facing),
+        "site_id": sites["site_id"].to_numpy(np.int64), "building_id": text_values(sites["building_id"]),
+        "lon": lon_c, "lat": lat_c, "facing_deg": cand_facing, "facing": compass_point(cand_facing),
         "mount_height_m": sites["z_m"].to_numpy(float), "wall_free_m": sites["wall_free_m"].to_numpy(float),
         "source": sites["source"].astype(str).to_numpy(),
         "n_options": np.bincount(options["site_id"].to_numpy(np.int64), minlength=len(sites)),
@@ -496,6 +592,14 @@ def derive(b) -> PlanFigures:
     })
 
     summary = _summary(b, u, sites_out, target, total_w, w_before, notes)
+    below = (u["reason"] == REASONS["below"]).to_numpy(bool)
+    summary["n_users_below_target_with_plan"] = int(below.sum())
+    summary["weight_below_target_with_plan"] = float(weight[below].sum())
+    summary["median_shortfall_db_with_plan"] = float(np.median(u["shortfall_db"].to_numpy(float)[below])) if below.any() else None
+    summary["currency"] = currency_label(getattr(b, "currency", ""))
+    cov_snr = b.coverage["snr_db"].to_numpy(float)
+    summary["n_coverage_rows"] = int(len(cov_snr))
+    summary["n_coverage_rows_at_target"] = int((cov_snr >= target).sum())
     known = getattr(b, "site_checks", None) is not None
     summary["site_checks_computed"] = known
     summary["n_back_lobe_feeds"] = int(sites_out["back_lobe_feed"].fillna(False).sum()) if known else None
@@ -503,7 +607,7 @@ def derive(b) -> PlanFigures:
     share = sites_out["exposure_share"].to_numpy(float)
     summary["max_exposure_share"] = float(np.nanmax(share)) if np.isfinite(share).any() else None
     return PlanFigures(users=u, sites=sites_out, by_kind=by_kind, links=links, backups=backups,
-                       candidates=candidates, summary=summary, notes=notes,
+                       candidates=candidates, summary=summary, notes=dedupe_notes(notes),
                        sensitivity=sensitivity_table(b, total_w))
 
 
@@ -526,8 +630,10 @@ def _summary(b, u, sites_out, target, total_w, w_before, notes) -> dict:
             empty_reason = ("no surface was chosen: there are no candidate options (no facade spot sees both a "
                             "base station and a demand point within range)")
         elif budget is not None and cheapest is not None and budget < cheapest:
-            empty_reason = (f"no surface was chosen: the budget ({budget:.2f}) is below the cheapest option's "
-                            f"cost ({cheapest:.2f}); raise the budget to at least {cheapest:.2f} to place one panel")
+            cur = currency_label(getattr(b, "currency", ""))
+            empty_reason = (f"no surface was chosen: the budget ({budget:.2f} {cur}) is below the cheapest option's "
+                            f"cost ({cheapest:.2f} {cur}); raise the budget to at least {cheapest:.2f} {cur} to place "
+                            "one panel")
         elif b.max_panels is not None and int(b.max_panels) <= 0:
             empty_reason = "no surface was chosen: the panel count limit is 0"
         else:
@@ -567,3 +673,9 @@ def _summary(b, u, sites_out, target, total_w, w_before, notes) -> dict:
         "empty_plan": not len(sites_out),
         "empty_plan_reason": empty_reason,
     }
+
+
+def currency_label(currency) -> str:
+    """The unit printed beside every cost: the job's currency, or "cost units" when it gives none."""
+    text = "" if currency is None else str(currency).strip()
+    return text or "cost units"

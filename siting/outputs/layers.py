@@ -4,7 +4,8 @@ Layers (WGS84 longitude/latitude, coordinates rounded to 7 decimals, about 1 cm)
 
 ``surfaces``        Point per chosen site, in rank order, with the survey fields.
 ``surface_walls``   LineString along the wall, centred on the spot, as long as the panel is wide.
-``demand``          Point per demand point: direct SNR, SNR with the plan, covered before / after, serving site.
+``demand``          Point per demand point: direct SNR, SNR with the plan, covered before / after, serving site,
+                    ``reason`` (why it is or is not covered) and ``shortfall_db`` (target minus SNR when not covered).
 ``links``           LineString base station -> surface -> user for every user a surface serves
                     (surface -> user when the feeding base station is unknown).
 ``candidates``      Point per candidate spot considered (only when asked, for quality checks).
@@ -27,7 +28,7 @@ import pyproj
 import shapely
 
 from . import atomic
-from .derive import PlanFigures, to_lonlat
+from .derive import PlanFigures, currency_label, to_lonlat
 
 LONLAT_DECIMALS = 7
 
@@ -67,11 +68,12 @@ def build_layers(bundle, fig: PlanFigures) -> list[Layer]:
     """All layers of a plan (``candidates`` only when ``bundle.include_candidates``)."""
     s = fig.sites
     surf_cols = ["rank", "site_id", "building_id", "name", "address", "size_id", "width_m", "height_m",
-                 "area_m2", "elements", "facing_deg", "facing", "mount_height_m", "cost", "marginal_weight",
-                 "exclusive_weight", "shared_weight", "cumulative_weight", "cumulative_share", "n_users_served",
+                 "area_m2", "elements", "facing_deg", "facing", "mount_height_m", "cost", "currency", "weight_gained",
+                 "exclusive_weight", "shared_weight", "cumulative_covered_weight", "cumulative_covered_share", "n_users_served",
                  "served_weight", "median_snr_gain_db", "serving_bs_id", "backup_site_ids", "feed_below_peak_db",
                  "guessed_height_links", "exposure_w_m2", "exposure_share", "lon", "lat", "notes"]
-    layers = [Layer("surfaces", "Point", _points(s["lon"], s["lat"]), s[surf_cols].reset_index(drop=True))]
+    props = s.assign(currency=currency_label(getattr(bundle, "currency", "")))[surf_cols].reset_index(drop=True)
+    layers = [Layer("surfaces", "Point", _points(s["lon"], s["lat"]), props)]
 
     # the panel's width drawn along the wall: wall direction = normal turned 90 deg
     az = np.radians(s["facing_deg"].to_numpy(float))
@@ -90,6 +92,7 @@ def build_layers(bundle, fig: PlanFigures) -> list[Layer]:
         "covered_before": u["covered_before"], "covered_after": u["covered_after"],
         "newly_covered": u["newly_covered"], "direct_bs_id": u["direct_bs_id"],
         "serving_site_id": u["serving_site_id"], "serving_rank": u["serving_rank"],
+        "reason": u["reason"], "shortfall_db": u["shortfall_db"],
     })
     layers.append(Layer("demand", "Point", _points(u["lon"], u["lat"]), dem))
 

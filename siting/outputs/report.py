@@ -159,8 +159,12 @@ CAUTIONS = (
 )
 
 
-def fmt(v, kind: str) -> str:
-    """Format a figure for the report; None / NaN / inf print as 'n/a'."""
+def fmt(v, kind: str, unit: str = "") -> str:
+    """Format a figure for the report; None / NaN / inf print as 'n/a'; ``unit`` (e.g. the currency) follows a
+    number."""
+    if unit:
+        text = fmt(v, kind)
+        return text if text == "n/a" else f"{text} {unit}"
     if kind == "text":
         return str(v) if v not in (None, "") else "n/a"
     if v is None or (isinstance(v, (float, np.floating)) and not math.isfinite(float(v))):
@@ -226,27 +230,47 @@ def jsonable(obj):
 
 # ---------------------------------------------------------------------------------------------- tables
 
+# The ranked sites in two narrow tables, so each fits a 1,400 px screen and an A4 page.
 SITE_TABLE = (
     ("rank", "Rank", "int"), ("site_id", "Site", "int"), ("building_id", "Building", "text"),
     ("facing", "Facing", "text"), ("facing_deg", "Facing [deg]", "num1"), ("mount_height_m", "Height [m]", "num1"),
-    ("size_id", "Panel", "text"), ("elements", "Elements", "int"), ("cost", "Cost", "cost"),
-    ("marginal_weight", "Weight gained", "weight"), ("exclusive_weight", "Exclusive", "weight"),
-    ("shared_weight", "Shared", "weight"), ("cumulative_weight", "Cumulative weight", "weight"),
-    ("cumulative_share", "Cumulative share", "share"), ("median_snr_gain_db", "Median SNR gain [dB]", "db"),
-    ("serving_bs_id", "Base station", "text"), ("backup_site_ids", "Backups", "text"),
+    ("size_id", "Panel", "text"), ("cost", "Cost [{currency}]", "cost"),
+    ("weight_gained", "Weight gained", "weight"),
+    ("cumulative_covered_weight", "Covered weight after this site (direct included)", "weight"),
+    ("cumulative_covered_share", "Covered share after this site (direct included)", "share"),
 )
+SITE_DETAIL_TABLE = (
+    ("rank", "Rank", "int"), ("site_id", "Site", "int"), ("elements", "Elements", "int"),
+    ("exclusive_weight", "Exclusive weight", "weight"), ("shared_weight", "Shared weight", "weight"),
+    ("n_users_served", "Points served", "int"), ("median_snr_gain_db", "Median SNR gain [dB]", "db"),
+    ("serving_bs_id", "Base station", "text"), ("backup_site_ids", "Backup sites", "text"),
+)
+
+
+SITES_SENTENCE = (
+    "Weight gained is the newly covered weight a site adds in rank order; the covered weight after a site counts "
+    "every covered demand point, the points covered directly (without any surface) included, so the first row "
+    "starts from the covered weight without surfaces. Exclusive weight is reached by no other chosen site, shared "
+    "weight also by another. The survey list gives coordinates, addresses and backup spots.")
+
+
+def site_headers(table, currency: str = "") -> list[str]:
+    """The column headers of a site table, costs labelled with the currency."""
+    from .derive import currency_label
+
+    return [lbl.replace("{currency}", currency_label(currency)) for _, lbl, _ in table]
 
 
 def _cell(v, kind):
     if kind == "num1":
         return "n/a" if v is None or not np.isfinite(v) else f"{float(v):.1f}"
-    if kind == "int" and (v is None or int(v) < 0):
+    if kind == "int" and (v is None or v is pd.NA or int(v) < 0):
         return "n/a"
     return fmt(v, kind)
 
 
-def _site_rows(fig: PlanFigures) -> list[list[str]]:
-    return [[_cell(r[c], k) for c, _, k in SITE_TABLE] for _, r in fig.sites.iterrows()]
+def _site_rows(fig: PlanFigures, table=SITE_TABLE) -> list[list[str]]:
+    return [[_cell(r[c], k) for c, _, k in table] for _, r in fig.sites.iterrows()]
 
 
 def _kind_rows(fig: PlanFigures) -> tuple[list[str], list[list[str]]]:
@@ -263,7 +287,7 @@ def _sweep_rows(bundle, s: dict):
     from .figures import sweep_table
 
     sw = sweep_table(bundle.sweep, s)
-    head = ["Budget", "Newly covered weight", "Covered share", "Upper bound on share", "Gap", "Sites", "Status"]
+    head = [f"Budget [{_cur(s)}]", "Newly covered weight", "Covered share", "Upper bound on share", "Gap", "Sites", "Status"]
     rows = [[fmt(r.budget, "cost"), fmt(r.newly_covered_weight, "weight"), fmt(r.covered_share, "share"),
              fmt(r.bound_share, "share"), fmt(r.gap, "num"), fmt(r.n_sites, "int"), fmt(r.status, "text")]
             for r in sw.itertuples()]
@@ -274,16 +298,30 @@ def _summary_sentences(s: dict) -> list[str]:
     if s["empty_plan"]:
         out = [s["empty_plan_reason"].capitalize() + "."]
     else:
-        budget = f" within a budget of {fmt(s['budget'], 'cost')}" if s["budget"] is not None else ""
-        out = [f"The plan places {s['n_sites_chosen']} surface(s) at a cost of {fmt(s['plan_cost'], 'cost')}{budget}."]
+        budget = f" within a budget of {fmt(s['budget'], 'cost', _cur(s))}" if s["budget"] is not None else ""
+        out = [f"The plan places {s['n_sites_chosen']} surface(s) at a cost of {fmt(s['plan_cost'], 'cost', _cur(s))}{budget}."]
     out.append(f"Covered demand weight goes from {fmt(s['covered_weight_before'], 'weight')} "
                f"({fmt(s['covered_share_before'], 'share')}) without surfaces to "
                f"{fmt(s['covered_weight_after'], 'weight')} ({fmt(s['covered_share_after'], 'share')}) with the plan, "
                f"at an SNR target of {fmt(s['snr_target_db'], 'db')} dB.")
+    if s.get("n_users_below_target_with_plan"):
+        med = s.get("median_shortfall_db_with_plan")
+        out.append(f"{s['n_users_below_target_with_plan']} demand point(s) (weight "
+                   f"{fmt(s['weight_below_target_with_plan'], 'weight')}) get a better SNR from a chosen surface but "
+                   f"stay below the target" + (f" (by {med:.1f} dB at the median)" if med is not None else "")
+                   + "; they count as not covered (reason in the demand layer).")
     if s["gap"] is not None and not s["empty_plan"]:
         out.append(f"The solver ({s['solver'] or 'n/a'}) ended with status '{s['status'] or 'n/a'}' and a gap of "
                    f"{fmt(s['gap'], 'num')} to its proven bound.")
     return out
+
+
+def _key_figure(s: dict, key: str, kind: str) -> str:
+    return fmt(s.get(key), kind, _cur(s) if kind == "cost" else "")
+
+
+def _cur(s: dict) -> str:
+    return s.get("currency") or "cost units"
 
 
 def _input_rows(bundle, s: dict) -> list[tuple[str, str]]:
@@ -377,7 +415,8 @@ body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-se
        max-width: 70em; margin: 1.5em auto; padding: 0 1em; line-height: 1.4; }
 h1 { font-size: 1.6em; } h2 { font-size: 1.25em; border-bottom: 1px solid #999; margin-top: 1.6em; }
 table { border-collapse: collapse; font-size: .88em; margin: .5em 0; }
-td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-align: top; }
+td, th { border: 1px solid #aaa; padding: 2px 7px; text-align: left; vertical-align: top; overflow-wrap: anywhere; }
+table { max-width: 100%; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; }
 img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 .lead { font-size: 1.05em; background: #f2f2f2; padding: .6em .9em; border-left: 4px solid #0072B2; }
@@ -416,7 +455,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     p.append("<p class=\"lead\" id=\"summary\">" + " ".join(sentences) + "</p>")
     p.append("<h2>Key figures</h2><table><tbody>")
     for key, label, kind in KEY_FIGURES:
-        p.append(f"<tr><th>{esc(label)}</th><td class=\"n\" data-key=\"{key}\">{esc(fmt(s.get(key), kind))}</td></tr>")
+        p.append(f"<tr><th>{esc(label)}</th><td class=\"n\" data-key=\"{key}\">{esc(_key_figure(s, key, kind))}</td></tr>")
     p.append("</tbody></table>")
 
     p.append("<h2>Coverage before and after</h2>")
@@ -425,8 +464,8 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
 
     p.append("<h2>Budget and solver</h2>")
     p.append(_html_table(["Item", "Value"], [
-        ("Budget", fmt(s["budget"], "cost")), ("Panel count limit", fmt(s["max_panels"], "int")),
-        ("Cost of the plan", fmt(s["plan_cost"], "cost")), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost")),
+        ("Budget", fmt(s["budget"], "cost", _cur(s))), ("Panel count limit", fmt(s["max_panels"], "int")),
+        ("Cost of the plan", fmt(s["plan_cost"], "cost", _cur(s))), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost", _cur(s))),
         ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
         ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
         ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text")),
@@ -446,9 +485,10 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
 
     p.append("<h2>Ranked sites</h2>")
     if len(fig.sites):
-        p.append(_html_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)).replace("<table>", "<table id=\"sites\">", 1))
-        p.append("<p>Weight gained is what a site adds in rank order; exclusive weight is reached by no other "
-                 "chosen site, shared weight also by another. The survey list gives coordinates and backups.</p>")
+        p.append(_html_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)).replace("<table>", "<table id=\"sites\">", 1))
+        p.append(_html_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE))
+                 .replace("<table>", "<table id=\"site-details\">", 1))
+        p.append(f"<p>{esc(SITES_SENTENCE)}</p>")
     else:
         p.append("<p>No site was chosen.</p>")
 
@@ -539,12 +579,12 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
     if s["empty_plan"]:  # the reason comes first, in bold
         sentences[0] = f"**{sentences[0]}**"
     p = [f"# {_md_text(bundle.title)}", "", " ".join(sentences), ""]
-    p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, fmt(s.get(k), kind)) for k, lbl, kind in KEY_FIGURES]), ""]
+    p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, _key_figure(s, k, kind)) for k, lbl, kind in KEY_FIGURES]), ""]
     head, rows = _kind_rows(fig)
     p += ["## Coverage before and after", "", _md_table(head, rows), ""]
     p += ["## Budget and solver", "", _md_table(["Item", "Value"], [
-        ("Budget", fmt(s["budget"], "cost")), ("Panel count limit", fmt(s["max_panels"], "int")),
-        ("Cost of the plan", fmt(s["plan_cost"], "cost")), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost")),
+        ("Budget", fmt(s["budget"], "cost", _cur(s))), ("Panel count limit", fmt(s["max_panels"], "int")),
+        ("Cost of the plan", fmt(s["plan_cost"], "cost", _cur(s))), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost", _cur(s))),
         ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
         ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
         ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text"))]), ""]
@@ -557,7 +597,11 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
         p += ["No budget sweep was run for this job.", ""]
     p += ["## SNR distribution", "", f"![SNR distribution without and with the plan]({figure_files['snr_cdf']})", ""]
     p += ["## Ranked sites", ""]
-    p += [_md_table([lbl for _, lbl, _ in SITE_TABLE], _site_rows(fig)) if len(fig.sites) else "No site was chosen.", ""]
+    if len(fig.sites):
+        p += [_md_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)), "",
+              _md_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE)), "", SITES_SENTENCE, ""]
+    else:
+        p += ["No site was chosen.", ""]
     p += ["## Feeds and building heights to check", ""]
     if not s.get("site_checks_computed"):
         p += ["No site checks were computed for this run.", ""]
@@ -612,6 +656,24 @@ def _records(df: pd.DataFrame | None) -> list[dict] | None:
     return [dict(zip(df.columns, row)) for row in df.itertuples(index=False, name=None)]
 
 
+#: What the less obvious names of ``run.json`` and the other outputs mean (written into ``run.json``).
+DEFINITIONS = {
+    "counts.coverage_rows": "rows of the coverage relation: (surface option, demand point) pairs whose SNR "
+                            "through the surface was computed, whatever the SNR",
+    "counts.coverage_rows_at_target": "of those rows, the ones whose SNR reaches the SNR target",
+    "weight_gained": "newly covered weight a chosen site adds in rank order (the optimiser's ranking calls it "
+                     "marginal_weight)",
+    "cumulative_covered_weight": "covered weight after the sites up to this one, the weight covered directly "
+                                 "(without any surface) included",
+    "exclusive_weight": "newly covered weight that no other chosen site brings to the target",
+    "shared_weight": "newly covered weight that another chosen site also brings to the target",
+    "facing_deg": "outward wall normal, degrees clockwise from north, in [0, 360)",
+    "currency": "unit of every cost and budget; 'cost units' when the job names none",
+    "reason": "why a demand point is or is not covered (demand layer)",
+    "manifest.files": "the files this output set holds; a later run replaces or removes only these",
+}
+
+
 def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) -> dict:
     """Everything the report shows, in machine-readable form (written as ``run.json``)."""
     import pyproj
@@ -622,8 +684,12 @@ def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) ->
     ri.pop("notes", None)  # already merged into fig.notes
     timings = dict(ri.pop("timings_s", {}) or {})
     timings.update({f"outputs.{k}": v for k, v in output_timings_s.items()})
+    counts = dict(ri.pop("counts", {}) or {})
+    counts["coverage_rows"] = fig.summary["n_coverage_rows"]
+    counts["coverage_rows_at_target"] = fig.summary["n_coverage_rows_at_target"]
     return jsonable({
-        "format": "siting-run", "format_version": 1, "title": bundle.title,
+        # format 2: weight_gained, cumulative_covered_weight, manifest, definitions, counts
+        "format": "siting-run", "format_version": 2, "title": bundle.title,
         "crs": pyproj.CRS(bundle.crs).to_string(),
         "summary": fig.summary,
         "coverage_by_kind": fig.by_kind,
@@ -642,6 +708,8 @@ def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) ->
         "timings_s": timings,
         "versions": {**package_versions(), **(ri.pop("versions", {}) or {})},
         "visibility": ri.pop("visibility", None),
+        "counts": counts,
+        "definitions": DEFINITIONS,
         "notes": fig.notes,
         "run_info": ri,
         "files": files,

@@ -4,13 +4,17 @@ CSV columns (UTF-8, comma-separated, header row):
 
 rank, site_id, lon, lat, building_id, name, address, <any further name / address tags of the input>,
 facing_deg (outward wall normal, clockwise from north), facing (16-point name), mount_height_m, size_id,
-width_m, height_m, area_m2, elements, cost, weight_gained (added in rank order), exclusive_weight,
-shared_weight, cumulative_weight, cumulative_share, serving_bs_id, feed_below_peak_db (feeding station's
+width_m, height_m, area_m2, elements, cost, currency (the job's currency, or "cost units"), weight_gained (newly
+covered weight the site adds in rank order), exclusive_weight, shared_weight, cumulative_covered_weight and
+cumulative_covered_share (covered after the sites up to this one, the weight covered directly included),
+serving_bs_id, feed_below_peak_db (feeding station's
 boresight gain minus its gain toward the panel), guessed_height_links (links of the surface that lose line of
 sight when guessed building heights stand at the top of their band), exposure_w_m2 (highest RF power density
 from the surface or its feed where people may stand, a screening value), exposure_share (that density over the
-ICNIRP 2020 general-public whole-body reference level), backup_<k>_site_id / _lon / _lat for each backup k,
-notes.  The four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet
+ICNIRP 2020 general-public whole-body reference level), for each backup k in the optimiser's order:
+backup_<k>_site_id, _building_id, _name, _address, _lon, _lat, _distance_m (horizontal distance from the
+primary spot), _facing_deg, _mount_height_m, _size_id, _recovered_weight and any further column the optimiser
+gives (e.g. _recovered_share, _weak); notes.  Ids print as integers where they are integral.  The four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet
 would read as a formula (starting with = + - @, tab or carriage return) get a leading apostrophe.
 """
 
@@ -25,12 +29,18 @@ import pandas as pd
 
 from .. import tables as T
 from . import atomic, figures
-from .derive import PlanFigures
+from .derive import PlanFigures, currency_label
+
+#: Backup columns of :class:`PlanFigures` shown under their own names; any other column is the optimiser's.
+BACKUP_FIXED = ("rank", "site_id", "backup_rank", "backup_option_id", "backup_site_id", "backup_lon", "backup_lat",
+                "recovered_weight", "backup_building_id", "backup_name", "backup_address", "backup_facing_deg",
+                "backup_facing", "backup_mount_height_m", "backup_size_id", "backup_distance_m", "same_building")
+BACKUP_TEXT = ("building_id", "name", "address")
 
 BASE_COLUMNS = ["rank", "site_id", "lon", "lat", "building_id", "name", "address"]
 AFTER_TAGS = ["facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
-              "cost", "weight_gained", "exclusive_weight", "shared_weight", "cumulative_weight",
-              "cumulative_share", "serving_bs_id", "feed_below_peak_db", "guessed_height_links", "exposure_w_m2",
+              "cost", "currency", "weight_gained", "exclusive_weight", "shared_weight", "cumulative_covered_weight",
+              "cumulative_covered_share", "serving_bs_id", "feed_below_peak_db", "guessed_height_links", "exposure_w_m2",
               "exposure_share"]
 
 
@@ -42,7 +52,7 @@ def tag_columns(buildings) -> list[str]:
 
 def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
     """The survey list as a DataFrame (the CSV's rows and columns)."""
-    s = fig.sites.rename(columns={"marginal_weight": "weight_gained"})
+    s = fig.sites.assign(currency=currency_label(getattr(bundle, "currency", "")))
     out = s[BASE_COLUMNS].copy()
     tags = tag_columns(bundle.buildings)
     if tags:
@@ -58,11 +68,22 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
     out.loc[(s["elements"] < 0).to_numpy(), "elements"] = pd.NA  # unknown pitch: empty cell
     bk = fig.backups
     n_bk = int(bk["backup_rank"].max()) if len(bk) else 0
+    extra = [c for c in bk.columns if c not in BACKUP_FIXED]
+    ranks = s["rank"].to_numpy()
     for j in range(1, n_bk + 1):
-        sub = bk[bk["backup_rank"] == j].set_index("rank")
-        out[f"backup_{j}_site_id"] = sub["backup_site_id"].reindex(s["rank"].to_numpy()).astype("Int64").to_numpy()
-        out[f"backup_{j}_lon"] = sub["backup_lon"].reindex(s["rank"].to_numpy()).to_numpy(float)
-        out[f"backup_{j}_lat"] = sub["backup_lat"].reindex(s["rank"].to_numpy()).to_numpy(float)
+        sub = bk[bk["backup_rank"] == j].drop_duplicates("rank").set_index("rank").reindex(ranks)
+        out[f"backup_{j}_site_id"] = sub["backup_site_id"].astype("Int64").to_numpy()
+        for c in BACKUP_TEXT:
+            out[f"backup_{j}_{c}"] = sub[f"backup_{c}"].astype(object).where(sub[f"backup_{c}"].notna(), "").to_numpy()
+        out[f"backup_{j}_lon"] = sub["backup_lon"].to_numpy(float)
+        out[f"backup_{j}_lat"] = sub["backup_lat"].to_numpy(float)
+        for c in ("distance_m", "facing_deg", "mount_height_m"):
+            out[f"backup_{j}_{c}"] = sub[f"backup_{c}"].to_numpy(float)
+        out[f"backup_{j}_size_id"] = sub["backup_size_id"].astype(object).where(sub["backup_size_id"].notna(), "").to_numpy()
+        out[f"backup_{j}_recovered_weight"] = sub["recovered_weight"].to_numpy(float)
+        for c in extra:
+            name = c if c.startswith("backup_") else f"backup_{j}_{c}"
+            out[name.replace("backup_", f"backup_{j}_", 1) if c.startswith("backup_") else name] = sub[c].to_numpy()
     out["notes"] = s["notes"].to_numpy()
     return out.reset_index(drop=True)
 
@@ -97,14 +118,17 @@ body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, Arial, sans-se
 h1 { font-size: 1.4em; } h2 { font-size: 1.15em; margin: 0 0 .4em 0; }
 table { border-collapse: collapse; font-size: .85em; }
 td, th { border: 1px solid #999; padding: 2px 6px; text-align: left; vertical-align: top; }
-.site { display: flex; gap: 1em; border-top: 2px solid #000; padding: .8em 0; page-break-inside: avoid;
-        break-inside: avoid; }
+.site { border-top: 2px solid #000; padding: .8em 0; page-break-inside: avoid; break-inside: avoid; }
+.site .top { display: flex; gap: 1em; align-items: flex-start; }
+td { overflow-wrap: anywhere; } table.backups { width: 100%; }
 .site img { width: 300px; height: auto; border: 1px solid #ccc; }
 .check { margin-top: .4em; font-size: .85em; } .check span { display: inline-block; width: 1em; height: 1em;
         border: 1px solid #000; margin-right: .4em; vertical-align: middle; }
+table.backups { margin-top: .5em; font-size: .78em; } caption { text-align: left; font-weight: bold; }
 .notes { min-height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
 @page { size: A4; margin: 12mm; }
-@media print { body { margin: 0; font-size: 10pt; } .site { page-break-inside: avoid; } .site img { width: 60mm; } }
+@media print { body { margin: 0; font-size: 9pt; } .site { page-break-inside: avoid; } .site img { width: 55mm; }
+  table { font-size: 7.5pt; } td, th { padding: 1px 3px; } }
 """
 
 FIELD_CHECKS = (
@@ -149,6 +173,52 @@ def _check_rows(r, site) -> list[tuple[str, str]]:
     return out
 
 
+def _backup_extra(r, extra) -> str:
+    """The optimiser's further backup columns in words (a share as %, a true flag by its name)."""
+    out = []
+    for c in extra:
+        v = r[c]
+        if v is None or v is pd.NA or (isinstance(v, (float, np.floating)) and not np.isfinite(v)):
+            continue
+        label = c.removeprefix("backup_").replace("_", " ")
+        if isinstance(v, (bool, np.bool_)):
+            if v:
+                out.append(label)
+        elif isinstance(v, (int, float, np.integer, np.floating)):
+            out.append(f"{label} {100 * float(v):.0f} %" if "share" in c else f"{label} {float(v):.2f}")
+        elif str(v):
+            out.append(f"{label}: {v}")
+    return ", ".join(out)
+
+
+def backup_table(backups: pd.DataFrame, rank: int) -> str:
+    """The backup spots of one site as an HTML table (escaped), in the optimiser's order."""
+    esc = html.escape
+    bk = backups[backups["rank"] == rank]
+    if not len(bk):
+        return "<p class=\"backups\">Backup spots: none.</p>"
+    extra = [c for c in bk.columns if c not in BACKUP_FIXED]
+    head = ["#", "Site", "Building", "Address", "Wall facing", "Height", "Panel", "From primary", "lon, lat",
+            "Recovers"]
+    rows = []
+    for _, b in bk.iterrows():
+        building = str(b["backup_building_id"]) + (f" ({b['backup_name']})" if b["backup_name"] else "")
+        building += " (same building)" if bool(b["same_building"]) else ""
+        recovers = _fmt(b["recovered_weight"])
+        more = _backup_extra(b, extra)
+        rows.append([str(int(b["backup_rank"])), str(int(b["backup_site_id"])), building,
+                     str(b["backup_address"] or "-"),
+                     f"{b['backup_facing_deg']:.1f}\u00b0 ({b['backup_facing']})",
+                     f"{b['backup_mount_height_m']:.1f} m", str(b["backup_size_id"] or "-"),
+                     f"{b['backup_distance_m']:.1f} m",
+                     f"{b['backup_lon']:.7f}, {b['backup_lat']:.7f}",
+                     recovers + (f"; {more}" if more else "")])
+    h = "".join(f"<th>{esc(c)}</th>" for c in head)
+    body = "".join("<tr>" + "".join(f"<td>{esc(v)}</td>" for v in row) + "</tr>" for row in rows)
+    return (f"<table class=\"backups\"><caption>Backup spots if this one fails the survey</caption>"
+            f"<thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>")
+
+
 def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> str:
     """Printable HTML: one block per site with a small map (PNG embedded as base64) and the survey fields."""
     esc = html.escape
@@ -156,22 +226,19 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
              f"</title><style>{_CSS}</style></head><body>",
              f"<h1>{esc(title)}: survey list</h1>",
              f"<p>{len(frame)} site(s) in rank order. Coordinates are WGS84 longitude / latitude; facing is the "
-             "outward wall normal, clockwise from north. Backup spots can replace a site that fails the survey.</p>"]
+             "outward wall normal, clockwise from north. Backup spots can replace a site that fails the survey.</p>",
+             "<p class=\"legend\">Maps: " + "; ".join(f"<span style=\"color:{c}\">{esc(sym)}</span> {esc(text)}"
+                                                    for c, sym, text in figures.SITE_MAP_LEGEND) + ".</p>"]
     if not len(frame):
         parts.append(f"<p><strong>{esc(fig.summary.get('empty_plan_reason') or 'No site was chosen.')}</strong></p>")
     tags = tag_columns(bundle.buildings)
     by_rank = fig.sites.set_index("rank")
+    maps = figures.SiteMaps(bundle, fig) if len(frame) else None
     for _, r in frame.iterrows():
         rank = int(r["rank"])
         site = by_rank.loc[rank]
-        png = base64.b64encode(figures.site_map(bundle, fig, rank)).decode("ascii")
-        backups = []
-        j = 1
-        while f"backup_{j}_site_id" in frame.columns:
-            if pd.notna(r[f"backup_{j}_site_id"]):
-                backups.append(f"{int(r[f'backup_{j}_site_id'])} ({r[f'backup_{j}_lon']:.7f}, "
-                               f"{r[f'backup_{j}_lat']:.7f})")
-            j += 1
+        png = base64.b64encode(maps.png(rank)).decode("ascii")
+        cur = currency_label(getattr(bundle, "currency", ""))
         rows = [
             ("site id", int(r["site_id"])), ("lon, lat", f"{r['lon']:.7f}, {r['lat']:.7f}"),
             ("building", r["building_id"]), ("name", r["name"]), ("address", r["address"]),
@@ -180,19 +247,20 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
             ("mount height", f"{r['mount_height_m']:.2f} m"),
             ("panel", f"{r['size_id']}: {r['width_m']:.2f} m x {r['height_m']:.2f} m"
                       + (f", {int(r['elements'])} elements" if pd.notna(r["elements"]) else "")),
-            ("cost", _fmt(r["cost"])), ("weight gained", _fmt(r["weight_gained"])),
-            ("cumulative weight", f"{_fmt(r['cumulative_weight'])} ({100 * r['cumulative_share']:.1f} %)"),
+            ("cost", f"{_fmt(r['cost'])} {cur}"), ("weight gained (newly covered)", _fmt(r["weight_gained"])),
+            ("covered weight after this site (direct included)",
+             f"{_fmt(r['cumulative_covered_weight'])} ({100 * r['cumulative_covered_share']:.1f} % of all demand)"),
             ("serving base station", r["serving_bs_id"] or "-"),
             *_check_rows(r, site),
-            ("backup spots", "; ".join(backups) or "none"),
         ]
         table = "".join(f"<tr><th>{esc(str(k))}</th><td>{esc(str(v))}</td></tr>" for k, v in rows)
         checks = "".join(f"<div><span></span>{esc(c)}</div>" for c in FIELD_CHECKS)
         note = esc(str(r["notes"])) if r["notes"] else ""
         parts.append(
-            f"<section class=\"site\" id=\"site-{rank}\"><div><img alt=\"map around site {int(r['site_id'])}\" "
+            f"<section class=\"site\" id=\"site-{rank}\"><div class=\"top\"><div><img alt=\"map around site {int(r['site_id'])}, "
+            f"facing {esc(str(r['facing']))}, {2 * maps.r:g} m across\" "
             f"src=\"data:image/png;base64,{png}\"></div><div><h2>Rank {rank}: site {int(r['site_id'])}</h2>"
-            f"<table>{table}</table><div class=\"check\">{checks}</div>"
-            f"<div class=\"notes\">notes: {note}</div></div></section>")
+            f"<table>{table}</table></div></div>{backup_table(fig.backups, rank)}<div class=\"check\">{checks}</div>"
+            f"<div class=\"notes\">notes: {note}</div></section>")
     parts.append("</body></html>\n")
     return "\n".join(parts)
