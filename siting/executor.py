@@ -10,12 +10,14 @@ from __future__ import annotations
 
 import logging
 import os
+import warnings
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
 from .cache import StageCache, digest
-from .errors import SitingError
+from .errors import SitingError, SitingWarning
 
 log = logging.getLogger("siting")
 
@@ -122,8 +124,8 @@ class _Deferred:
     tuples and lists) are replaced by their results first, as Dask does with futures."""
 
     def __init__(self, fn, *args, **kwargs):
-        self.call = (fn, args, kwargs)
-        self.value = None
+        self.call: tuple[Any, tuple, dict] | None = (fn, args, kwargs)
+        self.value: Any = None
 
     def result(self):
         if self.call is not None:
@@ -140,15 +142,33 @@ def _resolve(arg):
     return arg
 
 
+#: Key of a tile result holding the model notes (:class:`~siting.errors.SitingWarning`) its computation raised.
+NOTES = "notes"
+
+
 def _tile_job(fn, args, store_at, **shared):
     """One tile: ``fn(*args, **shared)``, stored in the cache at ``store_at = (root, entry, key)`` when given.
 
-    Storing here, where the tile was computed, is the checkpoint a killed job resumes from.
+    The model notes the tile raises (:class:`~siting.errors.SitingWarning`, repeats dropped) are caught here, on
+    whichever worker runs it, stored with the tile and returned under :data:`NOTES`: a tile read from the cache
+    or computed on Dask gives the same notes as one computed in this process.  Storing here, where the tile was
+    computed, is the checkpoint a killed job resumes from.
     """
-    tables = fn(*args, **shared)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", SitingWarning)
+        tables = fn(*args, **shared)
+    notes = list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, SitingWarning)))
+    for w in caught:  # anything else (library warnings) goes on to the usual filters
+        if not issubclass(w.category, SitingWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     if store_at is not None:
-        StageCache(store_at[0]).store(store_at[1], store_at[2], tables)
-    return tables
+        StageCache(store_at[0]).store(store_at[1], store_at[2], tables, {NOTES: notes})
+    return {**tables, NOTES: notes}
+
+
+def _tables(result: dict) -> dict:
+    """A tile result without its notes: the tables to store."""
+    return {k: v for k, v in result.items() if k != NOTES}
 
 
 @dataclass
@@ -180,13 +200,13 @@ def _submit_tiles(name, cache, key, tasks: dict, fn, shared, executor, expect: t
     for t in tasks:
         hit = cache.load(f"{name}-tile{t}", tiles.keys[t], expect=expect)
         if hit is not None:
-            tiles.done[t] = hit[0]
+            tiles.done[t] = {**hit[0], NOTES: list(hit[1].get(NOTES, []))}
     if tiles.done:
         log.info("%s: %d of %d tiles taken from the cache", name, len(tiles.done), n_tiles)
-    root = str(cache.root.resolve())
+    root = str(cache.root.resolve()) if cache.root is not None else None
     for t, args in tasks.items():
         if t not in tiles.done:
-            store_at = (root, f"{name}-tile{t}", tiles.keys[t]) if executor.shares_disk else None
+            store_at = (root, f"{name}-tile{t}", tiles.keys[t]) if executor.shares_disk and root else None
             tiles.handles[t] = executor.submit(_tile_job, fn, args, store_at, **shared)
     return tiles
 
@@ -197,7 +217,7 @@ def _collect(tiles: _TileSet, cache, executor, progress, computed: list) -> list
     bar = _bar(progress, total=len(tiles.handles), desc=f"{tiles.name} tiles")
     for t, tables in executor.as_completed(tiles.handles):
         if not executor.shares_disk:
-            cache.store(f"{tiles.name}-tile{t}", tiles.keys[t], tables)
+            cache.store(f"{tiles.name}-tile{t}", tiles.keys[t], _tables(tables), {NOTES: tables[NOTES]})
         computed.append(f"{tiles.name}-tile{t}")
         results[t] = tables
         bar.update(1)

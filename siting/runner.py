@@ -29,8 +29,11 @@ import json
 import logging
 import time
 import warnings
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -39,10 +42,13 @@ from . import __version__, checks
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District
+from .errors import SitingWarning
 from .executor import _advance, _bar, _Executor
 from .gains import GainResult, RadioParams
-from .job import load_job
+from .job import Job, load_job
+from .optimize import Plan
 from .stages import (
+    StageParams,
     _model_fit_warnings,
     candidates_stage,
     gains_stage,
@@ -58,35 +64,71 @@ from .visibility import degree_stats
 log = logging.getLogger("siting")
 
 # The stages live in siting.stages and the tile executor in siting.executor; their names stay importable here.
-__all__ = ["RunResult", "candidates_stage", "gains_stage", "load_stage", "optimisation_inputs", "optimise_stage",
+__all__ = ["RunResult", "capture_notes", "load_job", "candidates_stage", "gains_stage", "load_stage", "optimisation_inputs", "optimise_stage",
            "plan_checks", "plan_fields", "run", "run_file", "sizes_table", "wall_conflicts", "write_los_graph",
            "write_stage"]
 
 
 @dataclass
 class RunResult:
-    """Everything a job produced, one table per stage (for notebooks and tests)."""
+    """Everything a job produced, one table per stage (for notebooks and tests).
 
-    job: dict
+    Attributes
+    ----------
+    job : Job
+        The validated, frozen job that ran.
+    district : District
+        Buildings, base stations, given sites and users in the job's projected CRS (metres).
+    sites : pandas.DataFrame
+        Candidate facade spots (``sites`` contract: x, y [m], z_m [m], normal_az_deg [deg], wall_free_m [m]).
+    users : pandas.DataFrame
+        Demand points (``users`` contract: x, y [m], z_m [m], weight, kind).
+    sizes : pandas.DataFrame
+        The panel catalogue: size_id, width_m, height_m [m], cost, install_cost [currency], elements.
+    gains : GainResult
+        Options, the (option, user) coverage relation with snr_db [dB], each user's best direct link.
+    plan : Plan
+        The chosen options (:class:`siting.optimize.Plan`: objective [weight], bound, gap, cost [currency]).
+    ranking, backups : pandas.DataFrame
+        The chosen sites in survey order; up to three backup spots for each.
+    sweep : pandas.DataFrame or None
+        Coverage against budget (budget [currency], covered_weight, bound, gap).
+    site_checks, sensitivity : pandas.DataFrame or None
+        Field checks of the chosen surfaces; the plan's model sensitivity.
+    notes : list of str
+        Model notes of every stage, in stage order, each once (the same from a fresh, cached or Dask run).
+    stage_notes : dict of str to list of str
+        The same notes by stage (load, candidates, gains, optimise, checks).
+    outputs : dict
+        Paths of the files written (empty with ``write=False``).
+    timings_s : dict
+        Wall time per stage [s].
+    recomputed : list of str
+        Stages (and tiles) computed in this run rather than read from the cache.
+    """
+
+    job: Job
     district: District
     sites: pd.DataFrame
     users: pd.DataFrame
     sizes: pd.DataFrame
     gains: GainResult
-    plan: object
+    plan: Plan
     ranking: pd.DataFrame
     backups: pd.DataFrame
     sweep: pd.DataFrame | None
     site_checks: pd.DataFrame | None = None
     sensitivity: pd.DataFrame | None = None
-    outputs: dict = field(default_factory=dict)
-    timings_s: dict = field(default_factory=dict)
-    recomputed: list = field(default_factory=list)
-
+    notes: list[str] = field(default_factory=list)
+    stage_notes: dict[str, list[str]] = field(default_factory=dict)
+    outputs: dict[str, Any] = field(default_factory=dict)
+    timings_s: dict[str, float] = field(default_factory=dict)
+    recomputed: list[str] = field(default_factory=list)
+    params: StageParams | None = None
 
 
 # -------------------------------------------------------------------------------------------- orchestration
-def plan_fields(plan) -> dict:
+def plan_fields(plan: Plan) -> dict:
     """The JSON-able fields of a :class:`~siting.optimize.Plan` except ``covered`` (used for the cache)."""
     out = {k: getattr(plan, k) for k in ("objective", "bound", "gap", "status", "solver", "cost",
                                          "greedy_objective", "message", "model_size", "timings_s", "mode",
@@ -95,121 +137,216 @@ def plan_fields(plan) -> dict:
     return json.loads(json.dumps(out, default=json_default))
 
 
-def run(job: dict, *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
-        progress: bool = False, tile_m: float | None = None, write: bool = True) -> RunResult:
-    """Run a validated job (see :func:`siting.job.load_job`) end to end and return every stage's tables."""
-    out_dir = Path(job["output"]["folder"])
+@contextmanager
+def capture_notes(into: list[str]) -> Iterator[None]:
+    """Collect the :class:`~siting.errors.SitingWarning` messages raised inside the block into ``into``.
+
+    Each message once (in order, not repeated if ``into`` holds it already); other warnings pass on unchanged.
+    This is the one channel of model notes: the runner opens one per stage and stores the stage's notes with it.
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", SitingWarning)
+        yield
+    for w in caught:
+        if not issubclass(w.category, SitingWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+        elif str(w.message) not in into:
+            into.append(str(w.message))
+
+
+def _unique(notes: list[str]) -> list[str]:
+    return list(dict.fromkeys(notes))
+
+
+@dataclass
+class _Context:
+    """What the stages of one run share: the cache, the executor, the progress bar, timings and notes."""
+
+    job: Job
+    params: StageParams
+    cache: StageCache
+    progress: bool
+    bar: Any
+    executor: _Executor | None = None
+    timings: dict[str, float] = field(default_factory=dict)
+    recomputed: list[str] = field(default_factory=list)
+    notes: dict[str, list[str]] = field(default_factory=dict)
+
+
+def _load(ctx: _Context) -> tuple[District, pd.DataFrame]:
+    t0 = time.perf_counter()
+    notes: list[str] = []
+    with capture_notes(notes):
+        district = load_stage(ctx.params.inputs, ctx.params.area)
+        sizes = sizes_table(ctx.job.surfaces.panels, ctx.job.radio.frequency_ghz,
+                            ctx.job.surfaces.element_pitch_wavelengths)
+    ctx.notes["load"] = _unique(district.notes + notes)
+    ctx.timings["load"] = time.perf_counter() - t0
+    _advance(ctx.bar, "candidates")
+    log.info("load: %d buildings, %d base stations, CRS %s (%s)", len(district.buildings),
+             len(district.base_stations), district.crs.to_string(), district.crs_rule)
+    return district, sizes
+
+
+def _candidates(ctx: _Context, district: District, sizes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+    t0 = time.perf_counter()
+    job = ctx.job.to_dict()
+    key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
+                  job["candidates"], job["demand"], sizes["width_m"].tolist()])
+    hit = ctx.cache.load("candidates", key, expect=("sites", "users"))
+    if hit:
+        sites, users, notes = hit[0]["sites"], hit[0]["users"], list(hit[1].get("notes", []))
+        log.info("candidates: taken from the cache")
+    else:
+        notes = []
+        with capture_notes(notes):
+            sites, users, explicit = candidates_stage(district, ctx.params.candidates, ctx.params.demand, sizes,
+                                                      ctx.params.inputs.storey_height_m)
+        notes = _unique(explicit + notes)
+        ctx.cache.store("candidates", key, {"sites": sites, "users": users}, {"notes": notes})
+        ctx.recomputed.append("candidates")
+    ctx.notes["candidates"] = notes
+    ctx.timings["candidates"] = time.perf_counter() - t0
+    _advance(ctx.bar, "visibility and gains")
+    log.info("candidates: %d facade spots, %d demand points (weight %.1f)", len(sites), len(users),
+             users["weight"].sum())
+    return sites, users, key
+
+
+def _gains(ctx: _Context, district, sites, sizes, users, cand_key: str, tile_m: float | None,
+           workers: int, scheduler: str | None) -> tuple[GainResult, np.ndarray, str]:
+    t0 = time.perf_counter()
+    ctx.executor = _Executor(workers, scheduler)
+    ctx.timings["cluster_start"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    p = ctx.params.radio
+    job = ctx.job.to_dict()
+    surfaces = {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}  # the cap is the optimiser's
+    gains_key = digest([cand_key, job["radio"], surfaces])
+    tile = (ctx.params.tile_m if tile_m is None else tile_m) or 0.0
+    tiles_done: list[str] = []
+    notes: list[str] = []
+    with capture_notes(notes):
+        _model_fit_warnings(district.base_stations, p.direct_model)
+        heights_m = checks.planning_heights(district.buildings, ctx.params.height_uncertainty_m,
+                                            ctx.params.robust_heights)
+        gains = gains_stage(district, sites, sizes, users, p, cache=ctx.cache, key=digest([gains_key, tile]),
+                            tile_m=tile, executor=ctx.executor, progress=ctx.progress, heights_m=heights_m,
+                            computed=tiles_done, notes=notes)
+    ctx.notes["gains"] = notes
+    if tiles_done:
+        ctx.recomputed.append(f"gains ({len(tiles_done)} tiles)")
+    ctx.timings["gains"] = time.perf_counter() - t0
+    _advance(ctx.bar, "optimise")
+    log.info("gains: %d options, %d coverage rows, %d users covered directly of %d", len(gains.options),
+             int((gains.coverage["snr_db"] >= p.snr_target_db).sum()) if len(gains.coverage) else 0,
+             int(gains.direct["covered"].sum()), len(users))
+    return gains, heights_m, gains_key
+
+
+def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
+    t0 = time.perf_counter()
+    job = ctx.job.to_dict()
+    key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
+    hit = ctx.cache.load("optimise", key, expect=("ranking", "backups", "covered"))
+    if hit:
+        tables, extras = hit
+        fields = dict(extras["plan"])
+        chosen = np.asarray(fields.pop("chosen"), np.int64)
+        plan = opt.Plan(chosen=chosen, covered=tables["covered"]["covered"].to_numpy(bool), **fields)
+        ranking, backups, sweep = tables["ranking"], tables["backups"], tables.get("sweep")
+        notes = list(extras.get("notes", []))
+        log.info("optimise: taken from the cache")
+    else:
+        notes = []
+        with capture_notes(notes):
+            plan, ranking, backups, sweep = optimise_stage(gains, sites, users, ctx.params.optimise,
+                                                           ctx.params.radio)
+        tables = {"ranking": ranking, "backups": backups, "covered": pd.DataFrame({"covered": plan.covered})}
+        if sweep is not None:
+            tables["sweep"] = sweep
+        ctx.cache.store("optimise", key, tables, {"plan": plan_fields(plan), "notes": notes})
+        ctx.recomputed.append("optimise")
+    ctx.notes["optimise"] = notes
+    ctx.timings["optimise"] = time.perf_counter() - t0
+    _advance(ctx.bar, "outputs")
+    log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
+             len(plan.chosen), plan.objective, plan.bound, plan.gap)
+    return plan, ranking, backups, sweep
+
+
+def _log_handler(out_dir: Path) -> logging.Handler:
     out_dir.mkdir(parents=True, exist_ok=True)
     handler = logging.FileHandler(out_dir / "siting.log", encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
-    log.addHandler(handler)
+    return handler
+
+
+def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
+        progress: bool = False, tile_m: float | None = None, write: bool = True,
+        cache_dir: str | Path | None = None) -> RunResult:
+    """Run a job end to end and return every stage's tables.
+
+    Parameters
+    ----------
+    job : Job or mapping
+        A :class:`~siting.job.Job`, or a job as nested tables (validated here, e.g. from :func:`load_job`).
+    fresh : bool
+        Ignore what the stage cache holds (still store new results).
+    workers, scheduler : int, str
+        Run the tiles on a Dask LocalCluster of ``workers`` processes, or on the cluster at ``scheduler``.
+    progress : bool
+        Show progress bars.
+    tile_m : float, optional
+        Tile size [m] instead of the job's ``run.tile_m`` (0 = one tile).
+    write : bool
+        Write the outputs, the log (``siting.log``) and the stage cache into ``output.folder``.  With
+        ``write=False`` nothing is written to disk unless ``cache_dir`` is given.
+    cache_dir : str or Path, optional
+        Stage cache folder; default ``<output.folder>/.cache`` when ``write``, else no cache.
+    """
+    job = job if isinstance(job, Job) else Job.from_dict(job)
+    out_dir = Path(job.output.folder)
+    cache_root = Path(cache_dir) if cache_dir is not None else (out_dir / ".cache" if write else None)
+    handler = _log_handler(out_dir) if write else None
+    if handler is not None:
+        log.addHandler(handler)
     log.setLevel(logging.INFO)
-    cache = StageCache(out_dir / ".cache", log=log.warning, read=not fresh)
-    timings: dict[str, float] = {}
-    recomputed: list[str] = []
-    executor = None
-    stage_bar = _bar(progress, total=5 if write else 4, desc="load")
-    caught_ctx = warnings.catch_warnings(record=True)
-    caught = caught_ctx.__enter__()
-    warnings.simplefilter("always")
+    ctx = _Context(job, StageParams.from_job(job), StageCache(cache_root, log=log.warning, read=not fresh),
+                   progress, _bar(progress, total=5 if write else 4, desc="load"))
     try:
-        t0 = time.perf_counter()
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
-        district = load_stage(job)
-        sizes = sizes_table(job)
-        timings["load"] = time.perf_counter() - t0
-        _advance(stage_bar, "candidates")
-        log.info("load: %d buildings, %d base stations, CRS %s (%s)", len(district.buildings),
-                 len(district.base_stations), district.crs.to_string(), district.crs_rule)
-
+        district, sizes = _load(ctx)
+        sites, users, cand_key = _candidates(ctx, district, sizes)
+        gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,
+                                             scheduler)
+        plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key)
         t0 = time.perf_counter()
-        cand_key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
-                           job["candidates"], job["demand"], sizes["width_m"].tolist()])
-        hit = cache.load("candidates", cand_key, expect=("sites", "users"))
-        if hit:
-            sites, users, notes = hit[0]["sites"], hit[0]["users"], hit[1]["notes"]
-            log.info("candidates: taken from the cache")
-        else:
-            sites, users, notes = candidates_stage(district, job, sizes)
-            cache.store("candidates", cand_key, {"sites": sites, "users": users}, {"notes": notes})
-            recomputed.append("candidates")
-        district.notes.extend(notes)
-        timings["candidates"] = time.perf_counter() - t0
-        _advance(stage_bar, "visibility and gains")
-        log.info("candidates: %d facade spots, %d demand points (weight %.1f)", len(sites), len(users),
-                 users["weight"].sum())
-
-        t0 = time.perf_counter()
-        executor = _Executor(workers, scheduler)
-        timings["cluster_start"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        p = RadioParams.from_job(job)
-        surfaces = {k: v for k, v in job["surfaces"].items() if k != "load_cap_weight"}  # the cap is the optimiser's
-        gains_key = digest([cand_key, job["radio"], surfaces])
-        tile = job["run"]["tile_m"] if tile_m is None else tile_m
-        tiles_done: list[str] = []
-        _model_fit_warnings(district.base_stations, p.direct_model)
-        heights_m = checks.planning_heights(district.buildings, job["inputs"]["height_uncertainty_m"],
-                                            job["radio"]["robust_heights"])
-        gains = gains_stage(district, sites, sizes, users, p, cache=cache, key=digest([gains_key, tile]),
-                            tile_m=tile, executor=executor, progress=progress, heights_m=heights_m,
-                            computed=tiles_done)
-        if tiles_done:
-            recomputed.append(f"gains ({len(tiles_done)} tiles)")
-        timings["gains"] = time.perf_counter() - t0
-        _advance(stage_bar, "optimise")
-        log.info("gains: %d options, %d coverage rows, %d users covered directly of %d", len(gains.options),
-                 int((gains.coverage["snr_db"] >= p.snr_target_db).sum()) if len(gains.coverage) else 0,
-                 int(gains.direct["covered"].sum()), len(users))
-
-        t0 = time.perf_counter()
-        opt_key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
-        hit = cache.load("optimise", opt_key, expect=("ranking", "backups", "covered"))
-        if hit:
-            tables, extras = hit
-            fields = extras["plan"]
-            chosen = np.asarray(fields.pop("chosen"), np.int64)
-            plan = opt.Plan(chosen=chosen, covered=tables["covered"]["covered"].to_numpy(bool), **fields)
-            ranking, backups = tables["ranking"], tables["backups"]
-            sweep = tables.get("sweep")
-            log.info("optimise: taken from the cache")
-        else:
-            plan, ranking, backups, sweep = optimise_stage(gains, sites, users, job, p)
-            tables = {"ranking": ranking, "backups": backups, "covered": pd.DataFrame({"covered": plan.covered})}
-            if sweep is not None:
-                tables["sweep"] = sweep
-            cache.store("optimise", opt_key, tables, {"plan": plan_fields(plan)})
-            recomputed.append("optimise")
-        timings["optimise"] = time.perf_counter() - t0
-        _advance(stage_bar, "outputs")
-        log.info("optimise: %s, %d surfaces, covered weight %.2f, bound %.2f, gap %.4f", plan.status,
-                 len(plan.chosen), plan.objective, plan.bound, plan.gap)
-
-        t0 = time.perf_counter()
-        field_checks = plan_checks(district, sites, sizes, users, gains, plan, p, heights_m,
-                                   job["inputs"]["height_uncertainty_m"])
-        timings["checks"] = time.perf_counter() - t0
-
-        for message in dict.fromkeys(str(w.message) for w in caught):  # unique, in order
+        ctx.notes["checks"] = []
+        with capture_notes(ctx.notes["checks"]):
+            field_checks = plan_checks(district, sites, sizes, users, gains, plan, ctx.params.radio, heights_m,
+                                       ctx.params.height_uncertainty_m)
+        ctx.timings["checks"] = time.perf_counter() - t0
+        notes = _unique([n for stage in ctx.notes.values() for n in stage])
+        for message in notes:
             log.warning(message)
-            if message not in district.notes:
-                district.notes.append(message)
         result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
-                           *field_checks, timings_s=timings, recomputed=recomputed)
+                           site_checks=field_checks[0], sensitivity=field_checks[1], notes=notes, stage_notes=ctx.notes, timings_s=ctx.timings, recomputed=ctx.recomputed,
+                           params=ctx.params)
         if write:
             t0 = time.perf_counter()
-            result.outputs = write_stage(result, p)
-            timings["outputs"] = time.perf_counter() - t0
-            _advance(stage_bar, "done")
-        log.info("finished; recomputed stages: %s", ", ".join(recomputed) or "none")
+            result.outputs = write_stage(result, ctx.params.radio)
+            ctx.timings["outputs"] = time.perf_counter() - t0
+            _advance(ctx.bar, "done")
+        log.info("finished; recomputed stages: %s", ", ".join(ctx.recomputed) or "none")
         return result
     finally:
-        caught_ctx.__exit__(None, None, None)
-        stage_bar.close()
-        if executor is not None:
-            executor.close()
-        log.removeHandler(handler)
-        handler.close()
+        ctx.bar.close()
+        if ctx.executor is not None:
+            ctx.executor.close()
+        if handler is not None:
+            log.removeHandler(handler)
+            handler.close()
 
 
 def write_stage(result: RunResult, p: RadioParams) -> dict:
@@ -229,7 +366,7 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         "timings_s": result.timings_s,
         "recomputed_stages": result.recomputed,
         "visibility_degrees": pairs_stats,
-        "notes": result.district.notes,
+        "notes": result.notes,
         "counts": {"buildings": len(result.district.buildings), "base_stations": len(result.district.base_stations),
                    "sites": len(result.sites), "users": len(result.users), "options": len(gains.options),
                    "coverage_rows": len(gains.coverage)},
@@ -238,15 +375,15 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         crs=result.district.crs, buildings=result.district.buildings, base_stations=result.district.base_stations,
         sites=result.sites, sizes=result.sizes, users=result.users, options=gains.options, coverage=gains.coverage,
         direct=gains.direct, plan=result.plan, ranking=result.ranking, backups=result.backups, sweep=result.sweep,
-        snr_target_db=p.snr_target_db, budget=job["budget"]["max_cost"] or None,
-        max_panels=job["budget"]["max_panels"] or None, params=job, run_info=run_info,
-        formats=tuple(job["output"]["formats"]), include_candidates=job["output"]["candidates_layer"],
-        title=job["output"]["title"], site_checks=result.site_checks, sensitivity=result.sensitivity,
+        snr_target_db=p.snr_target_db, budget=job.budget.max_cost, max_panels=job.budget.max_panels,
+        params=job.to_dict(), run_info=run_info, formats=tuple(job.output.formats),
+        include_candidates=job.output.candidates_layer, title=job.output.title, site_checks=result.site_checks,
+        sensitivity=result.sensitivity,
     )
     graph = {}
-    if job["output"]["los_graph"]:
-        graph["los_graph"] = write_los_graph(Path(job["output"]["folder"]) / "los_graph.graphml", gains)
-    return {**graph, **write_outputs(Path(job["output"]["folder"]), bundle)}
+    if job.output.los_graph:
+        graph["los_graph"] = write_los_graph(Path(job.output.folder) / "los_graph.graphml", gains)
+    return {**graph, **write_outputs(Path(job.output.folder), bundle)}
 
 
 def write_los_graph(path: Path, gains: GainResult) -> Path:
@@ -260,6 +397,6 @@ def write_los_graph(path: Path, gains: GainResult) -> Path:
     return write_with(path, lambda fh: nx.write_graphml(graph, fh), mode="wb")
 
 
-def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs) -> RunResult:
-    """Load, validate and run a job file (the Python API behind ``siting plan``)."""
-    return run(load_job(path, overrides), **kwargs)
+def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs: Any) -> RunResult:
+    """Load, validate and run a job file (what ``siting plan`` does); ``kwargs`` go to :func:`run`."""
+    return run(Job.from_toml(path, overrides), **kwargs)

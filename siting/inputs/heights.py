@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import InputDataError
+from ..errors import InputDataError, SitingWarning
 from .common import _listing
 
 MAX_HEIGHT_M = 1000.0
@@ -127,7 +127,7 @@ def _resolve_heights(
             f"{float(default_height_m):g} m was used."
         )
         notes.append(msg)
-        warnings.warn(msg, UserWarning, stacklevel=4)  # points at the caller of load_district
+        warnings.warn(msg, SitingWarning, stacklevel=4)  # points at the caller of load_district
     _check_range(height, ids, "the resolved height", path)
     return height, rule
 

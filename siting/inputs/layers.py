@@ -67,19 +67,9 @@ def _polygonal_parts(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return parts[keep], idx[keep]
 
 
-def _buildings(
-    raw: gpd.GeoDataFrame,
-    *,
-    path: Path,
-    crs: pyproj.CRS,
-    building_id_column: str,
-    height_column: str | None,
-    storey_height_m: float,
-    default_height_m: float | None,
-    notes: list[str],
-) -> gpd.GeoDataFrame:
-    df = raw
-    # ids
+def _building_ids(df: gpd.GeoDataFrame, path: Path, building_id_column: str, notes: list[str]) -> np.ndarray:
+    """Building ids as strings: the id column, else id/osm_id/@id, else the feature numbers (with a note)."""
+    id_col: str | None = building_id_column
     if building_id_column in df.columns:
         id_col = building_id_column
     else:
@@ -108,6 +98,22 @@ def _buildings(
             f"column '{id_col}'; ids must be unique (merge multi-part buildings into one MultiPolygon feature "
             "or give each its own id)"
         )
+    return ids
+
+
+def _buildings(
+    raw: gpd.GeoDataFrame,
+    *,
+    path: Path,
+    crs: pyproj.CRS,
+    building_id_column: str,
+    height_column: str | None,
+    storey_height_m: float,
+    default_height_m: float | None,
+    notes: list[str],
+) -> gpd.GeoDataFrame:
+    df = raw
+    ids = _building_ids(df, path, building_id_column, notes)
     # geometry types
     geoms = df.geometry.values
     missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
@@ -221,7 +227,7 @@ def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | N
                 f"{role} file '{path}' has no property '{col}' (required); its properties are "
                 f"{_listing([c for c in gdf.columns if c != gdf.geometry.name], 40)}; add '{col}' to every feature"
             )
-        return np.full(len(gdf), float(default))
+        return np.full(len(gdf), np.nan if default is None else float(default))
     raw = gdf[col]
     val = pd.to_numeric(raw, errors="coerce").to_numpy(float, copy=True)
     absent = raw.isna().to_numpy()
