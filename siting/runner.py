@@ -21,6 +21,14 @@ tile reads only the direct tiles of the users within reach of its spots, so it w
 else.  Each tile is cached on its own as soon as it is done (by the worker on this machine, by this process for
 an external cluster), which is the checkpoint a killed job resumes from.  With ``workers`` or ``scheduler`` the
 tiles run as Dask tasks (LocalCluster or an existing scheduler); without, in this process.
+
+Notes: the model notes of a stage (:class:`~siting.errors.SitingWarning`, caught by :func:`capture_notes`; a
+tile's are caught where it runs) are stored with the stage in the cache, each once, so a run that takes a stage
+from the cache, or runs its tiles on Dask, reports the same notes as a fresh run.
+
+Disk: ``write=True`` writes the outputs, ``siting.log`` and the cache (``<output.folder>/.cache``);
+``write=False`` writes nothing unless a ``cache_dir`` is given.  The stages themselves live in
+:mod:`siting.stages`, the tile executor in :mod:`siting.executor`.
 """
 
 from __future__ import annotations

@@ -18,11 +18,12 @@ from . import candidates as cand
 from . import checks, radio
 from . import optimize as opt
 from .cache import digest
+from .candidates import wall_conflicts
 from .district import District, load_district
 from .errors import SitingError, SitingWarning
 from .executor import NOTES, _collect, _halo, _submit_tiles, _tiles
 from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
-from .job import Job
+from .job import Area, Candidates, Demand, Inputs, Job
 from .tables import empty
 from .visibility import Obstacles
 
@@ -105,10 +106,10 @@ class StageParams:
         Tile size [m] (None = one tile).
     """
 
-    inputs: Any
-    area: Any
-    candidates: Any
-    demand: Any
+    inputs: Inputs
+    area: Area
+    candidates: Candidates
+    demand: Demand
     radio: RadioParams
     optimise: OptimiseParams
     height_uncertainty_m: float
@@ -138,7 +139,7 @@ def sizes_table(panels, frequency_ghz: float, element_pitch_wavelengths: float) 
     })
 
 
-def load_stage(inputs, area) -> District:
+def load_stage(inputs: Inputs, area: Area) -> District:
     """The district's layers in one metric CRS, from the job's ``inputs`` and ``area`` sections."""
     return load_district(
         buildings_path=inputs.buildings, base_stations_path=inputs.base_stations, sites_path=inputs.sites,
@@ -150,7 +151,7 @@ def load_stage(inputs, area) -> District:
     )
 
 
-def _facade_spots(district: District, c, sizes: pd.DataFrame, notes: list[str]) -> pd.DataFrame:
+def _facade_spots(district: District, c: Candidates, sizes: pd.DataFrame, notes: list[str]) -> pd.DataFrame:
     """Generated and given facade spots, numbered 0..n-1."""
     parts = []
     if c.generate:
@@ -172,7 +173,7 @@ def _facade_spots(district: District, c, sizes: pd.DataFrame, notes: list[str]) 
     return sites
 
 
-def candidates_stage(district: District, c, d, sizes: pd.DataFrame,
+def candidates_stage(district: District, c: Candidates, d: Demand, sizes: pd.DataFrame,
                      storey_height_m: float) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
     """Facade spots (generated and given) and demand points (grid, homes, given).
 
@@ -304,18 +305,6 @@ def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
             sort_key = sort_key * (int(minor.max()) + 1) + minor
         out = out.take(np.argsort(sort_key, kind="stable")).reset_index(drop=True)
     return out
-
-
-def wall_conflicts(sites: pd.DataFrame, min_spacing_m: float) -> np.ndarray:
-    """Pairs of site rows on the same wall closer than ``min_spacing_m`` (3-D), as an int array (k, 2)."""
-    if min_spacing_m <= 0 or len(sites) < 2:
-        return np.zeros((0, 2), np.int64)
-    from scipy.spatial import cKDTree
-
-    xyz = sites[["x", "y", "z_m"]].to_numpy(float)
-    pairs = cKDTree(xyz).query_pairs(min_spacing_m - 1e-9, output_type="ndarray")
-    wall = sites["wall_id"].to_numpy()
-    return pairs[wall[pairs[:, 0]] == wall[pairs[:, 1]]].astype(np.int64)
 
 
 def optimisation_inputs(gains: GainResult, users: pd.DataFrame, p: RadioParams):
