@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import logging
 import os
+import re
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
@@ -164,6 +165,33 @@ def _tile_job(fn, args, store_at, **shared):
     if store_at is not None:
         StageCache(store_at[0]).store(store_at[1], store_at[2], tables, {NOTES: notes})
     return {**tables, NOTES: notes}
+
+
+_NUMBER = re.compile(r"\d+(?:\.\d+)?")
+
+
+def merge_tile_notes(notes: list[str]) -> list[str]:
+    """The notes of a stage's tiles, each once: a note every tile repeats with its own count becomes one note.
+
+    Notes equal but for one whole number (``"3 value(s) of d2d_m outside ..."`` from one tile, ``"6 value(s) ..."``
+    from another) become one note with the sum (``"9 value(s) ... (summed over 2 tiles)"``); identical notes
+    are kept once; any other note is kept as it is, in first-seen order.
+    """
+    groups: dict[str, list[str]] = {}
+    for note in dict.fromkeys(notes):
+        groups.setdefault(_NUMBER.sub("#", note), []).append(note)
+    out = []
+    for members in groups.values():
+        numbers = [_NUMBER.findall(m) for m in members]
+        differ = [i for i in range(len(numbers[0])) if len({n[i] for n in numbers}) > 1]
+        if len(members) == 1 or len(differ) != 1 or not all(n[differ[0]].isdigit() for n in numbers):
+            out += members
+            continue
+        total = sum(int(n[differ[0]]) for n in numbers)
+        spans = list(_NUMBER.finditer(members[0]))
+        start, end = spans[differ[0]].span()
+        out.append(f"{members[0][:start]}{total}{members[0][end:]} (summed over {len(members)} tiles)")
+    return out
 
 
 def _tables(result: dict) -> dict:

@@ -21,7 +21,7 @@ from .cache import digest
 from .candidates import wall_conflicts
 from .district import District, load_district
 from .errors import SitingError, SitingWarning
-from .executor import NOTES, _collect, _halo, _submit_tiles, _tiles
+from .executor import NOTES, _collect, _halo, _submit_tiles, _tiles, merge_tile_notes
 from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
 from .job import Area, Candidates, Demand, Inputs, Job
 from .tables import empty
@@ -236,7 +236,8 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
 
     ``heights_m`` are the building heights the links are computed with (see :func:`siting.checks.planning_heights`).
     The names of the tiles computed (not read from the cache) are appended to ``computed``, the tiles' model
-    notes (in tile order, repeats dropped) to ``notes``.
+    notes to ``notes`` (in tile order; a note each tile repeats with its own count once, with the sum: see
+    :func:`siting.executor.merge_tile_notes`).
 
     A site tile's task depends only on the direct tiles of the users within reach of its spots, so on Dask it
     starts as soon as those are done (no barrier between the two steps, nothing merged in this process between).
@@ -288,7 +289,7 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     site_user = _concat([t["site_user"] for t in surface_parts], ["a", "b"])
     if notes is not None:
         tile_notes = (n for part in [*direct_parts, *surface_parts] for n in part.get(NOTES, ()))
-        notes.extend(n for n in dict.fromkeys(tile_notes) if n not in notes)
+        notes.extend(n for n in merge_tile_notes(list(tile_notes)) if n not in notes)
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
 
 

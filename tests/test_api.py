@@ -116,3 +116,16 @@ def test_readme_python_api_examples_run(monkeypatch):
     assert result.attempted >= 10
     assert result.failed == 0
     assert os.getcwd() == str(ROOT)
+
+
+def test_tile_notes_once_per_stage():
+    """A note every tile repeats with its own count is one note per stage, with the sum; others stay as they are."""
+    from siting.executor import merge_tile_notes
+
+    per_tile = ["3GPP TR 38.901 UMi: 3 value(s) of d2d_m outside [10, 5000]",
+                "station A: above 20 m", "3GPP TR 38.901 UMi: 6 value(s) of d2d_m outside [10, 5000]",
+                "station A: above 20 m", "height 1.5 m", "height 2.5 m"]
+    assert merge_tile_notes(per_tile) == [
+        "3GPP TR 38.901 UMi: 9 value(s) of d2d_m outside [10, 5000] (summed over 2 tiles)",
+        "station A: above 20 m", "height 1.5 m", "height 2.5 m"]
+    assert merge_tile_notes([]) == []
