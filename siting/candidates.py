@@ -56,7 +56,6 @@ __all__ = [
     "facade_homes",
     "given_users",
     "combine_users",
-    "wall_conflicts",
 ]
 
 SIMPLIFY_M = 0.2  # default Douglas-Peucker tolerance that removes near-collinear vertices [m]
@@ -653,15 +652,3 @@ def combine_users(*tables_) -> pd.DataFrame:
         out[c] = out[c].astype(float)
     out["kind"] = out["kind"].astype(object)
     return tables.check(out, "users", "combine_users")
-
-
-def wall_conflicts(sites: pd.DataFrame, min_spacing_m: float) -> np.ndarray:
-    """Pairs of site rows on the same wall closer than ``min_spacing_m`` (3-D), as an int array (k, 2)."""
-    if min_spacing_m <= 0 or len(sites) < 2:
-        return np.zeros((0, 2), np.int64)
-    from scipy.spatial import cKDTree
-
-    xyz = sites[["x", "y", "z_m"]].to_numpy(float)
-    pairs = cKDTree(xyz).query_pairs(min_spacing_m - 1e-9, output_type="ndarray")
-    wall = sites["wall_id"].to_numpy()
-    return pairs[wall[pairs[:, 0]] == wall[pairs[:, 1]]].astype(np.int64)

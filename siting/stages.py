@@ -18,7 +18,6 @@ from . import candidates as cand
 from . import checks, radio
 from . import optimize as opt
 from .cache import digest
-from .candidates import wall_conflicts
 from .district import District, load_district
 from .errors import SitingError, SitingWarning
 from .executor import NOTES, _collect, _halo, _submit_tiles, _tiles, merge_tile_notes
@@ -26,6 +25,7 @@ from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct
 from .job import Area, Candidates, Demand, Inputs, Job
 from .tables import empty
 from .visibility import Obstacles
+from .walls import wall_conflicts
 
 log = logging.getLogger("siting")
 
