@@ -6,6 +6,12 @@ job-file reference printed in the README (``siting keys`` prints it).  Validatio
 raises them together in one :class:`~siting.errors.JobError`: an unknown key names the nearest valid key, a
 wrong type or out-of-range value names the key, its unit and the allowed range.  Relative paths resolve against
 the folder of the job file.  Overrides stack: file -> ``--set section.key=value`` -> keyword arguments of the API.
+
+The validated job is a :class:`Job`: one frozen dataclass per section, generated from :data:`SCHEMA` (so the
+reference, the validation and the typed fields cannot drift apart).  A key's "none" value in the file (``0`` for
+a limit, ``''`` for an optional path, ``[]`` for an automatic list; :attr:`Key.none`) reads ``None`` there, lists
+read as tuples and ``[[surfaces.panels]]`` as :class:`Panel` objects.  :func:`load_job` and :func:`validate`
+return the same job as plain dicts in the file's encoding (:meth:`Job.to_dict`), for hashing and printing.
 """
 
 from __future__ import annotations
