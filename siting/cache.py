@@ -17,7 +17,9 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -41,15 +43,16 @@ class StageCache:
     """Read and write cache entries under ``root``; ``log`` receives one line per event.
 
     ``read=False`` (the CLI's ``--fresh``) ignores what is stored but still stores new results, so the next run
-    can resume from them.
+    can resume from them.  ``root=None`` is no cache: nothing is read or written (``siting.plan(write=False)``).
     """
 
-    def __init__(self, root: str | Path, log=lambda msg: None, read: bool = True):
-        self.root = Path(root)
+    def __init__(self, root: str | Path | None, log: Callable[[str], Any] = lambda msg: None, read: bool = True):
+        self.root = Path(root) if root is not None else None
         self.log = log
-        self.read = read
+        self.read = read and root is not None
 
     def _dir(self, name: str, key: str) -> Path:
+        assert self.root is not None
         return self.root / f"{name}-{key[:24]}"
 
     def load(self, name: str, key: str, expect: tuple[str, ...] = ()) -> tuple[dict[str, pd.DataFrame], dict] | None:
@@ -85,7 +88,9 @@ class StageCache:
             return None
 
     def store(self, name: str, key: str, tables: dict[str, pd.DataFrame], extras: dict | None = None) -> None:
-        """Write an entry atomically (temporary folder, then rename)."""
+        """Write an entry atomically (temporary folder, then rename); nothing without a root."""
+        if self.root is None:
+            return
         self.root.mkdir(parents=True, exist_ok=True)
         final = self._dir(name, key)
         tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.", dir=self.root))

@@ -46,7 +46,7 @@ import pandas as pd
 import shapely
 
 from . import tables
-from .errors import InputDataError, JobError
+from .errors import InputDataError, JobError, SitingWarning
 
 __all__ = [
     "wall_segments",
@@ -431,7 +431,7 @@ def snap_given_spots(buildings, given, *, snap_tolerance_m: float = 2.0, default
         warnings.warn(f"{where}: {len(dropped)} given spot(s) farther than snap_tolerance_m = "
                       f"{snap_tolerance_m:g} m from any usable wall were dropped: {', '.join(dropped[:20])}"
                       f"{' ...' if len(dropped) > 20 else ''}; move them onto a facade or raise "
-                      "candidates.snap_tolerance_m", stacklevel=2)
+                      "candidates.snap_tolerance_m", SitingWarning, stacklevel=2)
     p = piece[ok]
     q0, u, nrm, L = w["q0"][p], w["unit"][p], w["normal"][p], w["length"][p]
     t = np.clip(np.einsum("ij,ij->i", np.stack([x[ok], y[ok]], axis=1) - q0, u), 0.0, L)
@@ -441,7 +441,7 @@ def snap_given_spots(buildings, given, *, snap_tolerance_m: float = 2.0, default
     high = zz > height[b]
     if high.any():
         warnings.warn(f"{where}: given spot(s) {', '.join(refs[ok][high][:10])} are mounted above the roof of "
-                      "their building; check z_m", stacklevel=2)
+                      "their building; check z_m", SitingWarning, stacklevel=2)
     out = _sites_table(start_id, b, ids, p, spot, zz, nrm, L, "given", refs[ok])
     return tables.check(out, "sites", where), dropped
 
@@ -578,7 +578,7 @@ def facade_homes(buildings, *, storey_height_m: float = 3.0, window_height_m: fl
     if lost.any():
         warnings.warn(f"{where}: {int(lost.sum())} building(s) have no usable facade for home terminals (party "
                       f"walls or walls shorter than {min_wall_m:g} m); their {households[lost].sum():.1f} estimated "
-                      "households are not in the demand", stacklevel=2)
+                      "households are not in the demand", SitingWarning, stacklevel=2)
     weight = households[b] / per_building[b] if len(b) else np.zeros(0)
     return _users(xy[:, 0], xy[:, 1], z, weight, "home", building_idx=b,
                   normal=_azimuth_deg(nrm[:, 0], nrm[:, 1]), where=where)
@@ -626,7 +626,7 @@ def given_users(buildings, given, *, allow_indoor: bool = False, default_z_m: fl
         if n_indoor:
             warnings.warn(f"{where}: {n_indoor} given user(s) inside buildings were dropped ("
                           f"{', '.join(refs[indoor][:10])}{' ...' if n_indoor > 10 else ''}); set "
-                          "demand.allow_indoor = true to keep them as indoor users", stacklevel=2)
+                          "demand.allow_indoor = true to keep them as indoor users", SitingWarning, stacklevel=2)
         x, y, z, wgt, kind, host, refs = x[keep], y[keep], z[keep], wgt[keep], kind[keep], host[keep], refs[keep]
         dropped = n_indoor
     else:

@@ -67,23 +67,22 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _dispatch(args) -> int:
-    from .job import load_job, reference_markdown
+    from .job import Job, reference_markdown
 
     if args.command == "keys":
         print(reference_markdown())
         return 0
-    job = load_job(args.job, args.overrides)
+    job = Job.from_toml(args.job, args.overrides)
     if args.command == "validate":
-        import warnings
-
         from .district import summary
-        from .runner import load_stage
+        from .runner import capture_notes
+        from .stages import load_stage
 
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            district = load_stage(job)
+        notes: list[str] = []
+        with capture_notes(notes):
+            district = load_stage(job.inputs, job.area)
         print(summary(district))
-        for message in dict.fromkeys(str(w.message) for w in caught):
+        for message in notes:
             if message not in district.notes:  # the summary lists the notes already
                 print(f"warning: {message}")
         return 0
@@ -99,7 +98,7 @@ def _dispatch(args) -> int:
         print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}, weight newly covered "
               f"{plan.objective:,.1f} (before {covered_before:,.1f} of {total:,.1f}); solver {plan.status}, "
               f"gap {plan.gap:.2%}")
-        print(f"outputs in {job['output']['folder']}")
+        print(f"outputs in {job.output.folder}")
     return 0
 
 

@@ -34,3 +34,11 @@ class SolverError(SitingError):
     """The optimiser gave no usable plan."""
 
     exit_code = 3
+
+
+class SitingWarning(UserWarning):
+    """A model note: a default used, a repair made, a model outside its stated validity, an input left out.
+
+    The runner captures these once per stage (repeats dropped), stores them with the stage in the cache and
+    lists them in the report and ``run.json``, so a rerun from the cache reports the same notes.
+    """

@@ -6,19 +6,29 @@ job-file reference printed in the README (``siting keys`` prints it).  Validatio
 raises them together in one :class:`~siting.errors.JobError`: an unknown key names the nearest valid key, a
 wrong type or out-of-range value names the key, its unit and the allowed range.  Relative paths resolve against
 the folder of the job file.  Overrides stack: file -> ``--set section.key=value`` -> keyword arguments of the API.
+
+The validated job is a :class:`Job`: one frozen dataclass per section, generated from :data:`SCHEMA` (so the
+reference, the validation and the typed fields cannot drift apart).  A key's "none" value in the file (``0`` for
+a limit, ``''`` for an optional path, ``[]`` for an automatic list; :attr:`Key.none`) reads ``None`` there, lists
+read as tuples and ``[[surfaces.panels]]`` as :class:`Panel` objects.  :func:`load_job` and :func:`validate`
+return the same job as plain dicts in the file's encoding (:meth:`Job.to_dict`), for hashing and printing.
 """
 
 from __future__ import annotations
 
 import copy
 import difflib
+import json
 import math
 import tomllib
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, fields, make_dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, TypeAlias
 
 from .errors import JobError
+
+_NEVER = object()  # marker: the key has no "none" value
 
 
 @dataclass(frozen=True)
@@ -33,10 +43,12 @@ class Key:
     doc: str = ""
     choices: tuple = ()
     required: bool = False
+    #: the file value that means "none" (no limit, not given, automatic): it becomes ``None`` in :class:`Job`
+    none: Any = _NEVER
 
     def range_text(self) -> str:
         if self.choices:
-            return "one of " + ", ".join(repr(c) for c in self.choices)
+            return "one of " + ", ".join(toml_literal(c) for c in self.choices)
         if self.lo is None and self.hi is None:
             return ""
         lo = "-inf" if self.lo is None else f"{self.lo:g}"
@@ -56,10 +68,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "inputs": {
         "buildings": Key("path", None, doc="building footprints: GeoJSON, GeoPackage, Shapefile, FlatGeobuf, "
                          "GeoParquet or .osm.pbf (needs the osm extra)", required=True),
-        "buildings_layer": Key("str", "", doc="layer name inside a multi-layer file ('' = the first layer)"),
+        "buildings_layer": Key("str", "", none="", doc="layer name inside a multi-layer file ('' = the first layer)"),
         "building_id_column": Key("str", "id", doc="column holding building ids (falls back to id/osm_id, then "
                                   "the feature index)"),
-        "height_column": Key("str", "", doc="column with roof height in metres, tried first ('' = none)"),
+        "height_column": Key("str", "", none="", doc="column with roof height in metres, tried first ('' = none)"),
         "storey_height_m": Key("float", 3.0, "m", 2.0, 6.0, "height per storey for building:levels"),
         "default_height_m": Key("float", 9.0, "m", 2.0, 300.0, "height for buildings with no usable tag"),
         "height_uncertainty_m": Key("float", 3.0, "m", 0.0, 100.0, "height band (+/-) of buildings whose height "
@@ -67,14 +79,14 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                     "flagged"),
         "base_stations": Key("path", None, doc="point layer of base stations (bs_id, z_m, tx_power_dbm, "
                              "max_gain_dbi, azimuth_deg, downtilt_deg, pattern)", required=True),
-        "sites": Key("path", "", doc="optional point layer of given facade spots, snapped to walls"),
-        "users": Key("path", "", doc="optional point layer of given demand points"),
+        "sites": Key("path", "", none="", doc="optional point layer of given facade spots, snapped to walls"),
+        "users": Key("path", "", none="", doc="optional point layer of given demand points"),
         "user_weight_column": Key("str", "weight", doc="column of the users layer holding the demand weight"),
-        "crs": Key("str", "", doc="projected CRS for all metric work, e.g. 'EPSG:25832' ('' = local UTM zone)"),
+        "crs": Key("str", "", none="", doc="projected CRS for all metric work, e.g. 'EPSG:25832' ('' = local UTM zone)"),
     },
     "area": {
-        "bbox": Key("floats", [], "deg", doc="[min_lon, min_lat, max_lon, max_lat] clip box ([] = whole layer)"),
-        "polygon": Key("path", "", doc="polygon layer bounding the area of interest ('' = none)"),
+        "bbox": Key("floats", [], "deg", none=[], doc="[min_lon, min_lat, max_lon, max_lat] clip box ([] = whole layer)"),
+        "polygon": Key("path", "", none="", doc="polygon layer bounding the area of interest ('' = none)"),
     },
     "candidates": {
         "generate": Key("bool", True, doc="derive facade spots from the footprints"),
@@ -148,27 +160,28 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                      "efficiency curve ([] = constant reflection_efficiency)"),
         "efficiency_values": Key("floats", [], "linear", 0.0, 1.0, "reflection efficiencies at "
                                  "efficiency_angles_deg"),
-        "load_cap_weight": Key("float", 0.0, "weight", 0.0, None, "most weight one surface may carry (0 = no cap)"),
+        "load_cap_weight": Key("float", 0.0, "weight", 0.0, None, "most weight one surface may carry (0 = no cap)", none=0.0),
         "panels": Key("panels", None, doc="panel catalogue: [[surfaces.panels]] tables with size_id, width_m, "
                       "height_m, cost, install_cost", required=True),
     },
     "budget": {
-        "max_cost": Key("float", 0.0, "currency", 0.0, None, "spending limit (0 = no cost limit)"),
-        "max_panels": Key("int", 0, "panels", 0, None, "panel count limit (0 = no count limit)"),
+        "max_cost": Key("float", 0.0, "currency", 0.0, None, "spending limit (0 = no cost limit)", none=0.0),
+        "max_panels": Key("int", 0, "panels", 0, None, "panel count limit (0 = no count limit)", none=0),
         "min_spacing_m": Key("float", 0.0, "m", 0.0, 100.0, "least distance between chosen spots on one wall"),
         "target_share": Key("float", 0.0, "share", 0.0, 1.0, "if > 0: find the cheapest plan covering this "
-                            "share of the weight the surfaces can reach, instead of maximising coverage"),
-        "sweep_budgets": Key("floats", [], "currency", 0.0, None, "budgets for the coverage-versus-budget curve"),
+                            "share of the weight the surfaces can reach, instead of maximising coverage", none=0.0),
+        "sweep_budgets": Key("floats", [], "currency", 0.0, None, "budgets for the coverage-versus-budget curve "
+                             "([] = 0.25x to 2x of max_cost, see siting.stages.SWEEP_BUDGET_FACTORS)", none=[]),
     },
     "solver": {
         "name": Key("str", "highs", choices=("highs", "cbc"), doc="integer-programming solver"),
         "time_limit_s": Key("float", 120.0, "s", 1.0, 604800.0, "wall-clock limit per solve"),
         "mip_gap": Key("float", 1e-4, "share", 0.0, 0.5, "relative optimality gap at which to stop"),
-        "threads": Key("int", 0, "threads", 0, 256, "solver threads (0 = solver default)"),
+        "threads": Key("int", 0, "threads", 0, 256, "solver threads (0 = solver default)", none=0),
     },
     "run": {
         "tile_m": Key("float", 500.0, "m", 0.0, 100000.0, "tile size for checkpoints and parallel work "
-                      "(0 = one tile)"),
+                      "(0 = one tile)", none=0.0),
     },
     "output": {
         "folder": Key("path", "out", doc="output folder (created)"),
@@ -275,15 +288,13 @@ def parse_override(text: str) -> tuple[str, str, Any]:
     return section, key, value
 
 
-def validate(raw: dict, base_dir: Path, source: str = "job") -> dict:
-    """Check a raw job dict against :data:`SCHEMA`; return the resolved job (defaults filled, paths absolute)."""
-    problems: list[str] = []
-    job = defaults()
+def _check_sections(raw: Mapping, job: dict, problems: list[str]) -> None:
+    """Unknown sections and keys (with the nearest valid name), wrong types and ranges; copies values into ``job``."""
     for section, body in raw.items():
         if section not in SCHEMA:
             problems.append(f"unknown section [{section}]{_nearest(section, SCHEMA).replace('keys', 'sections')}")
             continue
-        if not isinstance(body, dict):
+        if not isinstance(body, Mapping):
             problems.append(f"[{section}] must be a table of keys, got {body!r}")
             continue
         for name, value in body.items():
@@ -293,6 +304,26 @@ def validate(raw: dict, base_dir: Path, source: str = "job") -> dict:
                 continue
             _check_value(f"{section}.{name}", key, value, problems)
             job[section][name] = copy.deepcopy(value)
+
+
+def _check_bbox(bbox: Any, problems: list[str]) -> None:
+    if not (isinstance(bbox, list) and bbox):
+        return
+    if len(bbox) != 4 or not (bbox[0] < bbox[2] and bbox[1] < bbox[3]):
+        problems.append(f"area.bbox: expected [min_lon, min_lat, max_lon, max_lat] with min < max, got {bbox}")
+    elif not (-180 <= bbox[0] <= 180 and -180 <= bbox[2] <= 180 and -90 <= bbox[1] <= 90 and -90 <= bbox[3] <= 90):
+        problems.append(f"area.bbox: {bbox} is not longitude/latitude in degrees; give WGS84 degrees")
+
+
+def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
+    """Check a raw job dict against :data:`SCHEMA`; return the resolved job (defaults filled, paths absolute).
+
+    The result is the job in its file encoding (plain dicts and lists, ``0`` / ``''`` / ``[]`` for "none");
+    :meth:`Job.from_dict` turns it into the typed, frozen :class:`Job`.
+    """
+    problems: list[str] = []
+    job = defaults()
+    _check_sections(raw, job, problems)
     for section, keys in SCHEMA.items():
         for name, key in keys.items():
             if key.required and job[section][name] is None:
@@ -303,12 +334,7 @@ def validate(raw: dict, base_dir: Path, source: str = "job") -> dict:
     heights = job["candidates"]["mount_heights_m"]
     if isinstance(heights, list) and not heights:
         problems.append("candidates.mount_heights_m: give at least one mounting height, e.g. [4.0, 8.0]")
-    bbox = job["area"]["bbox"]
-    if isinstance(bbox, list) and bbox:
-        if len(bbox) != 4 or not (bbox[0] < bbox[2] and bbox[1] < bbox[3]):
-            problems.append(f"area.bbox: expected [min_lon, min_lat, max_lon, max_lat] with min < max, got {bbox}")
-        elif not (-180 <= bbox[0] <= 180 and -180 <= bbox[2] <= 180 and -90 <= bbox[1] <= 90 and -90 <= bbox[3] <= 90):
-            problems.append(f"area.bbox: {bbox} is not longitude/latitude in degrees; give WGS84 degrees")
+    _check_bbox(job["area"]["bbox"], problems)
     if problems:
         raise JobError(problems, source)
     for section, keys in SCHEMA.items():
@@ -318,35 +344,201 @@ def validate(raw: dict, base_dir: Path, source: str = "job") -> dict:
     return job
 
 
-def load_job(path: str | Path, overrides: list[str] | None = None, **api_overrides: Any) -> dict:
-    """Read, override and validate a job file.
-
-    ``overrides`` are ``section.key=value`` strings (the CLI's ``--set``); ``api_overrides`` are
-    ``section__key=value`` keyword arguments applied last.
-    """
+def _read_toml(path: str | Path) -> dict:
     path = Path(path)
     if not path.is_file():
         raise JobError(f"job file {str(path)!r} not found; check the path (relative to {Path.cwd()})", str(path))
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise JobError(f"not valid TOML: {exc}; fix the syntax (https://toml.io)", str(path)) from None
-    items = [parse_override(o) for o in overrides or []]
-    items += [(*k.split("__", 1), v) for k, v in api_overrides.items()]
+
+
+def _apply(raw: dict, items) -> dict:
+    """Set ``(section, key, value)`` items in a raw job (a non-table section is left for validation to report)."""
     for section, key, value in items:
         raw.setdefault(section, {})
         if isinstance(raw[section], dict):
             raw[section][key] = value
-    return validate(raw, path.parent, str(path))
+    return raw
+
+
+def _section_items(sections: Mapping[str, Any]) -> list[tuple[str, str, Any]]:
+    """``{"budget": {"max_cost": 1}}`` and ``budget__max_cost=1`` keyword overrides as (section, key, value)."""
+    items = []
+    for name, value in sections.items():
+        if "__" in name:
+            items.append((*name.split("__", 1), value))
+        elif isinstance(value, Mapping):
+            items += [(name, key, v) for key, v in value.items()]
+        else:
+            raise JobError(f"override {name}={value!r}: expected a table of keys, e.g. budget={{'max_cost': 20000}}",
+                           "overrides")
+    return items
+
+
+def load_job(path: str | Path, overrides: list[str] | None = None, **api_overrides: Any) -> dict:
+    """Read, override and validate a job file; the resolved job as a plain dict (see :meth:`Job.from_toml`).
+
+    ``overrides`` are ``section.key=value`` strings (the CLI's ``--set``); ``api_overrides`` are
+    ``section__key=value`` keyword arguments or ``section={key: value}`` tables, applied last.
+    """
+    raw = _read_toml(path)
+    _apply(raw, [parse_override(o) for o in overrides or []])
+    _apply(raw, _section_items(api_overrides))
+    return validate(raw, Path(path).parent, str(path))
+
+
+# ----------------------------------------------------------------------------------------------- typed job
+def toml_literal(value: Any) -> str:
+    """``value`` written as TOML: ``true``, ``"out"``, ``[4.0, 8.0]``, ``["geojson"]``."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value)  # a TOML basic string uses the same escapes
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(toml_literal(v) for v in value) + "]"
+    return repr(value)
+
+
+_PY_TYPE: dict[str, Any] = {"float": float, "int": int, "bool": bool, "str": str, "path": str,
+                            "floats": tuple[float, ...], "list": tuple[str, ...]}
+
+
+def _to_typed(key: Key, value: Any) -> Any:
+    """A resolved file value as the typed value: ``None`` for the key's "none" value, tuples for lists."""
+    if key.none is not _NEVER and value == key.none:
+        return None
+    if key.type == "panels":
+        return tuple(Panel(**{k: _to_typed(PANEL_KEYS[k], v) for k, v in panel.items()}) for panel in value)
+    if key.type in ("floats", "list"):
+        return tuple(float(v) if key.type == "floats" else v for v in value)
+    return float(value) if key.type == "float" else value
+
+
+def _to_file(key: Key, value: Any) -> Any:
+    """The inverse of :func:`_to_typed`: the value as the job file (and :func:`validate`) writes it."""
+    if value is None:
+        return copy.deepcopy(key.none)
+    if key.type == "panels":
+        return [{f.name: _to_file(PANEL_KEYS[f.name], getattr(p, f.name)) for f in fields(p)} for p in value]
+    return list(value) if key.type in ("floats", "list") else value
+
+
+def _attributes_doc(keys: dict[str, Key]) -> str:
+    lines = ["", "Attributes", "----------"]
+    for name, key in keys.items():
+        unit = f" [{key.unit}]" if key.unit else ""
+        none = f"; ``None`` when the file omits it or gives {toml_literal(key.none)}" if key.none is not _NEVER else ""
+        lines += [f"{name} : {key.type}{unit}", f"    {key.doc}{none}."]
+    return "\n".join(lines)
+
+
+def _section_class(class_name: str, keys: dict[str, Key], what: str) -> type:
+    """A frozen dataclass with one typed field per key of ``keys`` (generated from the schema)."""
+    spec = []
+    for name, key in keys.items():
+        tp = tuple[Any, ...] if key.type == "panels" else _PY_TYPE[key.type]
+        spec.append((name, tp | None if key.none is not _NEVER else tp))
+    cls = make_dataclass(class_name, spec, frozen=True)
+    cls.__module__ = __name__  # (the keyword of make_dataclass needs Python 3.12)
+    cls.__doc__ = f"{what} (frozen; generated from :data:`siting.job.SCHEMA`).\n" + _attributes_doc(keys)
+    return cls
+
+
+if TYPE_CHECKING:  # the classes are generated below; type checkers see them as Any
+    Panel: TypeAlias = Any
+    Inputs: TypeAlias = Any
+    Area: TypeAlias = Any
+    Candidates: TypeAlias = Any
+    Demand: TypeAlias = Any
+    Radio: TypeAlias = Any
+    Surfaces: TypeAlias = Any
+    Budget: TypeAlias = Any
+    Solver: TypeAlias = Any
+    Run: TypeAlias = Any
+    Output: TypeAlias = Any
+else:
+    Panel = _section_class("Panel", PANEL_KEYS, "One panel size of the catalogue, ``[[surfaces.panels]]``")
+    Inputs, Area, Candidates, Demand, Radio, Surfaces, Budget, Solver, Run, Output = (
+        _section_class(name.capitalize(), SCHEMA[name], f"The job's ``[{name}]`` section") for name in SCHEMA)
+
+
+@dataclass(frozen=True)
+class Job:
+    """A validated job: one frozen section object per ``[section]`` of the job file, ``None`` for "none".
+
+    Build one with :meth:`from_toml` or :meth:`from_dict`; every key is checked against :data:`SCHEMA` (the
+    same table ``siting keys`` prints).  Fields cannot be assigned (``dataclasses.FrozenInstanceError``); use
+    :meth:`replace` for a changed copy, which is validated again.
+    """
+
+    inputs: Inputs
+    area: Area
+    candidates: Candidates
+    demand: Demand
+    radio: Radio
+    surfaces: Surfaces
+    budget: Budget
+    solver: Solver
+    run: Run
+    output: Output
+
+    @classmethod
+    def from_dict(cls, raw: Mapping[str, Any], base_dir: str | Path = ".", source: str = "job") -> Job:
+        """Validate a job given as nested tables (as in the TOML file); relative paths resolve against ``base_dir``."""
+        return cls._from_resolved(validate(copy.deepcopy(dict(raw)), Path(base_dir), source))
+
+    @classmethod
+    def from_toml(cls, path: str | Path, overrides: list[str] | None = None, **sections: Any) -> Job:
+        """Read and validate a job file.
+
+        ``overrides`` are ``section.key=value`` strings (as the CLI's ``--set``); ``sections`` are tables such as
+        ``budget={"max_cost": 20000}``, applied last.  Relative paths resolve against the job file's folder.
+        """
+        return cls._from_resolved(load_job(path, overrides, **sections))
+
+    @classmethod
+    def _from_resolved(cls, job: Mapping[str, Any]) -> Job:
+        return cls(**{section: SECTION_CLASSES[section](**{name: _to_typed(key, job[section][name])
+                                                            for name, key in keys.items()})
+                      for section, keys in SCHEMA.items()})
+
+    def to_dict(self) -> dict[str, dict[str, Any]]:
+        """The job in its file encoding (lists, ``0`` / ``''`` / ``[]`` for "none"), e.g. to hash or print it."""
+        return {section: {name: _to_file(key, getattr(getattr(self, section), name)) for name, key in keys.items()}
+                for section, keys in SCHEMA.items()}
+
+    def replace(self, **sections: Mapping[str, Any]) -> Job:
+        """A validated copy with keys changed, e.g. ``job.replace(budget={"max_cost": 20000})``.
+
+        Relative paths among the new values resolve against the current folder.
+        """
+        if not sections:
+            return self
+        return Job._from_resolved(validate(_apply(self.to_dict(), _section_items(sections)), Path.cwd(), "job"))
+
+
+#: section name -> its generated frozen dataclass
+SECTION_CLASSES: dict[str, Any] = {name: globals()[name.capitalize()] for name in SCHEMA}
 
 
 def reference_markdown() -> str:
-    """The job-file reference as a Markdown table (used in the README and by ``siting keys``)."""
+    """The job-file reference as a Markdown table (used in the README and by ``siting keys``).
+
+    Defaults are TOML literals; a key whose default is its "none" value reads ``None`` in :class:`Job`.
+    """
     head = ["| key | type | unit | default | range | meaning |", "|---|---|---|---|---|---|"]
 
+    def default(key: Key) -> str:
+        if key.required:
+            return "required"
+        text = f"`{toml_literal(key.default)}`"
+        return text + " (none)" if key.none is not _NEVER and key.default == key.none else text
+
     def rows(keys: dict[str, Key]) -> list[str]:
-        return [f"| `{name}` | {key.type} | {key.unit} | {'required' if key.required else repr(key.default)} | "
-                f"{key.range_text()} | {key.doc} |" for name, key in keys.items()]
+        return [f"| `{name}` | {key.type} | {key.unit} | {default(key)} | {key.range_text()} | {key.doc} |"
+                for name, key in keys.items()]
 
     lines = []
     for section, keys in SCHEMA.items():

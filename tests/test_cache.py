@@ -40,3 +40,13 @@ def test_round_trip_and_every_kind_of_bad_entry(tmp_path):
     fresh.store("stage", key, {"t": table})
     assert fresh.load("stage", key) is None  # --fresh reads nothing ...
     assert StageCache(tmp_path).load("stage", key) is not None  # ... but leaves a good entry behind
+
+
+def test_no_root_is_no_cache(tmp_path, monkeypatch):
+    """``StageCache(None)`` (``siting.plan(write=False)`` without a cache folder) reads and writes nothing."""
+    monkeypatch.chdir(tmp_path)
+    cache = StageCache(None)
+    key = digest(["stage", 1])
+    cache.store("stage", key, {"t": pd.DataFrame({"a": [1]})}, {"notes": ["n"]})
+    assert cache.load("stage", key) is None
+    assert list(tmp_path.iterdir()) == []

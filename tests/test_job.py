@@ -52,7 +52,7 @@ def test_all_problems_reported_together(tmp_path):
     assert len(err.value.problems) == 3
     assert "radio.frequency_ghz" in msg and "0.5 .. 100 GHz" in msg
     assert "radio.bandwidth_mhz" in msg and "[MHz]" in msg
-    assert "'highs'" in msg
+    assert '"highs"' in msg
 
 
 def test_missing_required_and_bad_panel(tmp_path):
@@ -94,6 +94,26 @@ def test_invalid_toml_and_missing_file(tmp_path):
 
 def test_reference_lists_every_key():
     ref = reference_markdown()
-    for section, keys in SCHEMA.items():
+    for keys in SCHEMA.values():
         for name in keys:
             assert f"`{name}`" in ref
+
+
+def test_typed_job_reads_none_for_no_limit(tmp_path):
+    """Every key whose file value means "none" (0, '' or []) reads None in the frozen Job; others keep their value."""
+    import dataclasses
+
+    from siting.job import _NEVER, Job
+
+    path = write(tmp_path, GOOD.replace("max_cost = 5000.0", "max_cost = 0"))
+    job = Job.from_toml(path)
+    none_keys = [(s, n) for s, keys in SCHEMA.items() for n, k in keys.items()
+                 if k.none is not _NEVER and k.default == k.none]  # (run.tile_m: default 500 m, 0 = one tile)
+    assert len(none_keys) >= 10
+    for section, name in none_keys:
+        assert getattr(getattr(job, section), name) is None, f"{section}.{name}"
+    assert job.budget.max_cost is None and job.radio.frequency_ghz == 28.0
+    assert job.run.tile_m == 500.0 and Job.from_toml(path, ["run.tile_m=0"]).run.tile_m is None
+    assert load_job(path)["budget"]["max_cost"] == 0  # the plain-dict form keeps the file's encoding
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        job.budget.max_cost = -5

@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from siting.job import load_job
 from siting.gains import RadioParams
+from siting.job import load_job
 from siting.runner import optimisation_inputs, run, run_file
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -43,7 +43,7 @@ def test_demo_end_to_end(demo_result):
     # The scenario has real holes that surfaces fix (demo_district/README.md); the plan is exact.
     assert plan.status == "optimal" and plan.gap <= 1e-4
     assert len(plan.chosen) > 0 and plan.objective > 0
-    assert plan.cost <= result.job["budget"]["max_cost"] + 1e-6
+    assert plan.cost <= result.job.budget.max_cost + 1e-6
     for name in ("surfaces.geojson", "demand.geojson", "survey.csv", "report.html", "report.md", "run.json"):
         assert (out / name).is_file(), name
     # The coverage relation is sparse and every entry's option fits on its wall.
@@ -69,7 +69,7 @@ def test_demo_plan_is_pinned(demo_result):
     assert sorted(options.loc[chosen, "site_id"].tolist()) == pinned["chosen_sites"]
     assert options.loc[chosen, "site_id"].is_unique
     assert options.loc[chosen, "cost"].sum() == pytest.approx(pinned["cost"], rel=1e-9)
-    cover, weight, _, _ = optimisation_inputs(gains, result.users, RadioParams.from_job(result.job))
+    cover, weight, _, _ = optimisation_inputs(gains, result.users, RadioParams.from_job(result.job.to_dict()))
     served = np.asarray(cover[chosen].sum(axis=0)).ravel() > 0
     assert weight[served].sum() == pytest.approx(pinned["objective"], rel=1e-9)
 
@@ -77,7 +77,7 @@ def test_demo_plan_is_pinned(demo_result):
 def test_rerun_with_new_budget_reuses_gains(demo_result, tmp_path):
     result, out = demo_result
     shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
-    job = demo_job(tmp_path, f"budget.max_cost={result.job['budget']['max_cost'] * 0.5}", "output.los_graph=true")
+    job = demo_job(tmp_path, f"budget.max_cost={result.job.budget.max_cost * 0.5}", "output.los_graph=true")
     again = run(job)
     assert again.recomputed == ["optimise"]
     # The LOS graph export reads back with networkx: one edge per LOS pair of both link tables.
@@ -87,6 +87,9 @@ def test_rerun_with_new_budget_reuses_gains(demo_result, tmp_path):
     assert graph.number_of_edges() == len(again.gains.bs_site) + len(again.gains.site_user)
     assert again.plan.objective <= result.plan.objective + 1e-9
     pd.testing.assert_frame_equal(again.gains.coverage, result.gains.coverage)
+    # The stages taken from the cache bring their notes: run.json lists the same notes as the fresh run's.
+    notes = json.loads((tmp_path / "out" / "run.json").read_text())["notes"]
+    assert notes and notes == json.loads((out / "run.json").read_text())["notes"] == result.notes
 
 
 def test_corrupted_cache_is_recomputed(demo_result, tmp_path):
@@ -149,7 +152,8 @@ def test_sigkill_and_resume_gives_identical_outputs(demo_result, tmp_path, kill_
 def test_dask_tiles_match_single_process(demo_result, tmp_path):
     pytest.importorskip("dask.distributed")
     result, _ = demo_result
-    tiled = run(demo_job(tmp_path), workers=2, tile_m=250.0, write=False)
+    cache = tmp_path / "cache"  # write=False writes nothing but the cache it is given
+    tiled = run(demo_job(tmp_path), workers=2, tile_m=250.0, write=False, cache_dir=cache)
     cols = ["option_id", "user_id", "bs_idx"]
     pd.testing.assert_frame_equal(tiled.gains.coverage[cols], result.gains.coverage[cols])
     # Within 1e-6 dB: the shadow-fading quantile uses an interpolation table on large batches and an exact solve on
@@ -159,9 +163,17 @@ def test_dask_tiles_match_single_process(demo_result, tmp_path):
     assert list(tiled.plan.chosen) == list(result.plan.chosen)
     # The workers stored every tile they computed: the same job in this process recomputes none of them.
     assert any(r.startswith("gains (") for r in tiled.recomputed)
-    again = run(demo_job(tmp_path), tile_m=250.0, write=False)
+    again = run(demo_job(tmp_path), tile_m=250.0, write=False, cache_dir=cache)
     assert not any(r.startswith("gains") for r in again.recomputed), again.recomputed
     pd.testing.assert_frame_equal(again.gains.coverage, tiled.gains.coverage)
+    # One diagnostics channel: model notes are caught per stage (per tile, on whichever worker ran it) and stored
+    # with it, so Dask workers, the cache and a fresh single-process run without a cache report the same notes.
+    single = run(demo_job(tmp_path), tile_m=250.0, write=False)
+    assert single.recomputed[0] == "candidates" and single.recomputed[-1] == "optimise"
+    assert any("default height" in n for n in single.stage_notes["load"])
+    assert any("UMi-Street Canyon" in n for n in single.stage_notes["gains"])
+    assert tiled.stage_notes == again.stage_notes == single.stage_notes
+    assert tiled.notes == again.notes == single.notes == list(dict.fromkeys(single.notes))
 
 
 def test_cli_exit_codes(tmp_path):
@@ -198,8 +210,9 @@ def test_fresh_recomputes_everything_and_refreshes_the_cache(demo_result, tmp_pa
     _, out = demo_result
     shutil.copytree(out / ".cache", tmp_path / "out" / ".cache")
     job = demo_job(tmp_path)
-    fresh = run(job, fresh=True, write=False)
+    cache = tmp_path / "out" / ".cache"
+    fresh = run(job, fresh=True, write=False, cache_dir=cache)
     assert fresh.recomputed[0] == "candidates" and fresh.recomputed[-1] == "optimise"
-    again = run(job, write=False)
+    again = run(job, write=False, cache_dir=cache)
     assert again.recomputed == []
     assert list(again.plan.chosen) == list(fresh.plan.chosen)

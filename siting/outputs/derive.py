@@ -36,10 +36,9 @@ import pandas as pd
 import pyproj
 
 from .. import tables as T
+from ..constants import SPEED_OF_LIGHT_M_S
 from ..district import to_lonlat as district_to_lonlat
 from ..errors import SitingError
-
-SPEED_OF_LIGHT_M_S = 299_792_458.0
 
 COMPASS_16 = ("N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW")
 

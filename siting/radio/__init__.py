@@ -12,6 +12,7 @@ from .antenna import (ELEMENT_GAIN_DBI, array_size_for_gain, bs_beam_gain_dbi, b
 from .exposure import density_from_isotropic_power_w_m2, icnirp_reference_level_w_m2, power_density_w_m2
 from .fading import (SHADOW_FADING_SIGMA_DB, combined_level_quantile_db, fade_margin_db, hop_sigma_db,
                      shadow_fading_sigma_db)
+from .elements import element_count, element_pitch_m
 from .atmosphere import gaseous_attenuation_db, gaseous_attenuation_db_per_km, water_vapour_pressure_hpa
 from .link import (SHANNON_DL, THERMAL_NOISE_DBM_HZ, band_average_two_path_power, coherent_snr_db, db_to_linear,
                    linear_to_db, noise_power_dbm, power_sum_snr_db, spectral_efficiency_bps_hz)
@@ -24,7 +25,7 @@ from .surface import (DEFAULT_ELEMENT_Q, element_sum_gain, element_sum_gain_prof
                       fraunhofer_distance_m, nearest_beam, quantisation_efficiency, surface_gain, tile_counts)
 
 __all__ = [
-    "SPEED_OF_LIGHT_M_S", "RadioInputError", "RadioValidityWarning",
+    "SPEED_OF_LIGHT_M_S", "RadioInputError", "RadioValidityWarning", "element_count", "element_pitch_m",
     "bs_gain_toward_dbi", "local_angles_deg", "sector_gain_dbi",
     "ELEMENT_GAIN_DBI", "array_size_for_gain", "bs_beam_gain_dbi",
     "density_from_isotropic_power_w_m2", "icnirp_reference_level_w_m2", "power_density_w_m2",

@@ -6,17 +6,15 @@ import warnings
 
 import numpy as np
 
-from ..errors import SitingError
-
-#: Speed of light in vacuum [m/s] (exact SI value).
-SPEED_OF_LIGHT_M_S = 299_792_458.0
+from ..constants import SPEED_OF_LIGHT_M_S  # noqa: F401  (defined once in siting.constants; re-exported)
+from ..errors import SitingError, SitingWarning
 
 
 class RadioInputError(SitingError, ValueError):
     """A radio function got a value it cannot use (NaN, negative distance, zero frequency, ...)."""
 
 
-class RadioValidityWarning(UserWarning):
+class RadioValidityWarning(SitingWarning):
     """A model is evaluated outside the range its source states it is valid for."""
 
 

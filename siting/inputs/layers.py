@@ -1,0 +1,407 @@
+"""Layer checks: building footprints (ids, repair, parts), base stations, given sites and users, the area.
+
+Each reader takes a layer already in the job's CRS and returns a table of the :mod:`siting.tables` contracts,
+or raises an :class:`~siting.errors.InputDataError` naming the file, the features and the fix.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyproj
+import shapely
+
+from ..errors import InputDataError
+from .common import _MAX_LISTED, _listing
+from .heights import _resolve_heights
+
+MIN_PART_AREA_M2 = 1.0
+
+
+def _ids_to_str(s: pd.Series) -> np.ndarray:
+    """Ids as strings (integral floats without '.0'); None where the value is missing."""
+    isna = s.isna().to_numpy()
+    if pd.api.types.is_float_dtype(s):
+        v = s.to_numpy(float)
+        fin = np.isfinite(v)
+        if np.all(v[fin] == np.round(v[fin])):
+            s = s.astype("Int64")
+    out = s.astype(str).to_numpy(dtype=object, copy=True)
+    out[isna] = None
+    return out
+
+
+def _text_column(df: pd.DataFrame, col: str) -> pd.Series:
+    if col not in df.columns:
+        return pd.Series("", index=df.index, dtype=object)
+    s = df[col].astype(object)
+    return s.where(s.notna(), "").astype(str).str.strip()
+
+
+def _address(df: pd.DataFrame) -> np.ndarray:
+    street = _text_column(df, "addr:street")
+    number = _text_column(df, "addr:housenumber")
+    joined = (street + " " + number).str.strip()
+    given = _text_column(df, "address")
+    return np.where(given != "", given, joined).astype(object)
+
+
+# ------------------------------------------------------------------------------------------- buildings
+
+
+def _polygonal_parts(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Flatten (multi)polygons and collections into polygon parts with the row index of their source."""
+    parts, idx = shapely.get_parts(geoms, return_index=True)
+    # make_valid may nest a MultiPolygon inside a GeometryCollection: flatten once more
+    nested = shapely.get_type_id(parts) >= 4
+    if nested.any():
+        sub, sidx = shapely.get_parts(parts[nested], return_index=True)
+        parts = np.concatenate([parts[~nested], sub])
+        idx = np.concatenate([idx[~nested], idx[nested][sidx]])
+        order = np.argsort(idx, kind="stable")
+        parts, idx = parts[order], idx[order]
+    keep = (shapely.get_type_id(parts) == 3) & ~shapely.is_empty(parts)
+    return parts[keep], idx[keep]
+
+
+def _building_ids(df: gpd.GeoDataFrame, path: Path, building_id_column: str, notes: list[str]) -> np.ndarray:
+    """Building ids as strings: the id column, else id/osm_id/@id, else the feature numbers (with a note)."""
+    id_col: str | None = building_id_column
+    if building_id_column in df.columns:
+        id_col = building_id_column
+    else:
+        id_col = next((c for c in ("id", "osm_id", "@id") if c in df.columns), None)
+        if id_col is None:
+            notes.append(
+                f"buildings file '{path.name}' has no id column ({_listing(dict.fromkeys([building_id_column, 'id', 'osm_id', '@id']))}); "
+                "feature numbers (0-based) are used as building ids."
+            )
+        else:
+            notes.append(f"buildings file '{path.name}' has no column '{building_id_column}'; ids taken from '{id_col}'.")
+    if id_col is None:
+        ids = np.arange(len(df)).astype(str).astype(object)
+    else:
+        ids = _ids_to_str(df[id_col])
+        none = np.array([i is None for i in ids])
+        if none.any():
+            raise InputDataError(
+                f"buildings file '{path}': features {_listing(np.flatnonzero(none).tolist())} (0-based) have no "
+                f"value in the id column '{id_col}'; fill the ids, or name another building_id_column"
+            )
+    dup = pd.Series(ids).duplicated(keep=False).to_numpy()
+    if dup.any():
+        raise InputDataError(
+            f"buildings file '{path}': building ids {_listing(sorted(set(ids[dup])))} occur more than once in "
+            f"column '{id_col}'; ids must be unique (merge multi-part buildings into one MultiPolygon feature "
+            "or give each its own id)"
+        )
+    return ids
+
+
+def _buildings(
+    raw: gpd.GeoDataFrame,
+    *,
+    path: Path,
+    crs: pyproj.CRS,
+    building_id_column: str,
+    height_column: str | None,
+    storey_height_m: float,
+    default_height_m: float | None,
+    notes: list[str],
+) -> gpd.GeoDataFrame:
+    df = raw
+    ids = _building_ids(df, path, building_id_column, notes)
+    # geometry types
+    geoms = df.geometry.values
+    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    if missing.all():
+        raise InputDataError(f"buildings file '{path}': no feature has a geometry; check the export")
+    if missing.any():
+        notes.append(f"{int(missing.sum())} building feature(s) without geometry dropped: ids {_listing(ids[missing])}.")
+    tid = np.where(missing, -1, shapely.get_type_id(np.where(missing, None, geoms)))
+    has_poly = np.isin(tid, (3, 6))
+    coll = tid == 7
+    if coll.any():
+        cparts, cidx = shapely.get_parts(geoms[coll], return_index=True)
+        with_poly = np.zeros(int(coll.sum()), bool)
+        with_poly[cidx[np.isin(shapely.get_type_id(cparts), (3, 6))]] = True
+        has_poly[np.flatnonzero(coll)[with_poly]] = True
+    nonpoly = ~missing & ~has_poly
+    if nonpoly.any():
+        types = shapely.get_type_id(geoms[nonpoly])
+        type_names = pd.Series(types).map(dict(enumerate(
+            ["Point", "LineString", "LinearRing", "Polygon", "MultiPoint", "MultiLineString", "MultiPolygon",
+             "GeometryCollection"]))).to_numpy()
+        described = [f"{i} ({t})" for i, t in zip(ids[nonpoly], type_names)]
+        if not has_poly.any():
+            raise InputDataError(
+                f"buildings file '{path}' holds no polygons: features {_listing(described)} are not footprints; "
+                "give a polygon layer of building footprints (for OSM data, the building areas, not nodes)"
+            )
+        notes.append(
+            f"{int(nonpoly.sum())} non-polygon building feature(s) dropped (footprints must be polygons): "
+            f"{_listing(described)}."
+        )
+    keep = has_poly
+    df = df.loc[keep].reset_index(drop=True)
+    ids = ids[keep]
+    # heights, names, addresses (per input feature)
+    height, rule = _resolve_heights(
+        df, ids, path=path, height_column=height_column, storey_height_m=storey_height_m,
+        default_height_m=default_height_m, notes=notes,
+    )
+    name = _text_column(df, "name").to_numpy(object)
+    address = _address(df)
+    # project, repair, explode
+    src = pyproj.CRS.from_user_input(df.crs)
+    gs = df.geometry if src.equals(crs) else df.geometry.to_crs(crs)
+    geoms = np.array(gs.values, dtype=object)
+    invalid = ~shapely.is_valid(geoms)
+    if invalid.any():
+        geoms[invalid] = shapely.make_valid(geoms[invalid])
+    parts, src_idx = _polygonal_parts(geoms)
+    if invalid.any():
+        degenerate = np.setdiff1d(np.flatnonzero(invalid), src_idx)
+        msg = (
+            f"{int(invalid.sum())} invalid building polygon(s) repaired (self-intersections, bad rings), keeping "
+            f"their polygonal parts: ids {_listing(ids[invalid])}"
+        )
+        if len(degenerate):
+            msg += f"; {len(degenerate)} of them had no area left and were dropped: {_listing(ids[degenerate])}"
+        notes.append(msg + ".")
+    area = shapely.area(parts)
+    sliver = area < MIN_PART_AREA_M2
+    if sliver.any():
+        before = np.unique(src_idx)
+        parts, src_idx = parts[~sliver], src_idx[~sliver]
+        gone = np.setdiff1d(before, src_idx)
+        msg = f"{int(sliver.sum())} polygon part(s) under {MIN_PART_AREA_M2:g} m2 dropped as slivers"
+        msg += f" (buildings left with no part: {_listing(ids[gone])})." if len(gone) else "."
+        notes.append(msg)
+    if len(parts) == 0:
+        raise InputDataError(
+            f"buildings file '{path}': no footprint of at least {MIN_PART_AREA_M2:g} m2 remains after repair; "
+            "check the layer and its CRS"
+        )
+    part_no = pd.Series(src_idx).groupby(src_idx).cumcount().to_numpy(np.int64)
+    out = gpd.GeoDataFrame(
+        {
+            "building_id": pd.Series(ids[src_idx], dtype=object),
+            "part": part_no,
+            "height_m": height[src_idx].astype(float),
+            "height_rule": pd.Series(rule[src_idx], dtype=object),
+            "name": pd.Series(name[src_idx], dtype=object),
+            "address": pd.Series(address[src_idx], dtype=object),
+        },
+        geometry=gpd.GeoSeries(parts, crs=crs).values,
+        crs=crs,
+    )
+    return out
+
+
+# ------------------------------------------------------------------------------------- point layers
+
+
+def _points_xy(gdf: gpd.GeoDataFrame, path: Path, role: str, labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    geoms = gdf.geometry.values
+    bad = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    tid = np.where(bad, -1, shapely.get_type_id(np.where(bad, None, geoms)))
+    multi1 = (tid == 4) & (shapely.get_num_geometries(np.where(bad, None, geoms)) == 1)
+    bad |= ~((tid == 0) | multi1)
+    if bad.any():
+        raise InputDataError(
+            f"{role} file '{path}': features {_listing(labels[bad])} are not single points (empty, lines, "
+            "polygons or multi-points); give one point per feature"
+        )
+    pts = np.where(multi1, shapely.get_geometry(np.where(multi1, geoms, None), 0), geoms)
+    return shapely.get_x(pts).astype(float), shapely.get_y(pts).astype(float)
+
+
+def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | None = None) -> np.ndarray:
+    if col not in gdf.columns:
+        if required:
+            raise InputDataError(
+                f"{role} file '{path}' has no property '{col}' (required); its properties are "
+                f"{_listing([c for c in gdf.columns if c != gdf.geometry.name], 40)}; add '{col}' to every feature"
+            )
+        return np.full(len(gdf), np.nan if default is None else float(default))
+    raw = gdf[col]
+    val = pd.to_numeric(raw, errors="coerce").to_numpy(float, copy=True)
+    absent = raw.isna().to_numpy()
+    unreadable = ~absent & ~np.isfinite(val)
+    if unreadable.any():
+        raise InputDataError(
+            f"{role} file '{path}': property '{col}' is not a finite number for {_listing(labels[unreadable])} "
+            f"(e.g. {raw[unreadable].iloc[0]!r}); give plain numbers"
+        )
+    if absent.any():
+        if required:
+            raise InputDataError(
+                f"{role} file '{path}': property '{col}' (required) is empty for {_listing(labels[absent])}; fill it"
+            )
+        val[absent] = float(default) if default is not None else np.nan
+    return val
+
+
+def _refs(gdf: gpd.GeoDataFrame, candidates: tuple[str, ...]) -> np.ndarray:
+    col = next((c for c in candidates if c in gdf.columns), None)
+    index = np.arange(len(gdf)).astype(str).astype(object)
+    if col is None:
+        return index
+    ids = _ids_to_str(gdf[col])
+    return np.where(pd.isna(ids), index, ids).astype(object)
+
+
+def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations") -> pd.DataFrame:
+    labels = np.array([f"feature {i}" for i in range(len(gdf))], dtype=object)
+    if "bs_id" not in gdf.columns:
+        raise InputDataError(
+            f"{role} file '{path}' has no property 'bs_id' (required, unique); its properties are "
+            f"{_listing([c for c in gdf.columns if c != gdf.geometry.name], 40)}; add a 'bs_id' to every feature"
+        )
+    ids = _ids_to_str(gdf["bs_id"])
+    none = np.array([i is None for i in ids])
+    if none.any():
+        raise InputDataError(f"{role} file '{path}': features {_listing(np.flatnonzero(none).tolist())} have no bs_id; fill it")
+    labels = np.array([f"bs_id '{i}'" for i in ids], dtype=object)
+    dup = pd.Series(ids).duplicated(keep=False).to_numpy()
+    if dup.any():
+        raise InputDataError(
+            f"{role} file '{path}': bs_id {_listing(sorted(set(ids[dup])))} occur more than once; give each "
+            "base station a unique bs_id"
+        )
+    x, y = _points_xy(gdf, path, role, labels)
+    z = _numeric(gdf, "z_m", path, role, labels, required=True)
+    neg = z < 0
+    if neg.any():
+        raise InputDataError(
+            f"{role} file '{path}': z_m (antenna height above ground) is negative for {_listing(labels[neg])}; "
+            "give heights above ground in metres"
+        )
+    tx = _numeric(gdf, "tx_power_dbm", path, role, labels, required=True)
+    gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=False, default=0.0)
+    az = _numeric(gdf, "azimuth_deg", path, role, labels, required=False, default=0.0) % 360.0
+    tilt = _numeric(gdf, "downtilt_deg", path, role, labels, required=False, default=0.0)
+    bad = np.abs(tilt) > 90.0
+    if bad.any():
+        raise InputDataError(
+            f"{role} file '{path}': downtilt_deg must lie in [-90, 90] degrees below horizontal; got "
+            f"{tilt[bad][0]:g} for {_listing(labels[bad])}"
+        )
+    if "pattern" in gdf.columns:
+        pat = gdf["pattern"].astype(object).where(gdf["pattern"].notna(), "omni").astype(str).str.strip().str.lower()
+        pat = pat.to_numpy(object)
+    else:
+        pat = np.full(len(gdf), "omni", dtype=object)
+    badp = ~np.isin(pat, ["sector", "omni"])
+    if badp.any():
+        raise InputDataError(
+            f"{role} file '{path}': pattern must be 'sector' or 'omni'; got {pat[badp][0]!r} for "
+            f"{_listing(labels[badp])}"
+        )
+    out = pd.DataFrame(
+        {
+            "bs_id": pd.Series(ids, dtype=object),
+            "x": x,
+            "y": y,
+            "z_m": z,
+            "tx_power_dbm": tx,
+            "max_gain_dbi": gain,
+            "azimuth_deg": az,
+            "downtilt_deg": tilt,
+            "pattern": pd.Series(pat, dtype=object),
+        }
+    )
+    return out
+
+
+def _check_bs_not_indoors(bs: pd.DataFrame, buildings: gpd.GeoDataFrame, path: Path) -> None:
+    pts = shapely.points(bs["x"].to_numpy(), bs["y"].to_numpy())
+    tree = shapely.STRtree(buildings.geometry.values)
+    pi, bi = tree.query(pts, predicate="within")
+    if len(pi) == 0:
+        return
+    z = bs["z_m"].to_numpy()[pi]
+    h = buildings["height_m"].to_numpy()[bi]
+    low = z < h
+    if not low.any():
+        return
+    cases = [
+        f"'{bs['bs_id'].iat[p]}' at z_m = {zz:g} m inside building '{buildings['building_id'].iat[b]}' "
+        f"(roof {hh:g} m)"
+        for p, b, zz, hh in zip(pi[low], bi[low], z[low], h[low])
+    ]
+    raise InputDataError(
+        f"base_stations file '{path}': base station(s) stand inside a building footprint below its roof: "
+        f"{'; '.join(cases[:_MAX_LISTED])}{' ...' if len(cases) > _MAX_LISTED else ''}. Move the station "
+        "outside the footprint (a street pole or a facade mount), or, for a rooftop site, give z_m as the "
+        "antenna height above ground, above the roof"
+    )
+
+
+def _given_sites(gdf: gpd.GeoDataFrame, path: Path) -> pd.DataFrame:
+    refs = _refs(gdf, ("site_id", "id"))
+    labels = np.array([f"site '{r}'" for r in refs], dtype=object)
+    dup = pd.Series(refs).duplicated(keep=False).to_numpy()
+    if dup.any():
+        raise InputDataError(
+            f"sites file '{path}': site ids {_listing(sorted(set(refs[dup])))} occur more than once; make them unique"
+        )
+    x, y = _points_xy(gdf, path, "sites", labels)
+    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan)
+    neg = z < 0
+    if neg.any():
+        raise InputDataError(f"sites file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
+    return pd.DataFrame({"site_ref": pd.Series(refs, dtype=object), "x": x, "y": y, "z_m": z})
+
+
+def _given_users(gdf: gpd.GeoDataFrame, path: Path, weight_column: str, notes: list[str]) -> pd.DataFrame:
+    refs = _refs(gdf, ("user_id", "id"))
+    labels = np.array([f"user '{r}'" for r in refs], dtype=object)
+    x, y = _points_xy(gdf, path, "users", labels)
+    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan)
+    neg = z < 0
+    if neg.any():
+        raise InputDataError(f"users file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
+    if weight_column not in gdf.columns:
+        notes.append(f"users file '{path.name}' has no weight column '{weight_column}'; every user weighs 1.")
+        w = np.ones(len(gdf))
+    else:
+        w = _numeric(gdf, weight_column, path, "users", labels, required=True)
+        neg = w < 0
+        if neg.any():
+            raise InputDataError(
+                f"users file '{path}': weight column '{weight_column}' is negative for {_listing(labels[neg])} "
+                f"(e.g. {w[neg][0]:g}); weights are demand (households, subscribers, traffic share) and must be >= 0"
+            )
+    return pd.DataFrame({"user_ref": pd.Series(refs, dtype=object), "x": x, "y": y, "z_m": z, "weight": w})
+
+
+
+
+def _area_from_file(gdf: gpd.GeoDataFrame, path: Path) -> shapely.Geometry:
+    parts, _ = _polygonal_parts(shapely.make_valid(np.asarray(gdf.geometry.values, dtype=object)))
+    if len(parts) == 0:
+        raise InputDataError(f"area file '{path}' holds no polygon; give a polygon layer for the area of interest")
+    return shapely.union_all(parts)
+
+
+
+def _clip_points(df: pd.DataFrame, area, what: str, notes: list[str]) -> pd.DataFrame:
+    if area is None:
+        return df
+    inside = shapely.intersects(shapely.points(df["x"].to_numpy(), df["y"].to_numpy()), area)
+    if (~inside).any():
+        notes.append(f"{int((~inside).sum())} {what} outside the area of interest left out.")
+    return df.loc[inside].reset_index(drop=True)
+
+
+def _inside_buildings(df: pd.DataFrame, buildings: gpd.GeoDataFrame) -> np.ndarray:
+    pts = shapely.points(df["x"].to_numpy(), df["y"].to_numpy())
+    pi, _ = shapely.STRtree(buildings.geometry.values).query(pts, predicate="within")
+    out = np.zeros(len(df), bool)
+    out[pi] = True
+    return out

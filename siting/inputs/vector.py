@@ -1,0 +1,161 @@
+"""Reading vector layers: any OGR format through pyogrio, GeoParquet, and OpenStreetMap ``.osm.pbf``.
+
+Every failure becomes an :class:`~siting.errors.InputDataError` naming the file; input files are hashed for
+the run record.  GeoJSON is longitude/latitude by RFC 7946.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+
+from ..cache import file_sha256
+from ..errors import InputDataError
+from .common import _listing
+
+_GEOJSON_SUFFIXES = (".geojson", ".json", ".geojsonl", ".geojsons")
+_PARQUET_SUFFIXES = (".parquet", ".geoparquet")
+
+
+def _hash_inputs(path: Path, hashes: dict[str, str]) -> None:
+    if path.is_dir():  # e.g. a FileGDB folder
+        for p in sorted(q for q in path.rglob("*") if q.is_file()):
+            hashes[str(p)] = file_sha256(p)
+        return
+    hashes[str(path)] = file_sha256(path)
+    if path.suffix.lower() == ".shp":
+        for ext in (".shx", ".dbf", ".prj", ".cpg"):
+            for side in (path.with_suffix(ext), path.with_suffix(ext.upper())):
+                if side.exists():
+                    hashes[str(side)] = file_sha256(side)
+
+
+def _is_geojson(path: Path) -> bool:
+    return path.suffix.lower() in _GEOJSON_SUFFIXES
+
+
+def _is_pbf(path: Path) -> bool:
+    return path.name.lower().endswith(".pbf")
+
+
+def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonlat=None) -> gpd.GeoDataFrame:
+    """Read one vector layer, turning every failure into an :class:`InputDataError` naming the file.
+
+    Parameters
+    ----------
+    path : str or Path
+        Vector file (any OGR format, GeoParquet, or ``.osm.pbf`` for buildings).
+    layer : str, optional
+        Layer name for multi-layer files.  Without it a single-layer file is read; a multi-layer file is read
+        from the layer named like ``role`` if there is one, else refused with the list of layers.
+    role : str
+        What the layer is for ("buildings", "base_stations", ...), used in messages and layer choice.
+    bbox_lonlat : sequence of 4 floats, optional
+        Only used for ``.osm.pbf``: passed to pyrosm as its bounding box.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputDataError(
+            f"{role} file '{path}' not found; check the path (relative paths in a job file resolve against "
+            "the job file's folder)"
+        )
+    if _is_pbf(path):
+        if role != "buildings":
+            raise InputDataError(
+                f"{role} file '{path}' is an OSM extract; only buildings can be read from .osm.pbf. "
+                "Give the layer as GeoJSON, GeoPackage, Shapefile, FlatGeobuf or GeoParquet"
+            )
+        gdf = _read_osm_pbf(path, bbox_lonlat)
+    elif path.suffix.lower() in _PARQUET_SUFFIXES:
+        try:
+            gdf = gpd.read_parquet(path)
+        except Exception as exc:  # noqa: BLE001 - any reader failure becomes a clear message
+            raise InputDataError(
+                f"{role} file '{path}' could not be read as GeoParquet ({type(exc).__name__}: {exc}); "
+                "check that it is a GeoParquet file with a geometry column"
+            ) from exc
+    else:
+        import pyogrio
+
+        try:
+            layers = pyogrio.list_layers(path)
+        except Exception as exc:  # noqa: BLE001
+            raise InputDataError(
+                f"{role} file '{path}' could not be opened ({type(exc).__name__}: {exc}); expected a vector "
+                "file GDAL reads (GeoJSON, GeoPackage, Shapefile, FlatGeobuf) or GeoParquet; check the file "
+                "is complete and in one of these formats"
+            ) from exc
+        names = [str(n) for n in layers[:, 0]] if len(layers) else []
+        if layer is None and len(names) > 1:
+            if role in names:
+                layer = role
+            else:
+                raise InputDataError(
+                    f"{role} file '{path}' has {len(names)} layers ({_listing(names)}); name the one to use "
+                    f"(e.g. buildings_layer = '{names[0]}')"
+                )
+        if layer is not None and layer not in names:
+            raise InputDataError(
+                f"{role} file '{path}' has no layer '{layer}'; its layers are {_listing(names)}"
+            )
+        try:
+            with warnings.catch_warnings():
+                # mixed-type properties (e.g. height 12 and "12 m") come back as strings: that is what we parse
+                warnings.filterwarnings("ignore", message="Could not parse column", category=UserWarning)
+                gdf = pyogrio.read_dataframe(path, layer=layer)
+        except Exception as exc:  # noqa: BLE001
+            raise InputDataError(
+                f"{role} file '{path}' could not be read ({type(exc).__name__}: {exc}); check the file is a "
+                "complete, valid vector file"
+            ) from exc
+    if not isinstance(gdf, gpd.GeoDataFrame) or gdf.geometry is None:
+        raise InputDataError(f"{role} file '{path}' has no geometry column; give a layer with geometries")
+    if len(gdf) == 0:
+        where = f" (layer '{layer}')" if layer else ""
+        raise InputDataError(
+            f"{role} file '{path}'{where} has no features; check that the right file or layer was named and "
+            "that the export did not filter everything out"
+        )
+    gdf = gdf.reset_index(drop=True)
+    return gdf
+
+
+def _read_osm_pbf(path: Path, bbox_lonlat) -> gpd.GeoDataFrame:
+    try:
+        import pyrosm
+    except ImportError as exc:
+        raise InputDataError(
+            f"reading buildings from the OSM extract '{path}' needs pyrosm, which is not installed; install "
+            "the 'osm' extra (pip install 'siting[osm]') or convert the extract to GeoPackage first"
+        ) from exc
+    try:
+        osm = pyrosm.OSM(str(path), bounding_box=list(bbox_lonlat) if bbox_lonlat is not None else None)
+        gdf = osm.get_buildings()
+    except Exception as exc:  # noqa: BLE001
+        raise InputDataError(
+            f"OSM extract '{path}' could not be read by pyrosm ({type(exc).__name__}: {exc}); check the file "
+            "is a complete .osm.pbf"
+        ) from exc
+    if gdf is None or len(gdf) == 0:
+        raise InputDataError(f"OSM extract '{path}' holds no buildings (in the area asked for); check the extract")
+    gdf = gdf.reset_index(drop=True)
+    # Tags pyrosm does not expand into columns stay in the JSON 'tags' column: pull out the ones we use.
+    if "tags" in gdf.columns:
+        tags = gdf["tags"]
+        for key in ("height", "building:levels", "levels", "name", "address", "addr:street", "addr:housenumber"):
+            if key in gdf.columns:
+                continue
+            hit = tags.notna() & tags.astype(str).str.contains(f'"{key}"', regex=False)
+            if hit.any():
+                col = pd.Series(None, index=gdf.index, dtype=object)
+                col[hit] = [json.loads(t).get(key) for t in tags[hit]]
+                gdf[key] = col
+    if "osm_type" in gdf.columns and "id" in gdf.columns:
+        gdf["id"] = gdf["osm_type"].astype(str) + "/" + gdf["id"].astype(str)
+    if gdf.crs is None:
+        gdf = gdf.set_crs(4326)
+    return gdf
