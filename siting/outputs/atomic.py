@@ -53,7 +53,7 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
     os.close(fd)
     try:
         yield tmp_path
-        _fsync_file(tmp_path)
+        _fsync(tmp_path)
         os.replace(tmp_path, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
@@ -61,7 +61,8 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
         raise
 
 
-def _fsync_file(path: Path) -> None:
+def _fsync(path: Path) -> None:
+    """Flush a file or a folder entry to disk (best effort: some filesystems refuse)."""
     with contextlib.suppress(OSError):
         fd = os.open(path, os.O_RDONLY)
         try:
@@ -124,15 +125,6 @@ STAGING_PREFIX = TMP_PREFIX + "set-"
 RECORD = "run.json"
 
 
-def _fsync_dir(folder: Path) -> None:
-    with contextlib.suppress(OSError):
-        fd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
-
-
 def safe_relpath(rel, allowed: Callable[[str], bool] | None = None) -> str | None:
     """``rel`` as a normalised relative POSIX path inside the folder, or None when it points elsewhere
     (absolute, ``..``, empty) or ``allowed`` rejects it."""
@@ -173,7 +165,7 @@ def _apply_commit(folder: Path, journal: dict, allowed: Callable[[str], bool] | 
     if (staging / RECORD).exists():
         with contextlib.suppress(FileNotFoundError):
             (folder / RECORD).unlink()
-        _fsync_dir(folder)
+        _fsync(folder)
     for rel in files:
         if rel == RECORD:
             continue
@@ -185,10 +177,10 @@ def _apply_commit(folder: Path, journal: dict, allowed: Callable[[str], bool] | 
         if rel not in files:
             with contextlib.suppress(FileNotFoundError, IsADirectoryError, NotADirectoryError):
                 (folder / rel).unlink()
-    _fsync_dir(folder)
+    _fsync(folder)
     if (staging / RECORD).exists():
         os.replace(staging / RECORD, folder / RECORD)
-        _fsync_dir(folder)
+        _fsync(folder)
     with contextlib.suppress(FileNotFoundError):
         (folder / JOURNAL).unlink()
     _shutil.rmtree(staging, ignore_errors=True)
@@ -281,7 +273,7 @@ class OutputSet:
         previous = read_manifest(self.folder, self.allowed)
         journal = {"staging": self.staging.name, "files": list(files),
                    "remove": [r for r in previous if r not in set(files)]}
-        _fsync_dir(self.staging)
+        _fsync(self.staging)
         write_text(self.folder / JOURNAL, _json.dumps(journal, indent=1) + "\n")
         self.committed = True  # from here on the journal lets the next run finish the commit
         _apply_commit(self.folder, journal, self.allowed)
