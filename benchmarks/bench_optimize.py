@@ -35,6 +35,7 @@ import argparse
 import os
 import sys
 import time
+from functools import partial
 
 import numpy as np
 import scipy.sparse as sp
@@ -186,11 +187,11 @@ def pipeline_cases(a, cbc_limit):
             # the ratio is taken between the medians
             t_reds, t_raws = [], []
             for seed in range(a.seeds):
-                red, t_red = run(f"HiGHS reduced (default) s{seed}", lambda s=seed: opt.solve_coverage(
-                    C, w, cost, site, **kw, time_limit_s=60, solver_seed=s), a.repeat)
-                raw, t_raw = run(f"HiGHS raw s{seed}", lambda s=seed: opt.solve_coverage(
-                    C, w, cost, site, **kw, reduce=False, warm_start=False, time_limit_s=300, solver_seed=s),
-                    a.repeat)
+                red, t_red = run(f"HiGHS reduced (default) s{seed}", partial(
+                    opt.solve_coverage, C, w, cost, site, **kw, time_limit_s=60, solver_seed=seed), a.repeat)
+                raw, t_raw = run(f"HiGHS raw s{seed}", partial(
+                    opt.solve_coverage, C, w, cost, site, **kw, reduce=False, warm_start=False, time_limit_s=300,
+                    solver_seed=seed), a.repeat)
                 t_reds.append(t_red)
                 t_raws.append(t_raw)
             t_red = float(np.median(t_reds))
@@ -203,9 +204,9 @@ def pipeline_cases(a, cbc_limit):
                 # runs); a run stopped by the time limit is not repeated
                 t_cws = []
                 for seed in range(a.seeds):
-                    cw, t_cw = run(f"CBC raw s{seed}", lambda s=seed: opt.solve_coverage(
-                        C, w, cost, site, **kw, solver="cbc", reduce=False, warm_start=False,
-                        time_limit_s=cbc_limit, solver_seed=s), a.repeat)
+                    cw, t_cw = run(f"CBC raw s{seed}", partial(
+                        opt.solve_coverage, C, w, cost, site, **kw, solver="cbc", reduce=False, warm_start=False,
+                        time_limit_s=cbc_limit, solver_seed=seed), a.repeat)
                     t_cws.append(t_cw)
                     if cw.status != "optimal" or t_cw > 10.0:
                         break

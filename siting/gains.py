@@ -85,7 +85,7 @@ class RadioParams:
     home_steer_limit_deg: float = 90.0
 
     @classmethod
-    def from_job(cls, job: dict) -> "RadioParams":
+    def from_job(cls, job: dict) -> RadioParams:
         r, s = job["radio"], job["surfaces"]
         curve = None
         if s["efficiency_angles_deg"]:
@@ -118,7 +118,7 @@ class RadioParams:
             shadow_fading=r["shadow_fading"],
         )
 
-    def upper_bound(self) -> "RadioParams":
+    def upper_bound(self) -> RadioParams:
         """The same job under the ideal model (each planning choice replaced by its optimistic limit)."""
         return replace(self, combining="coherent", control="focus", squint=False, element_q=1.0,
                        efficiency_curve=None, surface_hop_model="free_space", station_beam="envelope",

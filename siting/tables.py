@@ -145,7 +145,7 @@ class Points:
     host: np.ndarray
 
     @classmethod
-    def from_table(cls, df: pd.DataFrame) -> "Points":
+    def from_table(cls, df: pd.DataFrame) -> Points:
         n = len(df)
         normal = df["normal_az_deg"].to_numpy(float) if "normal_az_deg" in df else np.full(n, np.nan)
         host = df["building_idx"].to_numpy(np.int64) if "building_idx" in df else np.full(n, -1, np.int64)

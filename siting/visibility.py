@@ -180,7 +180,7 @@ class Obstacles:
         return state
 
     @classmethod
-    def from_buildings(cls, geometries, heights_m, cell_m: float | None = None) -> "Obstacles":
+    def from_buildings(cls, geometries, heights_m, cell_m: float | None = None) -> Obstacles:
         """Compile footprints and roof heights.
 
         Parameters

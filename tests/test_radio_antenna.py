@@ -4,8 +4,14 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from siting.radio import (RadioInputError, array_size_for_gain, bs_beam_gain_dbi, bs_gain_toward_dbi,
-                          local_angles_deg, sector_gain_dbi)
+from siting.radio import (
+    RadioInputError,
+    array_size_for_gain,
+    bs_beam_gain_dbi,
+    bs_gain_toward_dbi,
+    local_angles_deg,
+    sector_gain_dbi,
+)
 
 
 def test_boresight_is_max_gain():

@@ -3,8 +3,13 @@
 import numpy as np
 import pytest
 
-from siting.radio import (RadioInputError, RadioValidityWarning, gaseous_attenuation_db,
-                          gaseous_attenuation_db_per_km, water_vapour_pressure_hpa)
+from siting.radio import (
+    RadioInputError,
+    RadioValidityWarning,
+    gaseous_attenuation_db,
+    gaseous_attenuation_db_per_km,
+    water_vapour_pressure_hpa,
+)
 
 itu676 = pytest.importorskip("itur.models.itu676")
 

@@ -4,8 +4,13 @@ import numpy as np
 import pytest
 from scipy.constants import c
 
-from siting.radio import (RadioInputError, density_from_isotropic_power_w_m2, free_space_path_loss_db,
-                          icnirp_reference_level_w_m2, power_density_w_m2)
+from siting.radio import (
+    RadioInputError,
+    density_from_isotropic_power_w_m2,
+    free_space_path_loss_db,
+    icnirp_reference_level_w_m2,
+    power_density_w_m2,
+)
 
 
 def test_power_density_worked_values():

@@ -5,9 +5,17 @@ import pytest
 from scipy import constants
 from scipy.integrate import quad
 
-from siting.radio import (SHANNON_DL, RadioInputError, band_average_two_path_power, coherent_snr_db,
-                          db_to_linear, linear_to_db, noise_power_dbm, power_sum_snr_db,
-                          spectral_efficiency_bps_hz)
+from siting.radio import (
+    SHANNON_DL,
+    RadioInputError,
+    band_average_two_path_power,
+    coherent_snr_db,
+    db_to_linear,
+    linear_to_db,
+    noise_power_dbm,
+    power_sum_snr_db,
+    spectral_efficiency_bps_hz,
+)
 
 
 @pytest.mark.parametrize("b_hz, nf_db, expected", [

@@ -3,8 +3,15 @@
 import numpy as np
 import pytest
 
-from siting.radio import (RadioInputError, far_field_gain, irs_gain_exact, mirror_limit_gain, n_max_far_field,
-                          planar_array_gain, planar_array_gain_broadside)
+from siting.radio import (
+    RadioInputError,
+    far_field_gain,
+    irs_gain_exact,
+    mirror_limit_gain,
+    n_max_far_field,
+    planar_array_gain,
+    planar_array_gain_broadside,
+)
 
 LAM = 0.1
 A = (LAM / 4) ** 2

@@ -7,11 +7,22 @@ import pytest
 from scipy.constants import c
 
 from siting.errors import SitingError
-from siting.radio import (RadioInputError, RadioValidityWarning, breakpoint_distance_m, direct_model_fit,
-                          direct_path_loss_db, free_space_path_loss_db, fresnel_radius_m, los_excess_db,
-                          los_probability_uma, los_probability_umi, uma_los_db, uma_nlos_db,
-                          umi_street_canyon_los_db, umi_street_canyon_nlos_db)
-
+from siting.radio import (
+    RadioInputError,
+    RadioValidityWarning,
+    breakpoint_distance_m,
+    direct_model_fit,
+    direct_path_loss_db,
+    free_space_path_loss_db,
+    fresnel_radius_m,
+    los_excess_db,
+    los_probability_uma,
+    los_probability_umi,
+    uma_los_db,
+    uma_nlos_db,
+    umi_street_canyon_los_db,
+    umi_street_canyon_nlos_db,
+)
 
 # ------------------------------------------------------------------------------------------- free space
 

@@ -8,9 +8,17 @@ import numpy as np
 import pytest
 
 from siting.errors import SitingError
-from siting.radio import (RadioInputError, coherent_snr_db, element_sum_gain, far_field_gain,
-                          fraunhofer_distance_m, noise_power_dbm, quantisation_efficiency, surface_gain,
-                          tile_counts)
+from siting.radio import (
+    RadioInputError,
+    coherent_snr_db,
+    element_sum_gain,
+    far_field_gain,
+    fraunhofer_distance_m,
+    noise_power_dbm,
+    quantisation_efficiency,
+    surface_gain,
+    tile_counts,
+)
 
 C = 299_792_458.0
 F28 = 28e9

@@ -30,8 +30,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._checks import (SPEED_OF_LIGHT_M_S, RadioInputError, as_float, scalar_or_array,
-                      warn_outside)
+from ._checks import SPEED_OF_LIGHT_M_S, RadioInputError, as_float, scalar_or_array, warn_outside
 
 __all__ = [
     "free_space_path_loss_db",
