@@ -428,7 +428,7 @@ def test_compiled_tile_sum_equals_numpy_reference(q):
     # (tile grid, node count) with single-precision node loop: same formula, so agreement to rounding;
     # a 3 GHz band at 28 GHz makes the in-tile sinc factors move (the per-node sinc branch), odd and even node
     # counts occur, and focus and beams are both run
-    from siting.radio import surface as S
+    from siting.radio import surface_beams as S
 
     rng = np.random.default_rng(31)
     n = 3000

@@ -13,7 +13,7 @@ a uniform aperture and beam squint, from memory).  Each triple carries its own t
 no grouping is needed.  Double precision throughout; sines and cosines come from :func:`_sincos` (inline
 polynomial, absolute error below 3e-9, no library call, so the tile loops vectorise).  One sine and cosine per
 tile serve a pair of nodes -x, +x.  The numpy reference of the same
-computation is :func:`siting.radio.surface._tile_power_sum` (kept for the tests).
+computation is :func:`siting.radio.surface_beams._tile_power_sum` (kept for the tests).
 """
 
 from __future__ import annotations
@@ -23,9 +23,10 @@ import math
 import numpy as np
 from numba import njit, prange
 
-_C = 299_792_458.0
+from ..constants import SPEED_OF_LIGHT_M_S
+
 # The band-edge move of the in-tile sinc arguments below which the sinc factors stay at the centre frequency
-# [rad] (same rule as surface._SINC_SQUINT_MAX).
+# [rad] (same rule as surface_beams._SINC_SQUINT_MAX).
 SINC_SQUINT_MAX = 0.1
 _TWO_PI = 2.0 * math.pi
 _CHUNK = 64  # triples per parallel work item (buffers are allocated once per item)
@@ -87,7 +88,7 @@ def tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, p
             wr = w[r]
             hr = h[r]
             kk = k0[r]
-            kmax = (math.pi / _C) * bw[r]          # kappa at the band edge [rad/m]
+            kmax = (math.pi / SPEED_OF_LIGHT_M_S) * bw[r]          # kappa at the band edge [rad/m]
             lui = lu_i[r]
             luo = lu_o[r]
             lvi = lv_i[r]
