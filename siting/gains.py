@@ -1,6 +1,6 @@
 """Link gains: join the visibility pair tables and the radio model into the coverage relation.
 
-Stage contract (DESIGN.md section 3): in go the ``base_stations``, ``sites``, ``sizes`` and ``users`` tables and
+Stage contract (the tables of :mod:`siting.tables`): in go the ``base_stations``, ``sites``, ``sizes`` and ``users`` tables and
 the compiled :class:`~siting.visibility.Obstacles`; out come
 
 * ``direct``: every user's best direct SNR without any surface and its serving base station;

@@ -1,4 +1,4 @@
-"""Table contracts between pipeline stages (DESIGN.md section 3).
+"""Table contracts between pipeline stages.
 
 Every stage takes and returns pandas DataFrames (GeoDataFrame for buildings) whose columns are declared
 here once, with dtype kind, unit and meaning.  :func:`check` is called at stage boundaries and raises a
@@ -76,7 +76,7 @@ SCHEMAS: dict[str, dict[str, tuple[str, str]]] = {
         "b": ("i", "row position in the second point set"),
         "distance_m": ("f", "3-D distance [m]"),
         "d2d_m": ("f", "horizontal distance [m]"),
-        "los": ("b", "True when no building blocks the 3-D segment (DESIGN.md section 4)"),
+        "los": ("b", "True when no building blocks the 3-D segment (the rule in siting.visibility)"),
         "angle_a_deg": ("f", "3-D angle between a's wall normal and the direction a->b [deg]; NaN if a has no normal"),
         "angle_b_deg": ("f", "3-D angle between b's wall normal and the direction b->a [deg]; NaN if b has no normal"),
         "elevation_deg": ("f", "elevation of b seen from a, positive upward [deg]"),

@@ -1,7 +1,7 @@
 """The gain stage against a brute-force reference built independently from the same physics functions.
 
 The reference enumerates every (base station, spot, size, user) combination with plain numpy broadcasting, tests
-line of sight pair by pair, and applies the rules of DESIGN.md sections 4-5 directly: both hops in LOS and in
+line of sight pair by pair, and applies the rules (docs/MODELS.md sections 1-2) directly: both hops in LOS and in
 range, both angles from the wall normal below the steering limit, the surface and the direct path from the same
 station combined as the model states (power sum or co-phased amplitudes, shadow-fading quantile), best station
 kept; once with the planning defaults and once with the upper-bound model.  The radio functions themselves are checked against

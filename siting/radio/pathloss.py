@@ -13,7 +13,7 @@ Decisions for the 3GPP models (documented once here, repeated in each docstring)
 * **Beyond 5 km** the formulas are evaluated as published (the LOS PL2 branch has a 40 dB/decade slope,
   already steeper than any physical mmWave path) and a :class:`RadioValidityWarning` is issued.
 * Outside 0.5-100 GHz the formulas are evaluated as published with a :class:`RadioValidityWarning`.
-* The LOS/NLOS choice is deterministic (from the building geometry, DESIGN.md section 4), not drawn with the
+* The LOS/NLOS choice is deterministic (from the building geometry, :mod:`siting.visibility`), not drawn with the
   LOS probability; :func:`los_probability_umi` and :func:`los_probability_uma` are for information.
 * Shadow fading is not drawn; margins and coverage quantiles are in :mod:`siting.radio.fading`.
 
@@ -328,7 +328,7 @@ def direct_path_loss_db(model: str, los, d2d_m, h_bs_m, h_ut_m, freq_hz):
         "umi": 3GPP UMi-Street Canyon; "uma": 3GPP UMa; "free_space": exact Friis loss over d3D (``los`` is
         then ignored).
     los : bool or array_like of bool
-        True where the geometry gives line of sight (deterministic, DESIGN.md section 4).
+        True where the geometry gives line of sight (deterministic, the rule of :mod:`siting.visibility`).
     d2d_m, h_bs_m, h_ut_m, freq_hz
         As :func:`umi_street_canyon_los_db`; all arguments broadcast together.
 
