@@ -134,7 +134,8 @@ def _exposure(bs, sites, sizes, users, feed: int, site: int, size: int, served: 
     st, s, z = bs.iloc[feed], sites.iloc[site], sizes.iloc[size]
     centre = np.array([s.x, s.y, s.z_m])
     bxyz = np.array([st.x, st.y, st.z_m])
-    eirp = float(st.tx_power_dbm + radio.bs_gain_toward_dbi(*(centre - bxyz), st.azimuth_deg, st.downtilt_deg,
+    dx, dy, dz = centre - bxyz
+    eirp = float(st.tx_power_dbm + radio.bs_gain_toward_dbi(dx, dy, dz, st.azimuth_deg, st.downtilt_deg,
                                                               st.max_gain_dbi, st.pattern == "omni"))
     at_panel = float(radio.power_density_w_m2(eirp, np.linalg.norm(centre - bxyz)))
     normal = np.array([np.sin(np.radians(s.normal_az_deg)), np.cos(np.radians(s.normal_az_deg)), 0.0])

@@ -13,7 +13,7 @@ from .assemble import Plan
 from .backends import Backend, HighsBackend, backend_for
 from .heuristics import _greedy_plan
 from .model import _build, _pulp_problem
-from .problem import _validate
+from .problem import _is_scalar, _validate
 from .reductions import _reduce
 from .settings import SolverSettings, settings_from
 from .solve import _min_cost, _solve, _sweep
@@ -93,9 +93,9 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight=None, *, targ
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     if (target_weight is None) == (target_share is None):
         raise SitingError("optimiser arguments: give exactly one of 'target_weight' and 'target_share'")
-    if target_weight is not None and (not np.isscalar(target_weight) or not np.isfinite(target_weight)):
+    if target_weight is not None and (not _is_scalar(target_weight) or not np.isfinite(target_weight)):
         raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
-    if target_share is not None and (not np.isscalar(target_share) or not 0 <= float(target_share) <= 1):
+    if target_share is not None and (not _is_scalar(target_share) or not 0 <= float(target_share) <= 1):
         raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
     return _min_cost(inst, None if target_weight is None else float(target_weight),

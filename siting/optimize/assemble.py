@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
+from typing import cast
 
 import numpy as np
 import scipy.sparse as sp
@@ -94,7 +95,8 @@ def _capped_served(inst: _Instance, red: _Reduced, chosen_red: np.ndarray, z: np
         served_cls = np.bincount(C.indices, weights=np.round(z), minlength=n_cls)
     elif len(chosen_red):
         # greedy assignment: users by descending weight to the covering surface with most room
-        room = {int(j): float(red.cap[j]) for j in chosen_red}
+        cap = cast(np.ndarray, red.cap)  # a load cap is set on this path
+        room = {int(j): float(cap[j]) for j in chosen_red}
         Cc = sp.csc_array(C[:, :][chosen_red])
         for i in np.argsort(-red.w, kind="stable"):
             rows = chosen_red[Cc.indices[Cc.indptr[i]:Cc.indptr[i + 1]]]
@@ -254,7 +256,7 @@ def settled_plan(asm: Assembly) -> Plan | None:
     inst, red, mode, target = asm.inst, asm.red, asm.mode, asm.target
     empty = np.zeros(0, np.int64)
     n, m = red.C.shape
-    if mode == "min" and target <= 1e-9 * float(inst.w.sum()):  # zero within floating-point noise of the total
+    if mode == "min" and cast(float, target) <= 1e-9 * float(inst.w.sum()):  # mode "min" has a target  # zero within floating-point noise of the total
         return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="target_met",
                         reason="the target weight is already met")
     if n == 0 or m == 0:

@@ -63,7 +63,10 @@ class Backend(Protocol):
     returns None when the back end cannot (then the caller solves each variant afresh).
     """
 
-    name: str
+    @property
+    def name(self) -> str:
+        """The solver name ('highs', 'cbc'), as reported in the plan."""
+        ...
 
     def solve(self, milp: _Milp, start: Start | None, settings: SolverSettings, staged: bool) -> SolveResult: ...
 
@@ -107,7 +110,7 @@ def _quiet_highs():
 
 
 # thread count HiGHS's process-wide scheduler was last (re)started with: the scheduler itself is process-wide
-_highs_threads = [None]
+_highs_threads: list[int | None] = [None]
 
 
 def _use_highs_threads(threads):
@@ -325,7 +328,7 @@ class _StagedSolve:
         self.backend, self.milp, self.start, self.settings = backend, milp, start, settings
         self.t_end = time.perf_counter() + float(settings.time_limit_s)
         self.n, self.nv = milp.n_x, len(milp.obj)
-        self.notes = []
+        self.notes: list[str] = []
 
     def brun(self, h, start, time_limit_s) -> SolveResult:
         """A run of the back end; its notes are kept for the final result."""

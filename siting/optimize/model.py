@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 import scipy.sparse as sp
@@ -154,7 +155,7 @@ def _assignment_rows(red: _Reduced, eps, mode, rows: _Rows):
     rows.add(sp.csr_array((np.r_[np.ones(nnz), -red.mult[coli].astype(float)], (np.r_[zk, zk], np.r_[n + zk, rowj])),
                           shape=(nnz, nv)), np.full(nnz, -_INF), np.zeros(nnz))
     # sum_i w_i z_ji - L_j x_j <= 0
-    rows.add(sp.csr_array((np.r_[wz, -red.cap], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
+    rows.add(sp.csr_array((np.r_[wz, -cast(np.ndarray, red.cap)], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
                           shape=(n, nv)), np.full(n, -_INF), np.zeros(n))
     return obj, col_hi, np.ones(nv, bool), np.r_[np.zeros(n), wz]
 

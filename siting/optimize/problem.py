@@ -70,6 +70,11 @@ def _as_1d(name, a, n, kind="f"):
     return arr
 
 
+def _is_scalar(x: object) -> bool:
+    """``numpy.isscalar`` as a plain bool (its TypeGuard would narrow a number to numpy's scalar union)."""
+    return bool(np.isscalar(x))
+
+
 def _validate(cover, weight, cost, option_site, budget=None, max_count=None, conflicts=None, load_cap=None,
               option_wall=None) -> _Instance:
     """The checked instance of the caller's arrays; :class:`SitingError` naming the argument otherwise."""
@@ -79,11 +84,11 @@ def _validate(cover, weight, cost, option_site, budget=None, max_count=None, con
     c = _as_1d("cost", cost, n_opt)
     site = _as_1d("option_site", option_site, n_opt, "i")
     if budget is not None:
-        if not np.isscalar(budget) or not np.isfinite(budget) or budget < 0:
+        if not _is_scalar(budget) or not np.isfinite(budget) or budget < 0:
             raise SitingError(f"optimiser argument 'budget': expected a finite number >= 0 or None, got {budget!r}")
         budget = float(budget)
     if max_count is not None:
-        if not np.isscalar(max_count) or not np.isfinite(max_count) or max_count < 0 or int(max_count) != max_count:
+        if not _is_scalar(max_count) or not np.isfinite(max_count) or max_count < 0 or int(max_count) != max_count:
             raise SitingError(f"optimiser argument 'max_count': expected an integer >= 0 or None, got {max_count!r}")
         max_count = int(max_count)
     conf = _conflict_pairs(conflicts)
@@ -158,7 +163,7 @@ def _load_caps(load_cap, n_opt) -> np.ndarray | None:
     """One load cap per option (a scalar applies to all), or None."""
     if load_cap is None:
         return None
-    if np.isscalar(load_cap):
+    if _is_scalar(load_cap):
         if not np.isfinite(load_cap) or load_cap < 0:
             raise SitingError(f"optimiser argument 'load_cap': expected a finite weight >= 0, got {load_cap!r}")
         return np.full(n_opt, float(load_cap))

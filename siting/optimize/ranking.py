@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -43,15 +45,15 @@ def rank_chosen(chosen, cover, weight) -> pd.DataFrame:
         marg.append(float(g[k]))
         left[k] = False
         uncovered[Csub.indices[Csub.indptr[k]:Csub.indptr[k + 1]]] = 0.0
-    order = np.asarray(order)
-    marg = np.asarray(marg)
+    order_a = np.asarray(order)
+    marg_a = np.asarray(marg)
     return pd.DataFrame({
-        "option": chosen[order],
+        "option": chosen[order_a],
         "rank": np.arange(1, len(chosen) + 1),
-        "marginal_weight": marg,
-        "cumulative_weight": np.cumsum(marg),
-        "exclusive_weight": excl[order],
-        "shared_weight": tot[order] - excl[order],
+        "marginal_weight": marg_a,
+        "cumulative_weight": np.cumsum(marg_a),
+        "exclusive_weight": excl[order_a],
+        "shared_weight": tot[order_a] - excl[order_a],
     })
 
 
@@ -107,7 +109,8 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     X = sp.csc_array(Csub.multiply((cnt == 1)[None, :] * w[None, :]).T)
     M = sp.csc_array(C @ X)
     chosen_sites = np.isin(site, site[chosen])
-    nconf = pair_conf = None
+    nconf: Any = None  # with conflicts: chosen sites in conflict with each site, and the site adjacency
+    pair_conf: Any = None
     if conflicts is not None and len(np.asarray(conflicts)):
         cf = np.asarray(conflicts, np.int64)
         ns = int(max(site.max() + 1, cf.max() + 1))

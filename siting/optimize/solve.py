@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import replace
+from typing import cast
 
 import numpy as np
 
@@ -261,22 +262,22 @@ def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backe
     milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
     session = backend.open(milp, settings) if milp is not None and budgets.max() > 0 else None
     order = np.argsort(budgets, kind="stable")
-    plans = [None] * len(budgets)
+    plans: list[Plan | None] = [None] * len(budgets)
     if session is None:
         for k in order:
             inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(budgets[k]), inst.max_count, inst.conflicts,
                                inst.load_cap)
             plans[k] = _solve(inst_k, "max", None, settings, backend, reduce, warm_start, red=red)
-        return plans
+        return cast("list[Plan]", plans)  # every budget filled
     asm = Assembly.start(inst, red, "max", None, settings.mip_gap, backend.name, reduce, {}, time.perf_counter(),
                          settings.time_limit_s)
     prev = _NONE
     for k in order:
-        plans[k] = _sweep_step(asm.for_budget(budgets[k]), milp, session, prev, settings, backend, reduce,
-                               warm_start)
-        if len(plans[k].chosen):
-            prev = np.sort(np.searchsorted(red.opt, plans[k].chosen))
-    return plans
+        plan = plans[k] = _sweep_step(asm.for_budget(budgets[k]), cast(_Milp, milp), session, prev, settings, backend,
+                                      reduce, warm_start)  # a session is only opened on a model
+        if len(plan.chosen):
+            prev = np.sort(np.searchsorted(red.opt, plan.chosen))
+    return cast("list[Plan]", plans)  # every budget filled
 
 
 def _sweep_step(asm: Assembly, milp: _Milp, session: Session, prev, settings: SolverSettings, backend: Backend,
@@ -293,7 +294,7 @@ def _sweep_step(asm: Assembly, milp: _Milp, session: Session, prev, settings: So
     gval = covered_weight(inst, red, g_red)
     start_red = prev if covered_weight(inst, red, prev) >= gval and len(prev) else g_red
     asm.timings["greedy"] = time.perf_counter() - t1
-    session.set_row_upper(milp.budget_row, budget)
+    session.set_row_upper(milp.budget_row, cast(float, budget))  # a sweep budget is a number
     milp.row_hi[milp.budget_row] = budget
     start = _start_vector(red, milp, start_red) if len(start_red) else None
     t3 = time.perf_counter()

@@ -53,6 +53,6 @@ def warn_outside(name: str, arr: np.ndarray, low: float, high: float, model: str
             f"[{low:g}, {high:g}]; {what}", RadioValidityWarning, stacklevel=stacklevel)
 
 
-def scalar_or_array(x: np.ndarray):
+def scalar_or_array(x: np.ndarray | float) -> np.ndarray | float:
     """Return a Python float for 0-d results, else the array (scalar in -> scalar out)."""
     return float(x) if np.ndim(x) == 0 else x

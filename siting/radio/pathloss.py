@@ -316,7 +316,7 @@ def uma_nlos_db(d2d_m, h_bs_m, h_ut_m, freq_hz):
 
 
 for _f in (umi_street_canyon_los_db, umi_street_canyon_nlos_db, uma_los_db, uma_nlos_db):
-    _f.__doc__ = _f.__doc__.replace("{notes}", _COMMON_NOTES)
+    _f.__doc__ = (_f.__doc__ or "").replace("{notes}", _COMMON_NOTES)
 
 
 def direct_path_loss_db(model: str, los, d2d_m, h_bs_m, h_ut_m, freq_hz):

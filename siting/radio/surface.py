@@ -52,7 +52,7 @@ from .surface_beams import CONTROLS as _CONTROLS
 from .surface_beams import _general_gain, nearest_beam
 from .surface_farfield import far_field_gain, fraunhofer_distance_m, quantisation_efficiency
 from .surface_reference import element_sum_gain, element_sum_gain_profile
-from .surface_tiles import _at, _grouped_tile_sum, _min_distance_to_panel, _prepare, tile_counts
+from .surface_tiles import _at, _grouped_tile_sum, _min_distance_either_end, _prepare, tile_counts
 
 __all__ = [
     "quantisation_efficiency",
@@ -251,8 +251,7 @@ def _focus_gain(loc, d1, d2, w, h, f, q=1.0):
     if near.size:
         loc_n = tuple(x[near] for x in loc)
         w_n, h_n, lam_n = _at(w, near), _at(h, near), _at(lam, near)
-        r_min = np.minimum(_min_distance_to_panel(*loc_n[:3], w_n, h_n),
-                           _min_distance_to_panel(*loc_n[3:], w_n, h_n))
+        r_min = _min_distance_either_end(loc_n, w_n, h_n)
         nx, ny = tile_counts(w_n, h_n, lam_n, r_min)
         beta[near] = _grouped_tile_sum(loc_n, w_n, h_n, nx, ny, q) ** 2  # [2], Eq. 42
     return beta

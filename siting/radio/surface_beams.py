@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from ._checks import SPEED_OF_LIGHT_M_S, as_float, scalar_or_array
-from .surface_tiles import _groups, _min_distance_to_panel, tile_counts
+from .surface_tiles import _groups, _min_distance_either_end, _min_distance_to_panel, tile_counts
 
 __all__ = ["nearest_beam"]
 
@@ -191,8 +191,7 @@ def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
         Ln = tuple(x[ni] for x in loc)
         w_n, h_n, k_n, bw_n = (np.broadcast_to(x, (m,))[ni] for x in (w, h, k0, bw))
         lam_n = 2.0 * np.pi / k_n
-        r_min = np.minimum(_min_distance_to_panel(*Ln[:3], w_n, h_n),
-                           _min_distance_to_panel(*Ln[3:], w_n, h_n))
+        r_min = _min_distance_either_end(Ln, w_n, h_n)
         nx, ny = tile_counts(w_n, h_n, lam_n, r_min / _BEAM_TILE_REFINE ** 2)
         nf = _node_counts(Ln, w_n, h_n, bw_n) if squint else np.ones(ni.size, np.int64)
         pu = (ui + us)[ni] if beams else None
@@ -225,11 +224,13 @@ def _near_power_sum(loc, dsum, w, h, k0, bw, pu, pv, q, nx, ny, nf, compiled=Tru
     starts = np.r_[0, np.cumsum(counts)[:-1]].astype(np.int64)
     xs = np.concatenate([r[0] for r in rules])
     ws = 0.5 * np.concatenate([r[1] for r in rules])           # mean over the band
-    f64 = [np.ascontiguousarray(x, dtype=np.float64) for x in (*loc, dsum, w, h, k0, bw)]
+    lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw = (np.ascontiguousarray(x, dtype=np.float64)
+                                                             for x in (*loc, dsum, w, h, k0, bw))
     beams = pu is not None
     zero = np.zeros(dsum.shape)
     out = np.empty(dsum.shape)
-    tile_power_sum(*f64, np.ascontiguousarray(pu if beams else zero, dtype=np.float64),
+    tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw,
+                   np.ascontiguousarray(pu if beams else zero, dtype=np.float64),
                    np.ascontiguousarray(pv if beams else zero, dtype=np.float64), beams, float(q),
                    nx.astype(np.int64), ny.astype(np.int64), starts[pos.ravel()], nf.astype(np.int64), xs, ws,
                    int(np.max(nx * ny)) if nx.size else 1, out)

@@ -69,7 +69,7 @@ def element_sum_gain(tx_xyz, rx_xyz, centre_xyz, normal_az_deg, n_x, n_y, elemen
     amp = np.zeros(front.shape)
     idx = np.flatnonzero(front)
     if idx.size:
-        amp[idx] = _tile_amplitude_sum(*(x[idx] for x in loc), _at(w, idx), _at(h, idx), n_x, n_y)
+        amp[idx] = _tile_amplitude_sum(tuple(x[idx] for x in loc), _at(w, idx), _at(h, idx), n_x, n_y)
     return scalar_or_array((scale * amp**2).reshape(shape))
 
 

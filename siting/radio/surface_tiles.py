@@ -58,6 +58,12 @@ def _min_distance_to_panel(lu, lv, ln, w, h):
     return np.sqrt(eu * eu + ev * ev + ln * ln)
 
 
+def _min_distance_either_end(loc, w, h):
+    """Shortest distance from either end of each triple (``loc``, panel frame) to the w x h rectangle."""
+    return np.minimum(_min_distance_to_panel(loc[0], loc[1], loc[2], w, h),
+                      _min_distance_to_panel(loc[3], loc[4], loc[5], w, h))
+
+
 def tile_counts(width_m, height_m, wavelength_m, r_min_m, max_per_side=None):
     """Tiles per side (nx along the width, ny along the height) so that each tile is in its own far field.
 
@@ -104,14 +110,16 @@ def tile_counts(width_m, height_m, wavelength_m, r_min_m, max_per_side=None):
     return nx, ny
 
 
-def _tile_amplitude_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, w, h, nx, ny, q=1.0):
+def _tile_amplitude_sum(loc, w, h, nx, ny, q=1.0):
     r"""Sum over an nx x ny tile grid of S_t (cos_in_t cos_out_t)^(q/2) / (4 pi r_in_t r_out_t).
 
-    All point arguments are 1-D arrays of m triples (panel-frame offsets); nx, ny are ints.  Distances are
+    ``loc`` = (lu_i, lv_i, ln_i, lu_o, lv_o, ln_o): 1-D arrays of m triples (panel-frame offsets of both
+    ends); nx, ny are ints.  Distances are
     expanded without forming 3-D tile positions: for a tile centre at (a, b) in the panel plane,
     r^2 = (lu - a)^2 + (lv - b)^2 + ln^2 and cos = ln / r (the tiles share the panel normal).  q = 1 is the
     projected-aperture factor sqrt(cos_in cos_out).
     """
+    lu_i, lv_i, ln_i, lu_o, lv_o, ln_o = loc
     m = lu_i.shape[0]
     out = np.empty(m)
     per = max(1, _CHUNK_ENTRIES // (nx * ny))
@@ -165,7 +173,8 @@ def _grouped_tile_sum(loc, w, h, nx, ny, q=1.0):
     """Tile amplitude sums for 1-D arrays of triples, one vectorised call per distinct (nx, ny) group."""
     amp = np.zeros(w.shape)
     for sel in _groups(nx * (1 << 32) + ny):  # one iteration per tile-count group, not per triple
-        amp[sel] = _tile_amplitude_sum(*(x[sel] for x in loc), w[sel], h[sel], int(nx[sel[0]]), int(ny[sel[0]]), q)
+        amp[sel] = _tile_amplitude_sum(tuple(x[sel] for x in loc), w[sel], h[sel], int(nx[sel[0]]), int(ny[sel[0]]),
+                                       q)
     return amp
 
 
