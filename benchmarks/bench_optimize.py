@@ -149,7 +149,7 @@ def pipeline_instance(job_path, overrides=()):
     warnings.simplefilter("ignore")
     job = load_job(job_path, list(overrides))
     r = run(job, write=False)
-    C, w, cost, site = optimisation_inputs(r.gains, r.users, RadioParams.from_job(job))
+    C, w, cost, site = optimisation_inputs(r.gains, r.users, RadioParams.from_job(r.job))
     return sp.csr_array(C), w, cost, site, job["budget"]["max_cost"] or None, job["budget"]["max_panels"] or None
 
 

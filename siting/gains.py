@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -34,6 +35,9 @@ import pandas as pd
 from . import radio
 from .tables import Points, check
 from .visibility import Obstacles, visible_pairs
+
+if TYPE_CHECKING:
+    from .job import Job
 
 
 @dataclass(frozen=True)
@@ -85,37 +89,38 @@ class RadioParams:
     home_steer_limit_deg: float = 90.0
 
     @classmethod
-    def from_job(cls, job: dict) -> RadioParams:
-        r, s = job["radio"], job["surfaces"]
+    def from_job(cls, job: Job) -> RadioParams:
+        """The gain-stage parameters of a validated :class:`~siting.job.Job` (``[radio]`` and ``[surfaces]``)."""
+        r, s = job.radio, job.surfaces
         curve = None
-        if s["efficiency_angles_deg"]:
-            curve = (tuple(s["efficiency_angles_deg"]), tuple(s["efficiency_values"]))
+        if s.efficiency_angles_deg:
+            curve = (tuple(s.efficiency_angles_deg), tuple(s.efficiency_values))
         return cls(
-            frequency_hz=r["frequency_ghz"] * 1e9,
-            bandwidth_hz=r["bandwidth_mhz"] * 1e6,
-            noise_figure_db=r["noise_figure_db"],
-            user_gain_dbi=r["user_gain_dbi"],
-            direct_model=r["direct_model"],
-            planning_margin_db=r["planning_margin_db"],
-            gaseous_absorption=r["gaseous_absorption"],
-            snr_target_db=r["snr_target_db"],
-            bs_range_m=r["bs_range_m"],
-            surface_range_m=r["surface_range_m"],
-            serve_covered_users=r["serve_covered_users"],
-            reflection_efficiency=s["reflection_efficiency"],
-            phase_bits=s["phase_bits"],
-            steer_limit_deg=s["steer_limit_deg"],
-            combining=r["combining"],
-            control=s["control"],
-            beam_oversampling=s["beam_oversampling"],
-            squint=s["squint"],
-            element_q=s["element_q"],
+            frequency_hz=r.frequency_ghz * 1e9,
+            bandwidth_hz=r.bandwidth_mhz * 1e6,
+            noise_figure_db=r.noise_figure_db,
+            user_gain_dbi=r.user_gain_dbi,
+            direct_model=r.direct_model,
+            planning_margin_db=r.planning_margin_db,
+            gaseous_absorption=r.gaseous_absorption,
+            snr_target_db=r.snr_target_db,
+            bs_range_m=r.bs_range_m,
+            surface_range_m=r.surface_range_m,
+            serve_covered_users=r.serve_covered_users,
+            reflection_efficiency=s.reflection_efficiency,
+            phase_bits=s.phase_bits,
+            steer_limit_deg=s.steer_limit_deg,
+            combining=r.combining,
+            control=s.control,
+            beam_oversampling=s.beam_oversampling,
+            squint=s.squint,
+            element_q=s.element_q,
             efficiency_curve=curve,
-            surface_hop_model=r["surface_hop_model"],
-            station_beam=r["station_beam"],
-            fresnel_clearance=r["fresnel_clearance"],
-            coverage_probability=r["coverage_probability"],
-            shadow_fading=r["shadow_fading"],
+            surface_hop_model=r.surface_hop_model,
+            station_beam=r.station_beam,
+            fresnel_clearance=r.fresnel_clearance,
+            coverage_probability=r.coverage_probability,
+            shadow_fading=r.shadow_fading,
         )
 
     def upper_bound(self) -> RadioParams:
@@ -357,7 +362,8 @@ def link_parts(bs, sites, sizes, users, bs_user, geo: dict, p: RadioParams) -> d
         omni = bs["pattern"].to_numpy(object)[t_bs] == "omni"
         az, tilt, gmax = (bs[c].to_numpy(float)[t_bs] for c in ("azimuth_deg", "downtilt_deg", "max_gain_dbi"))
         to_user, to_surface = uxyz - bxyz, sxyz - bxyz
-        beam = radio.bs_beam_gain_dbi(*to_user.T, *to_surface.T, az, tilt, gmax, omni)
+        (ux, uy, uz), (sx, sy, sz) = to_user.T, to_surface.T
+        beam = radio.bs_beam_gain_dbi(ux, uy, uz, sx, sy, sz, az, tilt, gmax, omni)
         direct_db = direct_db - _bs_gain(bs, t_bs, *uxyz.T) + beam
     coherent = los_direct & (p.combining == "coherent")
     level = np.empty(len(tx))

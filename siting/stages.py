@@ -119,7 +119,7 @@ class StageParams:
     @classmethod
     def from_job(cls, job: Job) -> StageParams:
         return cls(inputs=job.inputs, area=job.area, candidates=job.candidates, demand=job.demand,
-                   radio=RadioParams.from_job(job.to_dict()), optimise=OptimiseParams.from_job(job),
+                   radio=RadioParams.from_job(job), optimise=OptimiseParams.from_job(job),
                    height_uncertainty_m=job.inputs.height_uncertainty_m, robust_heights=job.radio.robust_heights,
                    tile_m=job.run.tile_m)
 

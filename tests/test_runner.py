@@ -69,7 +69,7 @@ def test_demo_plan_is_pinned(demo_result):
     assert sorted(options.loc[chosen, "site_id"].tolist()) == pinned["chosen_sites"]
     assert options.loc[chosen, "site_id"].is_unique
     assert options.loc[chosen, "cost"].sum() == pytest.approx(pinned["cost"], rel=1e-9)
-    cover, weight, _, _ = optimisation_inputs(gains, result.users, RadioParams.from_job(result.job.to_dict()))
+    cover, weight, _, _ = optimisation_inputs(gains, result.users, RadioParams.from_job(result.job))
     served = np.asarray(cover[chosen].sum(axis=0)).ravel() > 0
     assert weight[served].sum() == pytest.approx(pinned["objective"], rel=1e-9)
 
