@@ -31,6 +31,7 @@ import shapely
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
 
+from siting.constants import SPEED_OF_LIGHT_M_S  # noqa: E402
 from siting.tables import Points  # noqa: E402
 from siting.visibility import Obstacles, line_of_sight, visible_pairs  # noqa: E402
 from tests.test_visibility import reference_los  # noqa: E402
@@ -173,7 +174,7 @@ def main():
     print(f"peak RSS {rss1:.0f} MB (before the district run {rss0:.0f} MB)")
 
     # first-Fresnel-zone clearance (k = 0.6) against the bare ray, same scene, runs interleaved
-    c_mps = 299_792_458.0
+    c_mps = SPEED_OF_LIGHT_M_S
     runs = {"bare": {}}
     for f_ghz in (28.0, 3.5):
         runs[f"k=0.6 at {f_ghz:g} GHz"] = {"clearance_fraction": 0.6, "wavelength_m": c_mps / (f_ghz * 1e9)}
@@ -252,7 +253,7 @@ def main():
     t_el = time.perf_counter() - t
     assert (los_e == los_k).all()
     print(f"element-wise line_of_sight on the sample: {len(sample) / t_el / 1e6:.1f} M pairs/s")
-    lam28 = 299_792_458.0 / 28e9
+    lam28 = SPEED_OF_LIGHT_M_S / 28e9
     line_of_sight(ob, a_xyz[:10], b_xyz[:10], clearance_fraction=0.6, wavelength_m=lam28)
     t = time.perf_counter()
     los_c = line_of_sight(ob, a_xyz, b_xyz, clearance_fraction=0.6, wavelength_m=lam28)

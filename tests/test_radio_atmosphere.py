@@ -1,4 +1,7 @@
-"""Gaseous absorption against the itur package (ITU-R P.676 reference implementation) and ITU-R P.676-12 Annex 1 via the itur package."""
+"""Gaseous absorption (ITU-R P.676-12, "Attenuation by atmospheric gases and related effects", Annex 1, line-by-line)
+against the itur package 0.4 (an implementation of ITU-R P.676: ``itu676.gamma_exact``), at the standard reference
+conditions 1013.25 hPa, 15 deg C, 7.5 g/m3; worked values are itur outputs at those conditions.
+"""
 
 import numpy as np
 import pytest
@@ -23,21 +26,21 @@ def _itur(f_ghz, p_dry_hpa, rho=RHO, t=T):
 
 @pytest.mark.parametrize("f_ghz", FREQS_GHZ)
 def test_within_2_percent_of_itur(f_ghz):
-    # itur 0.4 gamma_exact (ITU-R P.676-12 Annex 1) at standard conditions, called as ITU-R P.676-12 Annex 1 via the itur package shows;
+    # itur 0.4 gamma_exact (ITU-R P.676-12 Annex 1) at the standard conditions;
     # requirement: within 2 % (itur reads P as dry-air pressure, we read it as total pressure: ~1 %)
     assert gaseous_attenuation_db_per_km(f_ghz * 1e9) == pytest.approx(_itur(f_ghz, P), rel=0.02)
 
 
 @pytest.mark.parametrize("f_ghz", FREQS_GHZ)
 def test_same_line_sum_as_itur_with_dry_pressure(f_ghz):
-    # ITU-R P.676-12 Annex 1 via the itur package pitfall 2: itur's P is the dry-air pressure p; with p = 1013.25 - e the two line-by-line
+    # itur 0.4 reads its P argument as the dry-air pressure p (total = p + e); with p = 1013.25 - e the two line-by-line
     # sums of P.676-12 Annex 1 must agree to rounding
     e = water_vapour_pressure_hpa(RHO, T)
     assert gaseous_attenuation_db_per_km(f_ghz * 1e9) == pytest.approx(_itur(f_ghz, P - e), rel=1e-6)
 
 
-def test_worked_section6_values():
-    # ITU-R P.676-12 Annex 1 via the itur package table (itur 0.4, P.676-12): 28 GHz 0.10176, 60 GHz 14.7783 dB/km total (2 %), and the
+def test_worked_values():
+    # itur 0.4 gamma_exact (ITU-R P.676-12 Annex 1) at the standard conditions: 28 GHz 0.10176, 60 GHz 14.7783 dB/km total (2 %), and the
     # dry-only values with rho = 0 (where total = dry pressure): 0.01850 and 14.6512 dB/km
     assert gaseous_attenuation_db_per_km(28e9) == pytest.approx(0.10176, rel=0.02)
     assert gaseous_attenuation_db_per_km(60e9) == pytest.approx(14.7783, rel=0.02)
@@ -46,7 +49,7 @@ def test_worked_section6_values():
 
 
 def test_terrestrial_path_worked_and_itur():
-    # ITU-R P.676-12 Annex 1 via the itur package: 60 GHz over 200 m = 2.9557 dB (2 %); itur gaseous_attenuation_terrestrial_path agrees
+    # itur 0.4 (ITU-R P.676-12 Annex 1): 60 GHz over 200 m = 2.9557 dB (2 %); itur gaseous_attenuation_terrestrial_path agrees
     a = gaseous_attenuation_db(200.0, 60e9)
     assert a == pytest.approx(2.9557, rel=0.02)
     ref = float(np.asarray(itu676.gaseous_attenuation_terrestrial_path(0.2, 60.0, 0, RHO, P, T, "exact").value))
@@ -54,7 +57,7 @@ def test_terrestrial_path_worked_and_itur():
 
 
 def test_water_vapour_pressure_worked():
-    # ITU-R P.676-12 Annex 1 via the itur package / P.676 Annex 1 Eq. 4: e = rho T / 216.7 = 9.97 hPa at 7.5 g/m3 and 288.15 K
+    # ITU-R P.676-12 Annex 1, Eq. (4): e = rho T / 216.7 = 9.97 hPa at 7.5 g/m3 and 288.15 K
     assert water_vapour_pressure_hpa(7.5, 288.15) == pytest.approx(9.97, abs=0.005)
 
 

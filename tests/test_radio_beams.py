@@ -9,6 +9,7 @@ inequalities that hold for any phase profile.
 
 import numpy as np
 import pytest
+import scipy.constants
 
 from siting.radio import (
     DEFAULT_ELEMENT_Q,
@@ -20,7 +21,7 @@ from siting.radio import (
     surface_gain,
 )
 
-C = 299_792_458.0
+C = scipy.constants.c  # speed of light in vacuum [m/s], exact SI value (scipy.constants)
 
 
 def db(x):

@@ -1,4 +1,12 @@
-"""Noise, coherent SNR and spectral efficiency (noise -174 dBm/Hz + 10 log10 B + NF, values computed, §8; 3GPP TR 36.942 Annex A.2)."""
+"""Noise, coherent SNR and spectral efficiency.
+
+Sources: thermal noise -174 dBm/Hz + 10 log10 B + NF (the kT0B convention with T0 = 290 K, rounded; the form used
+in the released code of [DF]; values computed); the co-phased SNR P (sqrt(b_d) + sqrt(b_s))^2 / sigma^2 of [DF];
+truncated Shannon spectral efficiency of 3GPP TR 36.942, Annex A.2.
+
+[DF] E. Björnson, Ö. Özdogan and E. G. Larsson, "Intelligent Reflecting Surface vs. Decode-and-Forward: How Large
+Surfaces Are Needed to Beat Relaying?", IEEE Wireless Commun. Lett., 2020, arXiv:1906.03949.
+"""
 
 import numpy as np
 import pytest
@@ -21,20 +29,20 @@ from siting.radio import (
 @pytest.mark.parametrize("b_hz, nf_db, expected", [
     (100e6, 0.0, -94.0000), (100e6, 7.0, -87.000), (100e6, 10.0, -84.000),
     (400e6, 0.0, -87.9794), (400e6, 7.0, -80.979), (400e6, 10.0, -77.979)])
-def test_noise_worked_section5(b_hz, nf_db, expected):
-    # noise -174 dBm/Hz + 10 log10 B + NF, values computed table, -174 dBm/Hz + 10 log10 B + NF (arXiv:1906.03949 code convention)
+def test_noise_worked_values(b_hz, nf_db, expected):
+    # -174 dBm/Hz + 10 log10 B + NF ([DF] code convention), values computed: 100 MHz -> -94.000 dBm + NF
     assert noise_power_dbm(b_hz, nf_db) == pytest.approx(expected, abs=1e-3)
 
 
 def test_noise_close_to_exact_kT0B():
-    # noise -174 dBm/Hz + 10 log10 B + NF, values computed: kT0B with T0 = 290 K (scipy.constants.k) differs from the -174 convention by 0.025 dB
+    # kT0B with T0 = 290 K (scipy.constants.k, exact SI) is -173.975 dBm/Hz: the -174 convention differs by 0.025 dB
     b = np.array([1e6, 100e6, 400e6])
     exact = 10 * np.log10(constants.k * 290.0 * b / 1e-3)
     np.testing.assert_allclose(noise_power_dbm(b, 0.0), exact, atol=0.03)
 
 
 def test_coherent_amplitudes_add():
-    # common practice / arXiv:1906.03949: SNR = P (sqrt(b_d) + sqrt(b_s))^2 / sigma^2; equal paths -> +6.02 dB
+    # [DF]: SNR = P (sqrt(b_d) + sqrt(b_s))^2 / sigma^2 with optimal phases; equal paths -> +6.02 dB
     one = coherent_snr_db(20.0, -100.0, -np.inf, -90.0)
     both = coherent_snr_db(20.0, -100.0, -100.0, -90.0)
     assert one == pytest.approx(10.0)
@@ -104,7 +112,7 @@ def test_power_sum_adds_powers():
     assert power_sum_snr_db(30.0, -np.inf, -np.inf, -80.0) == -np.inf
     np.testing.assert_allclose(power_sum_snr_db(30.0, np.array([-np.inf, -90.0]), np.array([-90.0, -np.inf]), -80.0),
                                [20.0, 20.0])
-    # never above the co-phased amplitude sum of arXiv:1906.03949 (the upper bound)
+    # never above the co-phased amplitude sum of [DF] (the upper bound)
     rng = np.random.default_rng(5)
     gd, gs = rng.uniform(-130, -80, 200), rng.uniform(-130, -80, 200)
     assert np.all(power_sum_snr_db(20.0, gd, gs, -90.0) <= coherent_snr_db(20.0, gd, gs, -90.0) + 1e-12)
@@ -148,3 +156,13 @@ def test_band_average_matches_quad_random():
     x = band_average_two_path_power(1.0, 1.0, 253.5e-9, 400e6) - 2.0
     assert abs(x) <= 2.0 / (np.pi * 400e6 * 253.5e-9)
     assert isinstance(band_average_two_path_power(1.0, 1.0, 1e-9, 1e8), float)
+
+
+def test_speed_of_light_is_the_si_value():
+    # one constant for the package, equal to the exact SI value (BIPM, "The International System of Units",
+    # 9th ed., 2019, Table 1; scipy.constants.c); siting.radio re-exports the same object
+    from siting import radio
+    from siting.constants import SPEED_OF_LIGHT_M_S
+
+    assert SPEED_OF_LIGHT_M_S == constants.c == 299_792_458.0
+    assert radio.SPEED_OF_LIGHT_M_S is SPEED_OF_LIGHT_M_S

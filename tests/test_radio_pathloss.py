@@ -1,4 +1,10 @@
-"""Path loss: free space (ITU-R P.525) and 3GPP TR 38.901 UMi / UMa, against ITU-R P.525, worked values computed from its formula-2 worked values."""
+"""Path loss: free space (ITU-R P.525) and 3GPP TR 38.901 UMi / UMa.
+
+Worked values are computed here from the published formulas: free space from ITU-R P.525 (exact
+20 log10(4 pi d f / c)), the UMi-Street Canyon and UMa rows from 3GPP TR 38.901 v19.4.0, "Study on channel model for
+frequencies from 0.5 to 100 GHz", Table 7.4.1-1 (path loss, NOTE 1 for the breakpoint) and Table 7.4.2-1 (LOS
+probability).
+"""
 
 import warnings
 
@@ -27,13 +33,14 @@ from siting.radio import (
 # ------------------------------------------------------------------------------------------- free space
 
 @pytest.mark.parametrize("freq_hz, expected_db", [(28e9, 101.391), (3.5e9, 83.329)])
-def test_fspl_worked_section1(freq_hz, expected_db):
-    # ITU-R P.525, worked values computed from its formula worked examples at 100 m, exact 20 log10(4 pi d f / c) (ITU-R P.525)
+def test_fspl_worked_values(freq_hz, expected_db):
+    # ITU-R P.525 free-space loss 20 log10(4 pi d f / c) with the exact c, worked at d = 100 m
     assert free_space_path_loss_db(100.0, freq_hz) == pytest.approx(expected_db, abs=1e-3)
 
 
 def test_fspl_practical_units_form():
-    # ITU-R P.525: L = 32.4 + 20 log10 f[MHz] + 20 log10 d[km]; ITU-R P.525, worked values computed from its formula: differs from exact by < 0.05 dB
+    # ITU-R P.525 practical-units form L = 32.4 + 20 log10 f[MHz] + 20 log10 d[km]; its rounded constant differs
+    # from the exact 20 log10(4 pi 1e9 / c) = 32.4478 dB by < 0.05 dB
     rng = np.random.default_rng(1)
     d = rng.uniform(1, 5000, 50)
     f = rng.uniform(0.5e9, 100e9, 50)
@@ -50,7 +57,8 @@ def test_fspl_6db_per_distance_doubling():
 
 # -------------------------------------------------------------------------------------------------- UMi
 
-# 3GPP TR 38.901 Table 7.4.1-1, worked values computed from it worked values, UMi, hBS = 10 m, hUT = 1.5 m: (fc GHz, d2D, PL_LOS, PL_NLOS)
+# Worked values computed from 3GPP TR 38.901 v19.4.0 Table 7.4.1-1 (UMi-Street Canyon), hBS = 10 m, hUT = 1.5 m:
+# (fc GHz, d2D, PL_LOS, PL_NLOS)
 UMI_TABLE = [
     (28, 10, 84.823, 92.693),
     (28, 50, 97.151, 113.416),
@@ -66,7 +74,7 @@ UMI_TABLE = [
 
 @pytest.mark.parametrize("fc, d2d, los, nlos", UMI_TABLE)
 def test_umi_worked_table(fc, d2d, los, nlos):
-    # 3GPP TR 38.901 Table 7.4.1-1, worked values computed from it (3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMi-Street Canyon)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMi-Street Canyon (values computed from its formulas, UMI_TABLE)
     assert umi_street_canyon_los_db(d2d, 10.0, 1.5, fc * 1e9) == pytest.approx(los, abs=1e-3)
     assert umi_street_canyon_nlos_db(d2d, 10.0, 1.5, fc * 1e9) == pytest.approx(nlos, abs=1e-3)
 
@@ -81,12 +89,13 @@ def test_umi_table_vectorised():
 
 @pytest.mark.parametrize("fc_hz, expected_m", [(28e9, 1680.0), (3.5e9, 210.0)])
 def test_umi_breakpoint_worked(fc_hz, expected_m):
-    # 3GPP TR 38.901 Table 7.4.1-1, worked values computed from it: d'BP = 4 h'BS h'UT fc / c, hE = 1 m, c = 3e8 (TR 38.901 NOTE 1)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1 NOTE 1: d'BP = 4 h'BS h'UT fc / c, hE = 1 m, c = 3e8; 4 * 9 * 0.5 * 28e9 / 3e8 = 1680 m
     assert breakpoint_distance_m(10.0, 1.5, fc_hz) == pytest.approx(expected_m, rel=1e-12)
 
 
 def test_umi_breakpoint_continuity_worked():
-    # 3GPP TR 38.901 Table 7.4.1-1, worked values computed from it: PL1 = PL2 = 92.0554 dB at d2D = d'BP = 210 m (3.5 GHz)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1 (UMi): PL1 = PL2 at d2D = d'BP (d3D^2 = d'BP^2 + (hBS - hUT)^2 there); computed
+    # from the formulas: 92.0554 dB at d'BP = 210 m, 3.5 GHz
     below = umi_street_canyon_los_db(210.0, 10.0, 1.5, 3.5e9)
     above = umi_street_canyon_los_db(210.0 * (1 + 1e-9), 10.0, 1.5, 3.5e9)
     assert below == pytest.approx(92.0554, abs=1e-4)
@@ -95,7 +104,8 @@ def test_umi_breakpoint_continuity_worked():
 
 # -------------------------------------------------------------------------------------------------- UMa
 
-# 3GPP TR 38.901 Table 7.4.1-1 (UMa), worked values computed from it worked values, UMa, hBS = 25 m, hUT = 1.5 m: (fc GHz, d2D, LOS, NLOS)
+# Worked values computed from 3GPP TR 38.901 v19.4.0 Table 7.4.1-1 (UMa), hBS = 25 m, hUT = 1.5 m (so hE = 1 m):
+# (fc GHz, d2D, LOS, NLOS)
 UMA_TABLE = [
     (28, 50, 95.274, 110.573),
     (28, 100, 101.200, 121.099),
@@ -106,13 +116,14 @@ UMA_TABLE = [
 
 @pytest.mark.parametrize("fc, d2d, los, nlos", UMA_TABLE)
 def test_uma_worked_table(fc, d2d, los, nlos):
-    # 3GPP TR 38.901 Table 7.4.1-1 (UMa), worked values computed from it (3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMa)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1, UMa (values computed from its formulas, UMA_TABLE)
     assert uma_los_db(d2d, 25.0, 1.5, fc * 1e9) == pytest.approx(los, abs=1e-3)
     assert uma_nlos_db(d2d, 25.0, 1.5, fc * 1e9) == pytest.approx(nlos, abs=1e-3)
 
 
 def test_uma_breakpoint_continuity_worked():
-    # 3GPP TR 38.901 Table 7.4.1-1 (UMa), worked values computed from it: PL1 = PL2 = 99.3499 dB at d2D = d'BP = 560 m (3.5 GHz)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1 (UMa): PL1 = PL2 at d2D = d'BP; computed from the formulas: 99.3499 dB at
+    # d'BP = 560 m, 3.5 GHz
     assert breakpoint_distance_m(25.0, 1.5, 3.5e9) == pytest.approx(560.0)
     below = uma_los_db(560.0, 25.0, 1.5, 3.5e9)
     above = uma_los_db(560.0 * (1 + 1e-9), 25.0, 1.5, 3.5e9)
@@ -125,13 +136,13 @@ def test_uma_breakpoint_continuity_worked():
 @pytest.mark.parametrize("d2d, p", [(10, 1.0), (50, 0.51959), (100, 0.23098), (200, 0.09352), (300, 0.06023),
                                     (500, 0.03600)])
 def test_los_probability_umi_worked(d2d, p):
-    # 3GPP TR 38.901 Table 7.4.1-1, worked values computed from it, TR 38.901 Table 7.4.2-1 (UMi-Street Canyon)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.2-1 (UMi-Street Canyon): 18/d + exp(-d/36) (1 - 18/d) beyond 18 m; values computed
     assert los_probability_umi(d2d) == pytest.approx(p, abs=1e-5)
 
 
 @pytest.mark.parametrize("d2d, p", [(50, 0.64940), (100, 0.34767), (200, 0.12805), (1000, 0.01800)])
 def test_los_probability_uma_worked(d2d, p):
-    # 3GPP TR 38.901 Table 7.4.1-1 (UMa), worked values computed from it, TR 38.901 Table 7.4.2-1 (UMa), hUT = 1.5 m
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.2-1 (UMa), hUT = 1.5 m (C'(hUT) = 0): 18/d + exp(-d/63) (1 - 18/d); values computed
     assert los_probability_uma(d2d, 1.5) == pytest.approx(p, abs=1e-5)
 
 
@@ -144,7 +155,7 @@ def test_los_probability_uma_tall_terminal_raises_it():
 # ------------------------------------------------------------------------------------ model properties
 
 def test_nlos_never_below_los_random_sample():
-    # TR 38.901 Table 7.4.1-1: PL_NLOS = max(PL_LOS, PL'_NLOS) >= PL_LOS (3GPP TR 38.901 Table 7.4.1-1, worked values computed from it property)
+    # 3GPP TR 38.901 v19.4.0 Table 7.4.1-1: PL_NLOS = max(PL_LOS, PL'_NLOS) >= PL_LOS by construction (formula property)
     rng = np.random.default_rng(5)
     d = rng.uniform(0, 5000, 2000)
     h = rng.uniform(1.5, 22.5, 2000)

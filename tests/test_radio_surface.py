@@ -1,11 +1,21 @@
-"""Reflecting-surface gain: published worked values, exact element sums, near-field limits, properties.
+"""Reflecting-surface gain: worked values from published formulas, exact element sums, near-field limits, properties.
 
-Sources are named beside each check.  Worked values were computed from the
-cited papers' formulas.
+Sources are named beside each check; worked values were computed from the cited formulas (28 GHz, lambda/2 cells,
+isotropic ends, unit reflection amplitude).
+
+[TANG] W. Tang et al., "Wireless Communications With Reconfigurable Intelligent Surface: Path Loss Modeling and
+       Experimental Measurement", IEEE Trans. Wireless Commun., 2021, arXiv:1911.05326 (general model).
+[NF]   E. Björnson and L. Sanguinetti, "Power Scaling Laws and Near-Field Behaviors of Massive MIMO and Intelligent
+       Reflecting Surfaces", IEEE Open J. Commun. Soc., 2020, arXiv:2002.04960.
+[WZ]   Q. Wu and R. Zhang, "Beamforming Optimization for Wireless Network Aided by Intelligent Reflecting Surface
+       with Discrete Phase Shifts", IEEE Trans. Commun., 2020, arXiv:1906.03165.
+[PRIMER] E. Björnson, Ö. T. Demir and L. Sanguinetti, "A Primer on Near-Field Beamforming for Arrays and
+       Reconfigurable Intelligent Surfaces", Asilomar 2021, arXiv:2110.06661 (Fraunhofer distance, D the diagonal).
 """
 
 import numpy as np
 import pytest
+import scipy.constants
 
 from siting.errors import SitingError
 from siting.radio import (
@@ -20,7 +30,7 @@ from siting.radio import (
     tile_counts,
 )
 
-C = 299_792_458.0
+C = scipy.constants.c  # speed of light in vacuum [m/s], exact SI value (scipy.constants)
 F28 = 28e9
 LAM28 = C / F28
 
@@ -37,16 +47,16 @@ def planar_geometry(d1, d2, theta_in_deg, theta_out_deg):
     return tx, rx
 
 
-# ------------------------------------------------------------------------------------ quantisation (§4)
+# ------------------------------------------------------------------------------------ quantisation ([WZ])
 
 @pytest.mark.parametrize("bits, loss_db", [(1, -3.9224), (2, -0.9121), (3, -0.2244), (4, -0.0559)])
-def test_quantisation_loss_worked_section4(bits, loss_db):
-    # Wu & Zhang, IEEE Trans. Commun. 2020, arXiv:1906.03165
+def test_quantisation_loss_worked(bits, loss_db):
+    # [WZ]: b-bit phases lose (sin(pi / 2^b) / (pi / 2^b))^2 (large-N power ratio); values computed
     assert 10 * np.log10(quantisation_efficiency(bits)) == pytest.approx(loss_db, abs=1e-4)
 
 
 def test_quantisation_continuous_and_array():
-    # arXiv:1906.03165: continuous phases have no quantisation loss; b -> infinity tends to 1 (property)
+    # [WZ]: continuous phases have no quantisation loss; b -> infinity tends to 1 (property)
     assert quantisation_efficiency(None) == 1.0
     assert quantisation_efficiency(0) == 1.0
     arr = quantisation_efficiency(np.array([0, 1, 2, 3, 8]))
@@ -61,7 +71,7 @@ def test_quantisation_bad_bits(bad):
         quantisation_efficiency(bad)
 
 
-# ------------------------------------------------------------------------------ far field, Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed
+# --------------------------------------------------- far field: [TANG] general model, [NF] Eq. (48); values computed
 
 # (elements per side, d1, d2, theta_in, theta_out, closed form [dB], exact element sum [dB])
 FAR_FIELD_CASES = [
@@ -73,32 +83,34 @@ FAR_FIELD_CASES = [
 
 
 @pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
-def test_far_field_closed_form_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed: Tang FF-BF (arXiv:1911.05326) = [NF] Eq. (48) (arXiv:2002.04960), lambda/2 cells, 28 GHz
+def test_far_field_closed_form_worked(n, d1, d2, ti, to, closed_db, exact_db):
+    # far-field limit of the Tang et al. general model (F = cos, aperture element gain) = [NF] Eq. (48): S^2 cos_in cos_out / (4 pi d1 d2)^2; values computed
     side = n * LAM28 / 2
     beta = far_field_gain(d1, d2, np.cos(np.radians(ti)), np.cos(np.radians(to)), side * side)
     assert db_loss(beta) == pytest.approx(closed_db, abs=1e-3)
 
 
 @pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
-def test_element_sum_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed "Exact element sum" column: Tang general model, F = cos, G = pi, co-phased
+def test_element_sum_worked(n, d1, d2, ti, to, closed_db, exact_db):
+    # [TANG] general model summed element by element (F = cos, G = pi for lambda/2 cells, co-phased; [NF] Eq. (42));
+    # values computed
     tx, rx = planar_geometry(d1, d2, ti, to)
     beta = element_sum_gain(tx, rx, [0, 0, 0], 0.0, n, n, LAM28 / 2, LAM28 / 2)
     assert db_loss(beta) == pytest.approx(exact_db, abs=1.5e-3)
 
 
 @pytest.mark.parametrize("n, d1, d2, ti, to, closed_db, exact_db", FAR_FIELD_CASES)
-def test_surface_gain_worked_3b(n, d1, d2, ti, to, closed_db, exact_db):
-    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed exact element sum; the tile/far-field model must agree to 0.01 dB on these cases
+def test_surface_gain_worked(n, d1, d2, ti, to, closed_db, exact_db):
+    # the exact element sum above ([TANG] general model); the tile/far-field model must agree to 0.01 dB on these cases
     tx, rx = planar_geometry(d1, d2, ti, to)
     side = n * LAM28 / 2
     beta = surface_gain(tx, rx, [0, 0, 0], 0.0, side, side, F28)
     assert db_loss(beta) == pytest.approx(exact_db, abs=0.01)
 
 
-def test_link_budget_snr_worked_3b():
-    # Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed composite check: 32x32, 50/20 m, Pt 30 dBm, Gt 25 dBi, Gr 0 dBi, 400 MHz, NF 10 -> 20.35 dB
+def test_link_budget_snr_worked():
+    # link budget from [NF] Eq. (48) (112.633 dB, 32 x 32, 50/20 m) and noise -174 dBm/Hz + 10 log10 B + NF:
+    # Pt 30 dBm, Gt 25 dBi, Gr 0 dBi, 400 MHz, NF 10 dB -> 30 + 25 - 112.633 + 77.979 = 20.35 dB (computed)
     tx, rx = planar_geometry(50.0, 20.0, 0.0, 0.0)
     side = 32 * LAM28 / 2
     g_db = 10 * np.log10(surface_gain(tx, rx, [0, 0, 0], 0.0, side, side, F28)) + 25.0 + 0.0
@@ -108,8 +120,8 @@ def test_link_budget_snr_worked_3b():
 
 @pytest.mark.parametrize("side_m, freq_hz, expected_m", [
     (0.5, 28e9, 93.4), (1.0, 28e9, 373.6), (1.0, 3.5e9, 46.7), (32 * LAM28 / 2, 28e9, 10.96)])
-def test_fraunhofer_distance_worked_3c(side_m, freq_hz, expected_m):
-    # Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed Fraunhofer examples, 2 D^2 / lambda with D the diagonal (arXiv:2110.06661)
+def test_fraunhofer_distance_worked(side_m, freq_hz, expected_m):
+    # [PRIMER]: Fraunhofer distance 2 D^2 / lambda with D the largest dimension (the diagonal); values computed
     assert fraunhofer_distance_m(side_m, side_m, freq_hz) == pytest.approx(expected_m, rel=1e-3)
 
 
@@ -126,7 +138,7 @@ def test_far_field_behind_panel_is_zero():
 # ------------------------------------------------------------------ tile sum against the exact element sum
 
 def test_tile_sum_matches_element_sum_random_sample():
-    # Reference: exact element-by-element co-phased sum (Tang general model / [NF] Eq. 42, Tang et al. arXiv:1911.05326 general model / Björnson & Sanguinetti arXiv:2002.04960 Eq. (48), values computed);
+    # Reference: exact element-by-element co-phased sum ([TANG] general model, [NF] Eq. (42));
     # requirement: within 0.1 dB for panels up to 100 x 100 lambda/2 elements at 28 GHz, 2-200 m, oblique
     rng = np.random.default_rng(20240611)
     m = 200
@@ -164,7 +176,7 @@ def test_element_sum_vectorised_equals_loop():
 
 
 def test_tile_counts_put_each_tile_in_its_far_field():
-    # definition (Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed, §9): a tile of diagonal D_t is in its far field when 2 D_t^2 / lambda <= r
+    # definition ([PRIMER]): a tile of diagonal D_t is in its far field when 2 D_t^2 / lambda <= r
     rng = np.random.default_rng(3)
     w = rng.uniform(0.05, 2.0, 200)
     h = rng.uniform(0.05, 2.0, 200)
@@ -176,10 +188,10 @@ def test_tile_counts_put_each_tile_in_its_far_field():
     assert np.all(nx >= 1) and np.all(ny >= 1)
 
 
-# ----------------------------------------------------------------------------- common practice (§8)
+# ----------------------------------------------------------------------------------- common practice
 
 def test_doubling_both_sides_gives_12_db_far_field():
-    # common practice (common practice): power grows with the square of the area; both sides x2 -> +12.04 dB
+    # common practice ([NF] Eq. (48): beta ~ S^2): power grows with the square of the area; both sides x2 -> +12.04 dB
     tx, rx = planar_geometry(120.0, 150.0, 20.0, 35.0)
     small = surface_gain(tx, rx, [0, 0, 0], 0.0, 0.1, 0.15, F28)
     big = surface_gain(tx, rx, [0, 0, 0], 0.0, 0.2, 0.3, F28)
@@ -187,7 +199,7 @@ def test_doubling_both_sides_gives_12_db_far_field():
 
 
 def test_u_shaped_gain_along_link():
-    # common practice (common practice): Tx and Rx 80 m apart, surface 4 m off the line: best near either end,
+    # common practice (beta ~ 1 / (d1 d2)^2, [NF] Eq. (48)): Tx and Rx 80 m apart, surface 4 m off the line: best near either end,
     # lowest mid-way, symmetric.  The panel faces the line (normal toward -y, azimuth 180 deg).
     x = np.linspace(2.0, 78.0, 39)
     centre = np.column_stack([x, np.full_like(x, 4.0), np.full_like(x, 5.0)])
@@ -204,19 +216,20 @@ def test_u_shaped_gain_along_link():
 
 def _solid_angle_square(side_m, d_m):
     # solid angle of a centred square of side L seen at distance d on its axis: 4 asin(a^2 / (a^2 + d^2)),
-    # a = L/2 (standard rectangle formula); Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed quotes 0.4977 for L = 10 km, d = 25 m
+    # a = L/2 (solid angle of a rectangle seen on its axis; mathematics)
     a = side_m / 2
     return 4 * np.arcsin(a * a / (a * a + d_m * d_m))
 
 
 def test_solid_angle_reference_matches_worked():
-    # Björnson & Sanguinetti, IEEE OJ-COMS 2020, arXiv:2002.04960, values computed: keeping only distance and projected area, a 10 km square at 25 m captures 0.4977
+    # [NF] (Fig. 3 discussion): keeping only distance and projected area, a very large surface captures 1/2 of an
+    # isotropic source's power; computed from the solid angle: a 10 km square at 25 m captures 0.4977
     assert _solid_angle_square(1e4, 25.0) / (4 * np.pi) == pytest.approx(0.4977, abs=1e-4)
 
 
 @pytest.mark.parametrize("side_m, d_m, freq_hz", [(40.0, 1.0, 1e9), (10.0, 1.0, 1e9), (2.0, 2.0, 28e9)])
 def test_large_panel_half_power_bound(side_m, d_m, freq_hz):
-    # common practice / §3(c): with the projected-area model each hop captures Omega / (4 pi) <= 1/2 of the power
+    # [NF] (projected-area model, no polarisation loss): each hop captures Omega / (4 pi) <= 1/2 of the power
     # (infinite plane: exactly 1/2).  Tx = Rx on the axis, so beta = (Omega / 4 pi)^2 <= 1/4.
     p = np.array([0.0, d_m, 0.0])
     beta = surface_gain(p, p, [0, 0, 0], 0.0, side_m, side_m, freq_hz)

@@ -28,6 +28,7 @@ import networkx as nx
 import numpy as np
 import pandas as pd
 import pytest
+import scipy.constants
 import shapely
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -90,7 +91,7 @@ def reference_los(polys, heights, a_xyz, b_xyz, tol=TOL_M, use_tree=True):
     return ~blocked, grazing
 
 
-C_MPS = 299_792_458.0  # speed of light [m/s] (SI definition)
+C_MPS = scipy.constants.c  # speed of light in vacuum [m/s], exact SI value (scipy.constants)
 
 
 def reference_clearance(polys, heights, a_xyz, b_xyz, k, wavelength_m, tol=TOL_M, n0=16, max_rounds=14):
