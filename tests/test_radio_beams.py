@@ -3,7 +3,7 @@
 References beside each check: the exact element-by-element sum of Tang et al.'s general model
 ("Wireless Communications With Reconfigurable Intelligent Surface: Path Loss Modeling and Experimental
 Measurement", IEEE Trans. Wireless Commun., 2021, arXiv:1911.05326) evaluated with the same phase profile
-(:func:`element_sum_gain_profile`), published values computed from that model, array-factor mathematics and
+(:func:`element_sum_gain_profile`), worked values computed from that model, array-factor mathematics and
 inequalities that hold for any phase profile.
 """
 
