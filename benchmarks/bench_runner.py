@@ -55,7 +55,8 @@ def run_case(job: Path, overrides: list[str], workers: int = 0, write: bool = Tr
 def show(name: str, r: dict, target_s: float | None = None) -> None:
     t = r["timings_s"]
     stages = ", ".join(f"{k} {v:.1f}s" for k, v in t.items())
-    verdict = "" if target_s is None else f" (target < {target_s:.0f} s: {'met' if r['wall_s'] < target_s else 'MISSED'})"
+    met = target_s is not None and r["wall_s"] < target_s
+    verdict = "" if target_s is None else f" (target < {target_s:.0f} s: {'met' if met else 'MISSED'})"
     print(f"{name}: {r['wall_s']:.1f} s end to end{verdict}; {stages}")
     print(f"   {r['buildings']} buildings, {r['sites']} spots, {r['users']} demand points, {r['options']} options, "
           f"{r['site_user_pairs']} LOS spot-user pairs, {r['coverage_rows']} coverage rows; plan {r['chosen']} "

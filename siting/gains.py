@@ -1,7 +1,7 @@
 """Link gains: join the visibility pair tables and the radio model into the coverage relation.
 
-Stage contract (the tables of :mod:`siting.tables`): in go the ``base_stations``, ``sites``, ``sizes`` and ``users`` tables and
-the compiled :class:`~siting.visibility.Obstacles`; out come
+Stage contract (the tables of :mod:`siting.tables`): in go the ``base_stations``, ``sites``, ``sizes`` and
+``users`` tables and the compiled :class:`~siting.visibility.Obstacles`; out come
 
 * ``direct``: every user's best direct SNR without any surface and its serving base station;
 * ``options``: one row per (site, panel size) whose panel fits on the wall;

@@ -67,8 +67,8 @@ dropped).
 
 Implementation
 --------------
-:class:`Obstacles` (:mod:`siting.obstacles`) bins every footprint edge into a uniform grid once per district.  :func:`visible_pairs`
-runs one compiled two-pass kernel (numba, ``parallel=True`` over the ``a`` points, ``cache=True``): a uniform
+:class:`Obstacles` (:mod:`siting.obstacles`) bins every footprint edge into a uniform grid once per district.
+:func:`visible_pairs` runs one compiled two-pass kernel (numba, ``parallel=True`` over the ``a`` points, ``cache=True``): a uniform
 grid of the ``b`` points finds the pairs within range (count pass, then fill pass) and, in the fill pass, the
 edge grid is traversed cell by cell along each track (DDA) with early exit at the first blocking crossing.
 Cells whose tallest building stays below the ray are skipped.  Whether an endpoint is inside a footprint

@@ -256,7 +256,8 @@ def settled_plan(asm: Assembly) -> Plan | None:
     inst, red, mode, target = asm.inst, asm.red, asm.mode, asm.target
     empty = np.zeros(0, np.int64)
     n, m = red.C.shape
-    if mode == "min" and cast(float, target) <= 1e-9 * float(inst.w.sum()):  # mode "min" has a target  # zero within floating-point noise of the total
+    # mode "min" always has a target; zero within floating-point noise of the total counts as met
+    if mode == "min" and cast(float, target) <= 1e-9 * float(inst.w.sum()):
         return asm.plan(empty, "optimal", 0.0, 0.0, empty_reason="target_met",
                         reason="the target weight is already met")
     if n == 0 or m == 0:

@@ -155,7 +155,8 @@ def _assignment_rows(red: _Reduced, eps, mode, rows: _Rows):
     rows.add(sp.csr_array((np.r_[np.ones(nnz), -red.mult[coli].astype(float)], (np.r_[zk, zk], np.r_[n + zk, rowj])),
                           shape=(nnz, nv)), np.full(nnz, -_INF), np.zeros(nnz))
     # sum_i w_i z_ji - L_j x_j <= 0
-    rows.add(sp.csr_array((np.r_[wz, -cast(np.ndarray, red.cap)], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
+    cap = cast(np.ndarray, red.cap)  # this model is built only with a load cap
+    rows.add(sp.csr_array((np.r_[wz, -cap], (np.r_[rowj, np.arange(n)], np.r_[n + zk, np.arange(n)])),
                           shape=(n, nv)), np.full(n, -_INF), np.zeros(n))
     return obj, col_hi, np.ones(nv, bool), np.r_[np.zeros(n), wz]
 
