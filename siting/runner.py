@@ -140,7 +140,7 @@ def plan_fields(plan: Plan) -> dict:
     """The JSON-able fields of a :class:`~siting.optimize.Plan` except ``covered`` (used for the cache)."""
     out = {k: getattr(plan, k) for k in ("objective", "bound", "gap", "status", "solver", "cost",
                                          "greedy_objective", "message", "model_size", "timings_s", "mode",
-                                         "empty_reason")}
+                                         "empty_reason", "tie_break")}
     out["chosen"] = [int(c) for c in plan.chosen]
     return json.loads(json.dumps(out, default=json_default))
 

@@ -348,9 +348,12 @@ def optimise_stage(gains: GainResult, sites: pd.DataFrame, users: pd.DataFrame, 
         solver=q.solver, time_limit_s=q.time_limit_s, mip_rel_gap=q.mip_gap, threads=q.threads,
     )
     if q.target_share is not None:
-        reachable = float(weight[np.asarray(cover.sum(axis=0)).ravel() > 0].sum())
-        plan = opt.min_cost_cover(cover, weight, cost, option_site, q.target_share * reachable,
-                                  max_count=q.max_panels, **solver_kw)
+        try:
+            plan = opt.min_cost_cover(cover, weight, cost, option_site, target_share=q.target_share,
+                                      budget=q.max_cost, max_count=q.max_panels, **solver_kw)
+        except opt.TargetUnreachable as exc:
+            raise opt.TargetUnreachable(f"budget.target_share = {q.target_share:g}: {exc}", reachable=exc.reachable,
+                                        bound=exc.bound, advice=exc.advice) from None
     else:
         if q.max_cost is None and q.max_panels is None:
             raise SitingError("no limit given: set budget.max_cost, budget.max_panels or budget.target_share "
@@ -359,7 +362,10 @@ def optimise_stage(gains: GainResult, sites: pd.DataFrame, users: pd.DataFrame, 
                                   **solver_kw)
     chosen = np.asarray(plan.chosen, dtype=np.int64)
     ranking = opt.rank_chosen(chosen, cover, weight)
-    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3, conflicts=solver_kw["conflicts"])
+    site_rows = sites.set_index("site_id").reindex(option_site)  # options' sites (site_id is the row position)
+    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3, conflicts=solver_kw["conflicts"],
+                              option_wall=site_rows["wall_id"].to_numpy(np.int64),
+                              option_building=site_rows["building_id"].astype(str).to_numpy(object))
     return plan, ranking, backups, _sweep(cover, weight, cost, option_site, plan, q, solver_kw)
 
 

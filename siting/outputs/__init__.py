@@ -39,13 +39,14 @@ import pandas
 import pyproj
 
 from ..errors import SitingError
+from ..radio import element_count
 from . import atomic, figures, folder, layers, report, survey
-from .derive import PlanFigures, compass_point, derive, element_count, element_pitch_m
+from .derive import PlanFigures, derive
 from .folder import check_output_folder, output_folder_problems, planned_files
+from .values import compass_point
 
 __all__ = ["OutputBundle", "PlanFigures", "write_outputs", "derive", "compass_point", "element_count",
-           "element_pitch_m", "FORMATS", "check_output_folder", "output_folder_problems",
-           "planned_files"]
+           "FORMATS", "check_output_folder", "output_folder_problems", "planned_files"]
 
 FORMATS = ("geojson", "gpkg")
 
@@ -87,7 +88,8 @@ class OutputBundle:
     """max cost, None if only a panel count"""
     max_panels: int | None
     params: dict
-    """the resolved job as nested dict (for the report's parameter table)"""
+    """the resolved job as nested dict (for the report's parameter and assumption tables only; the figures
+    read the typed fields below)"""
     run_info: dict
     """input_hashes, timings_s per stage, versions, visibility degree stats, notes"""
     formats: tuple = ("geojson",)
@@ -99,7 +101,12 @@ class OutputBundle:
     guessed_height_links, exposure_w_m2, exposure_where, exposure_reference_w_m2, exposure_share
     (see :data:`siting.outputs.derive.SITE_CHECK_COLUMNS`); None when not computed"""
     currency: str = ""
-    """currency of every cost (e.g. "EUR"); empty: costs print in "cost units" """
+    """currency of every cost (e.g. "EUR"; ``budget.currency``); empty: costs print in "cost units" """
+    element_pitch_m: float | None = None
+    """element pitch [m] for the element counts when ``sizes`` has no 'elements' column (None: unknown)"""
+    load_cap_weight: float | None = None
+    """most weight one surface may carry (``surfaces.load_cap_weight``; None or 0: no cap, ``plan.covered``
+    is then not consulted)"""
     sensitivity: pandas.DataFrame | None = None
     """model, covered_weight, covered_directly_weight: the chosen plan under the planning model, each planning
     assumption relaxed alone and the upper-bound model; None when not computed"""

@@ -9,8 +9,10 @@ removed if anything fails while it is being written.
 from __future__ import annotations
 
 import contextlib
+import json as _json
 import os
 import secrets
+import shutil as _shutil
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -116,9 +118,6 @@ def leftover_temp_files(folder: str | os.PathLike) -> list[Path]:
 # steps 2-5 leaves the journal, and :func:`recover` (run first by every write into the folder) completes the
 # commit from the staging folder, which already holds the complete new set.  Only files listed in a previous
 # manifest, and only names siting writes, are ever replaced or removed.
-
-import json as _json
-import shutil as _shutil
 
 JOURNAL = ".siting-commit.json"
 STAGING_PREFIX = TMP_PREFIX + "set-"

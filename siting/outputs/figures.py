@@ -13,7 +13,8 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .derive import PlanFigures, currency_label
+from .derive import PlanFigures
+from .values import currency_label
 
 OKABE_ITO = {
     "black": "#000000", "orange": "#E69F00", "sky_blue": "#56B4E9", "bluish_green": "#009E73",
@@ -247,7 +248,7 @@ def district_figure(bundle, fig_data: PlanFigures) -> Figure:
 
 
 def derive_text(values) -> list[str]:
-    from .derive import text_values
+    from .values import text_values
 
     return list(text_values(values))
 

@@ -256,7 +256,7 @@ SITES_SENTENCE = (
 
 def site_headers(table, currency: str = "") -> list[str]:
     """The column headers of a site table, costs labelled with the currency."""
-    from .derive import currency_label
+    from .values import currency_label
 
     return [lbl.replace("{currency}", currency_label(currency)) for _, lbl, _ in table]
 
@@ -425,7 +425,7 @@ img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 @page { size: A4; margin: 12mm; }
 @media print {
   body { max-width: none; margin: 0; padding: 0; font-size: 9.5pt; }
-  table { font-size: 7.5pt; page-break-inside: auto; } tr { page-break-inside: avoid; }
+  table { font-size: 7.5pt; page-break-inside: auto; } tr, td, th { page-break-inside: avoid; break-inside: avoid; }
   td, th { padding: 1px 3px; } .wide { overflow: visible; } thead { display: table-header-group; }
   h2 { page-break-after: avoid; } img { page-break-inside: avoid; }
 }
