@@ -40,7 +40,8 @@ import pyproj
 
 from ..errors import SitingError
 from ..radio import element_count
-from . import atomic, figures, folder, layers, report, survey
+from . import atomic, figures, folder, layers, markdown, report, survey
+from . import record as record_mod
 from .derive import PlanFigures, derive
 from .folder import check_output_folder, output_folder_problems, planned_files
 from .values import compass_point
@@ -228,10 +229,10 @@ def _write_set(st, bundle, fig, formats, extra, t, t_start) -> dict:
 
     t0 = time.perf_counter()
     files = dict(rel, report_html="report.html", report_md="report.md", run_json="run.json")
-    record = report.run_record(bundle, fig, files, t)
+    record = record_mod.run_record(bundle, fig, files, t)
     put("report_html", "report.html", lambda p: atomic.write_text(p, report.report_html(bundle, fig, pngs, record)))
     put("report_md", "report.md",
-        lambda p: atomic.write_text(p, report.report_md(bundle, fig, figure_files, record)))
+        lambda p: atomic.write_text(p, markdown.report_md(bundle, fig, figure_files, record)))
     t["report"] = time.perf_counter() - t0
     t["total"] = time.perf_counter() - t_start
     record["timings_s"].update({f"outputs.{k}": v for k, v in t.items()})
