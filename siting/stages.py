@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import logging
 import warnings
+from collections import Counter
 from dataclasses import dataclass
 from typing import Any
 
@@ -288,9 +289,22 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     bs_site = _concat([t["bs_site"] for t in surface_parts], ["a", "b"])
     site_user = _concat([t["site_user"] for t in surface_parts], ["a", "b"])
     if notes is not None:
-        tile_notes = (n for part in [*direct_parts, *surface_parts] for n in part.get(NOTES, ()))
-        notes.extend(n for n in merge_tile_notes(list(tile_notes)) if n not in notes)
+        tile_notes = count_tile_notes([list(part.get(NOTES, ())) for part in [*direct_parts, *surface_parts]])
+        notes.extend(n for n in tile_notes if n not in notes)
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
+
+
+def count_tile_notes(per_tile: list[list[str]]) -> list[str]:
+    """The notes of a stage's tiles (one list per tile, in tile order), each distinct note once with a count.
+
+    A note several tiles raise word for word is listed once as ``"<note> (34 tiles)"``; notes equal but for one
+    whole number are summed into one (:func:`siting.executor.merge_tile_notes`, "... (summed over 3 tiles)");
+    any other note is kept as it is, in first-seen order.  The result depends only on the tiles' notes, so a
+    run in one process, on Dask workers or from the cache lists the same notes.
+    """
+    n_tiles = Counter(n for tile in per_tile for n in dict.fromkeys(tile))
+    merged = merge_tile_notes([n for tile in per_tile for n in tile])
+    return [f"{n} ({n_tiles[n]} tiles)" if n_tiles.get(n, 0) > 1 else n for n in merged]
 
 
 def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:

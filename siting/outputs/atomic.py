@@ -15,6 +15,7 @@ import secrets
 import shutil as _shutil
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 from ..errors import SitingError
 
@@ -73,15 +74,15 @@ def _fsync(path: Path) -> None:
             os.close(fd)
 
 
-def write_with(path: str | os.PathLike, writer: Callable[[object], None], mode: str = "w") -> Path:
+def write_with(path: str | os.PathLike, writer: Callable[[Any], None], mode: str = "w") -> Path:
     """Open a temporary file beside ``path`` in ``mode``, call ``writer(file)``, then rename it to ``path``.
 
     Text modes use UTF-8 and ``\\n`` line ends on every platform.
     """
     path = Path(path)
     with atomic_path(path) as tmp:
-        kwargs = {} if "b" in mode else {"encoding": "utf-8", "newline": "\n"}
-        with open(tmp, mode, **kwargs) as fh:
+        text = "b" not in mode
+        with open(tmp, mode, encoding="utf-8" if text else None, newline="\n" if text else None) as fh:
             writer(fh)
             fh.flush()
     return path

@@ -19,7 +19,7 @@ VERSIONED_PACKAGES = ("numpy", "scipy", "pandas", "shapely", "geopandas", "pypro
 
 def package_versions() -> dict:
     """Installed versions of the packages the results depend on (None when not installed)."""
-    out = {"python": platform.python_version()}
+    out: dict[str, str | None] = {"python": platform.python_version()}
     for name in VERSIONED_PACKAGES:
         try:
             out[name] = importlib.metadata.version(name)

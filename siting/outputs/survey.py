@@ -269,6 +269,7 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
     by_rank = fig.sites.set_index("rank")
     maps = figures.SiteMaps(bundle, fig) if len(frame) else None
     for _, r in frame.iterrows():
+        assert maps is not None  # (frame has rows)
         rank = int(r["rank"])
         site = by_rank.loc[rank]
         png = base64.b64encode(maps.png(rank)).decode("ascii")
