@@ -71,6 +71,38 @@ def test_demo_end_to_end(demo_result):
     assert (fit["width_m"] <= fit["wall_free_m"] + 1e-9).all()
 
 
+def test_demo_costs_carry_the_currency_and_backups_are_diverse(demo_result):
+    """budget.currency = "EUR" (demo job) beside every cost; backups never share a wall with their primary or each
+    other, and their placement / building say so (issue: outputs a field team can trust)."""
+    result, out = demo_result
+    survey = pd.read_csv(out / "survey.csv")
+    assert set(survey["currency"]) == {"EUR"} and survey["site_id"].dtype == np.int64
+    surfaces = json.loads((out / "surfaces.geojson").read_text())["features"]
+    assert surfaces and {f["properties"]["currency"] for f in surfaces} == {"EUR"}
+    report = (out / "report.md").read_text(encoding="utf-8")
+    assert "Cost [EUR]" in report and "Budget [EUR]" in report and "| Cost of the plan | 30000.00 EUR |" in report
+    bk = result.backups
+    assert len(bk) and bk["option"].isin(result.plan.chosen).all()
+    wall = result.sites["wall_id"].to_numpy()[result.gains.options["site_id"].to_numpy()]
+    building = result.sites["building_id"].to_numpy()[result.gains.options["site_id"].to_numpy()]
+    primary_wall, backup_wall = wall[bk["option"].to_numpy()], wall[bk["backup_option"].to_numpy()]
+    assert not bk.assign(w=backup_wall).duplicated(["option", "w"]).any()  # one backup per wall
+    same_wall = bk["placement"] == "same_wall"
+    assert ((primary_wall == backup_wall) == same_wall).all()
+    other_b = building[bk["option"].to_numpy()] != building[bk["backup_option"].to_numpy()]
+    assert ((bk["placement"] == "other_building") == other_b).all()
+    assert (bk["weak"] == (bk["recovered_share"] < 0.5)).all()
+    # survey columns per backup: building, placement, distance, share and the weak flag, ids as integers
+    for c in ("backup_1_building_id", "backup_1_address", "backup_1_mount_height_m", "backup_1_facing_deg",
+              "backup_1_size_id", "backup_1_width_m", "backup_1_distance_m", "backup_1_recovered_share",
+              "backup_1_weak", "backup_1_placement"):
+        assert c in survey.columns, c
+    raw = pd.read_csv(out / "survey.csv", dtype=str, keep_default_na=False)
+    for c in ("site_id", "backup_1_site_id", "backup_2_site_id"):
+        assert raw[c].str.fullmatch(r"\d*").all(), c  # integers (or empty), never 2106.0
+    assert ((survey["backup_1_facing_deg"].dropna() >= 0) & (survey["backup_1_facing_deg"].dropna() < 360)).all()
+
+
 def test_demo_plan_is_pinned(demo_result):
     """Pinned on the committed demo data: a change here means the model or the data changed - say why.
 
