@@ -1580,3 +1580,23 @@ def test_a_second_run_into_a_busy_folder_is_refused(tmp_path):
         staging.rmdir()
     assert _snapshot(d) == before
     write_outputs(d, make_bundle(random_state=4))  # free again
+
+
+def test_tables_print_on_a4(out):
+    """Print rules: A4 pages (ISO 216) and no table row split across two pages, in both printable pages."""
+    d, _ = out
+    for page in ("report.html", "survey.html"):
+        css = re.search(r"<style>(.*?)</style>", (d / page).read_text(encoding="utf-8"), re.S).group(1)
+        assert re.search(r"@page\s*\{[^}]*size:\s*A4", css), page
+        printing = css[css.index("@media print"):]
+        assert re.search(r"tr[^{]*\{[^}]*(page-)?break-inside:\s*avoid", printing), page
+        assert "thead { display: table-header-group; }" in printing, page  # headers repeat on each page
+
+
+def test_report_counts_weak_backups(tmp_path):
+    b = make_bundle()
+    b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.9, 0.2))
+    write_outputs(tmp_path, b)
+    n_sites = len(derive(b).sites)
+    md = (tmp_path / "report.md").read_text(encoding="utf-8")
+    assert f"offers {2 * n_sites} backup spot(s)" in md and f"{n_sites} of them recover less than half" in md

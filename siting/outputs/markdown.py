@@ -29,6 +29,7 @@ from .report import (
     _summary_sentences,
     _sweep_rows,
     assumptions,
+    backups_sentence,
     flatten,
     site_headers,
     solver_rows,
@@ -79,7 +80,8 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
     p += ["## Ranked sites", ""]
     if len(fig.sites):
         p += [_md_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)), "",
-              _md_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE)), "", SITES_SENTENCE, ""]
+              _md_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE)), "", SITES_SENTENCE, "",
+              backups_sentence(fig), ""]
     else:
         p += ["No site was chosen.", ""]
     p += ["## Feeds and building heights to check", ""]

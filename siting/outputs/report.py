@@ -210,6 +210,20 @@ SITES_SENTENCE = (
     "weight also by another. The survey list gives coordinates, addresses and backup spots.")
 
 
+def backups_sentence(fig: PlanFigures) -> str:
+    """How many backup spots the survey list offers, and how many of them are weak."""
+    bk = fig.backups
+    if not len(bk):
+        return "The survey list offers no backup spot."
+    weak = int(bk["weak"].sum())
+    text = (f"The survey list offers {len(bk)} backup spot(s), at most one per wall, for "
+            f"{bk['rank'].nunique()} site(s)")
+    if weak:
+        return (text + f"; {weak} of them recover less than half of their primary's own weight (marked WEAK): "
+                "losing that primary costs coverage whichever backup is used.")
+    return text + "; each recovers at least half of its primary's own weight."
+
+
 def site_headers(table, currency: str = "") -> list[str]:
     """The column headers of a site table, costs labelled with the currency."""
     from .values import currency_label
@@ -466,7 +480,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
         p.append(_html_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)).replace("<table>", "<table id=\"sites\">", 1))
         p.append(_html_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE))
                  .replace("<table>", "<table id=\"site-details\">", 1))
-        p.append(f"<p>{esc(SITES_SENTENCE)}</p>")
+        p.append(f"<p>{esc(SITES_SENTENCE)}</p><p id=\"backups\">{esc(backups_sentence(fig))}</p>")
     else:
         p.append("<p>No site was chosen.</p>")
 
