@@ -80,8 +80,9 @@ class OutputBundle:
     ranking: pandas.DataFrame
     """option, rank (only these are read; the weights are recomputed and printed as ``weight_gained``)"""
     backups: pandas.DataFrame
-    """option, backup_rank, backup_option, recovered_weight, in the order to show; any further column (e.g.
-    recovered_share, weak) is shown as given"""
+    """the optimiser's backups (:func:`siting.optimize.backups_for`): option, backup_rank, backup_option and, when
+    given, recovered_weight, recovered_share, kept_weight, weak, placement, in the order to show (weak, when
+    missing, is recovered_share < 0.5); any further column is shown as given"""
     sweep: pandas.DataFrame | None
     """budget, covered_weight, bound, gap, cost, n_sites, status"""
     snr_target_db: float
