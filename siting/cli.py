@@ -34,8 +34,11 @@ def _parser() -> argparse.ArgumentParser:
                       help="run the heavy stages on a local Dask cluster of N worker processes")
     plan.add_argument("--scheduler", default=None, metavar="ADDRESS",
                       help="run the heavy stages on an existing Dask cluster (e.g. tcp://host:8786)")
-    plan.add_argument("--progress", action="store_true", default=None, help="show progress bars")
-    plan.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    shown = plan.add_mutually_exclusive_group()
+    shown.add_argument("--progress", action="store_true", default=None,
+                       help="show progress bars even when stderr is not a terminal (on a terminal they show anyway)")
+    shown.add_argument("--quiet", action="store_true",
+                       help="print nothing but errors: no progress bars, no notices, no summary")
 
     validate = sub.add_parser("validate", help="check a job and its input layers; print a district summary",
                               epilog=EXIT_CODES)
@@ -44,6 +47,13 @@ def _parser() -> argparse.ArgumentParser:
     keys = sub.add_parser("keys", help="print the job-file reference (every key, unit, default, range)")
     keys.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
     return parser
+
+
+def show_progress(progress: bool | None, quiet: bool, terminal: bool) -> bool:
+    """Progress bars: ``--progress`` forces them on, ``--quiet`` off; otherwise on when stderr is a terminal."""
+    if progress:
+        return True
+    return not quiet and terminal
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -88,9 +98,8 @@ def _dispatch(args) -> int:
         return 0
     from .runner import run
 
-    progress = sys.stderr.isatty() if args.progress is None else args.progress
     result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
-                 progress=progress and not args.quiet)
+                 progress=show_progress(args.progress, args.quiet, sys.stderr.isatty()), notices=not args.quiet)
     if not args.quiet:
         plan = result.plan
         covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())

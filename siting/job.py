@@ -172,6 +172,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                             "share of the weight the surfaces can reach, instead of maximising coverage", none=0.0),
         "sweep_budgets": Key("floats", [], "currency", 0.0, None, "budgets for the coverage-versus-budget curve "
                              "([] = 0.25x to 2x of max_cost, see siting.stages.SWEEP_BUDGET_FACTORS)", none=[]),
+        "currency": Key("str", "", doc="currency of every cost and budget, printed beside each cost in the outputs "
+                        "(e.g. \"EUR\"; \"\" = \"cost units\")"),
     },
     "solver": {
         "name": Key("str", "highs", choices=("highs", "cbc"), doc="integer-programming solver"),

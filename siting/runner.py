@@ -33,10 +33,13 @@ Disk: ``write=True`` writes the outputs, ``siting.log`` and the cache (``<output
 
 from __future__ import annotations
 
+import importlib
 import json
 import logging
+import sys
 import time
 import warnings
+from collections import Counter
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -140,7 +143,7 @@ def plan_fields(plan: Plan) -> dict:
     """The JSON-able fields of a :class:`~siting.optimize.Plan` except ``covered`` (used for the cache)."""
     out = {k: getattr(plan, k) for k in ("objective", "bound", "gap", "status", "solver", "cost",
                                          "greedy_objective", "message", "model_size", "timings_s", "mode",
-                                         "empty_reason")}
+                                         "empty_reason", "tie_break")}
     out["chosen"] = [int(c) for c in plan.chosen]
     return json.loads(json.dumps(out, default=json_default))
 
@@ -149,17 +152,23 @@ def plan_fields(plan: Plan) -> dict:
 def capture_notes(into: list[str]) -> Iterator[None]:
     """Collect the :class:`~siting.errors.SitingWarning` messages raised inside the block into ``into``.
 
-    Each message once (in order, not repeated if ``into`` holds it already); other warnings pass on unchanged.
-    This is the one channel of model notes: the runner opens one per stage and stores the stage's notes with it.
+    Each distinct message once, in order, with a count when the block raised it more than once (``"<note> (3
+    times)"``); not added again when ``into`` holds it already.  Other warnings pass on unchanged.  This is the
+    one channel of model notes: the runner opens one per stage and stores the stage's notes with it.
     """
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", SitingWarning)
         yield
+    counts: Counter[str] = Counter()
     for w in caught:
         if not issubclass(w.category, SitingWarning):
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-        elif str(w.message) not in into:
-            into.append(str(w.message))
+        else:
+            counts[str(w.message)] += 1
+    for message, n in counts.items():
+        text = message if n == 1 else f"{message} ({n} times)"
+        if message not in into and text not in into:
+            into.append(text)
 
 
 def _unique(notes: list[str]) -> list[str]:
@@ -246,16 +255,17 @@ def _gains(ctx: _Context, district, sites, sizes, users, cand_key: str, tile_m: 
         ctx.recomputed.append(f"gains ({len(tiles_done)} tiles)")
     ctx.timings["gains"] = time.perf_counter() - t0
     _advance(ctx.bar, "optimise")
-    log.info("gains: %d options, %d coverage rows, %d users covered directly of %d", len(gains.options),
-             int((gains.coverage["snr_db"] >= p.snr_target_db).sum()) if len(gains.coverage) else 0,
-             int(gains.direct["covered"].sum()), len(users))
+    rows, at_target = coverage_row_counts(gains, p.snr_target_db)
+    log.info("gains: %d options, %d coverage rows (%d at the SNR target), %d users covered directly of %d",
+             len(gains.options), rows, at_target, int(gains.direct["covered"].sum()), len(users))
     return gains, heights_m, gains_key
 
 
 def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
     t0 = time.perf_counter()
     job = ctx.job.to_dict()
-    key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
+    budget = {k: v for k, v in job["budget"].items() if k != "currency"}  # the currency is only printed
+    key = digest([gains_key, budget, job["solver"], job["surfaces"]["load_cap_weight"]])
     hit = ctx.cache.load("optimise", key, expect=("ranking", "backups", "covered"))
     if hit:
         tables, extras = hit
@@ -283,6 +293,56 @@ def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
     return plan, ranking, backups, sweep
 
 
+#: Modules of the compiled kernels (numba, ``cache=True``): their first use compiles them, about 1-2 minutes.
+KERNEL_MODULES = ("siting._kernels_visibility", "siting.radio._surface_kernel")
+#: The line shown before the first compile (numba's cache cold).
+COMPILE_NOTICE = "compiling the line-of-sight kernels (first run only, about 1-2 minutes)"
+
+
+def kernels_cold() -> bool:
+    """Whether the next run compiles the kernels: numba's on-disk cache holds no valid entry for some kernel module.
+
+    Reads only numba's cache index of each compiled (not inlined) kernel, the file numba itself checks against the
+    source file's time stamp, so this takes milliseconds once numba is imported.  False when numba is missing.
+    """
+    try:
+        from numba.core.caching import FunctionCache
+        from numba.core.dispatcher import Dispatcher
+    except ImportError:
+        return False
+
+    def cached(d: Dispatcher) -> bool:
+        try:
+            return bool(d._cache._cache_file._load_index())  # type: ignore[attr-defined]
+        except (AttributeError, OSError, EOFError, ValueError):
+            return False
+
+    for name in KERNEL_MODULES:
+        module = importlib.import_module(name)
+        kernels = [d for d in vars(module).values() if isinstance(d, Dispatcher)
+                   and isinstance(getattr(d, "_cache", None), FunctionCache)
+                   and d.targetoptions.get("inline") != "always"]
+        if kernels and not any(cached(d) for d in kernels):
+            return True
+    return False
+
+
+def _compile_notice(ctx: _Context, show: bool) -> None:
+    """Log (and with ``show`` print on stderr) :data:`COMPILE_NOTICE` when the kernels are not compiled yet."""
+    if kernels_cold():
+        log.info(COMPILE_NOTICE)
+        if show:
+            ctx.bar.write(f"siting: {COMPILE_NOTICE}", file=sys.stderr)
+
+
+def coverage_row_counts(gains: GainResult, snr_target_db: float) -> tuple[int, int]:
+    """Rows of the coverage relation, and those reaching the SNR target (``run.json`` ``counts.coverage_rows`` and
+    ``counts.coverage_rows_at_target``, the same definitions)."""
+    if not len(gains.coverage):
+        return 0, 0
+    return len(gains.coverage), int((gains.coverage["snr_db"].to_numpy(float) >= snr_target_db).sum())
+
+
 def _log_handler(out_dir: Path) -> logging.Handler:
     out_dir.mkdir(parents=True, exist_ok=True)
     handler = logging.FileHandler(out_dir / "siting.log", encoding="utf-8")
@@ -292,7 +352,7 @@ def _log_handler(out_dir: Path) -> logging.Handler:
 
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
-        cache_dir: str | Path | None = None) -> RunResult:
+        cache_dir: str | Path | None = None, notices: bool | None = None) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -304,9 +364,12 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     workers, scheduler : int, str
         Run the tiles on a Dask LocalCluster of ``workers`` processes, or on the cluster at ``scheduler``.
     progress : bool
-        Show progress bars.
+        Show progress bars (on stderr).
     tile_m : float, optional
         Tile size [m] instead of the job's ``run.tile_m`` (0 = one tile).
+    notices : bool, optional
+        Print :data:`COMPILE_NOTICE` on stderr before the kernels' first compile (default: as ``progress``); it
+        is logged either way.
     write : bool
         Write the outputs, the log (``siting.log``) and the stage cache into ``output.folder``.  With
         ``write=False`` nothing is written to disk unless ``cache_dir`` is given.
@@ -326,6 +389,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
         district, sizes = _load(ctx)
         sites, users, cand_key = _candidates(ctx, district, sizes)
+        _compile_notice(ctx, progress if notices is None else notices)
         gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,
                                              scheduler)
         plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key)
@@ -358,7 +422,8 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
 
 
 def write_stage(result: RunResult, p: RadioParams) -> dict:
-    """Hand every table to the output writers (GeoJSON, survey list, report, run.json)."""
+    """Hand every table to the output writers (GeoJSON, survey list, report, run.json, the LOS graph if asked)."""
+    from . import radio
     from .outputs import OutputBundle, write_outputs
 
     job, gains = result.job, result.gains
@@ -366,18 +431,18 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         "bs_site": degree_stats(gains.bs_site, len(result.district.base_stations), len(result.sites)),
         "site_user": degree_stats(gains.site_user, len(result.sites), len(result.users)),
     }
+    rows, at_target = coverage_row_counts(gains, p.snr_target_db)
     run_info = {
         "siting_version": __version__,
         "input_hashes": result.district.input_hashes,
         "crs": result.district.crs.to_string(),
         "crs_rule": result.district.crs_rule,
         "timings_s": result.timings_s,
-        "recomputed_stages": result.recomputed,
         "visibility_degrees": pairs_stats,
         "notes": result.notes,
         "counts": {"buildings": len(result.district.buildings), "base_stations": len(result.district.base_stations),
                    "sites": len(result.sites), "users": len(result.users), "options": len(gains.options),
-                   "coverage_rows": len(gains.coverage)},
+                   "coverage_rows": rows, "coverage_rows_at_target": at_target},
     }
     bundle = OutputBundle(
         crs=result.district.crs, buildings=result.district.buildings, base_stations=result.district.base_stations,
@@ -386,16 +451,22 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         snr_target_db=p.snr_target_db, budget=job.budget.max_cost, max_panels=job.budget.max_panels,
         params=job.to_dict(), run_info=run_info, formats=tuple(job.output.formats),
         include_candidates=job.output.candidates_layer, title=job.output.title, site_checks=result.site_checks,
-        sensitivity=result.sensitivity,
+        sensitivity=result.sensitivity, currency=job.budget.currency,
+        element_pitch_m=radio.element_pitch_m(p.frequency_hz, job.surfaces.element_pitch_wavelengths),
+        load_cap_weight=job.surfaces.load_cap_weight,
     )
-    graph = {}
+    extra = {}
     if job.output.los_graph:
-        graph["los_graph"] = write_los_graph(Path(job.output.folder) / "los_graph.graphml", gains)
-    return {**graph, **write_outputs(Path(job.output.folder), bundle)}
+        extra["los_graph"] = ("los_graph.graphml", lambda path: write_los_graph(path, gains))
+    return write_outputs(Path(job.output.folder), bundle, extra_files=extra)
 
 
 def write_los_graph(path: Path, gains: GainResult) -> Path:
-    """The LOS graph (base station - spot and spot - user links) as GraphML, written atomically."""
+    """The LOS graph (base station - spot and spot - user links) as GraphML, written atomically.
+
+    The runner writes it only through :func:`siting.outputs.write_outputs` (``extra_files``), so it is part of
+    the complete output set and its manifest.
+    """
     import networkx as nx
 
     from .outputs.atomic import write_with

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import logging
 import warnings
+from collections import Counter
 from dataclasses import dataclass
 from typing import Any
 
@@ -288,9 +289,22 @@ def gains_stage(district, sites, sizes, users, p: RadioParams, *, cache, key, ti
     bs_site = _concat([t["bs_site"] for t in surface_parts], ["a", "b"])
     site_user = _concat([t["site_user"] for t in surface_parts], ["a", "b"])
     if notes is not None:
-        tile_notes = (n for part in [*direct_parts, *surface_parts] for n in part.get(NOTES, ()))
-        notes.extend(n for n in merge_tile_notes(list(tile_notes)) if n not in notes)
+        tile_notes = count_tile_notes([list(part.get(NOTES, ())) for part in [*direct_parts, *surface_parts]])
+        notes.extend(n for n in tile_notes if n not in notes)
     return GainResult(direct, options, coverage, bs_site, site_user, bs_user)
+
+
+def count_tile_notes(per_tile: list[list[str]]) -> list[str]:
+    """The notes of a stage's tiles (one list per tile, in tile order), each distinct note once with a count.
+
+    A note several tiles raise word for word is listed once as ``"<note> (34 tiles)"``; notes equal but for one
+    whole number are summed into one (:func:`siting.executor.merge_tile_notes`, "... (summed over 3 tiles)");
+    any other note is kept as it is, in first-seen order.  The result depends only on the tiles' notes, so a
+    run in one process, on Dask workers or from the cache lists the same notes.
+    """
+    n_tiles = Counter(n for tile in per_tile for n in dict.fromkeys(tile))
+    merged = merge_tile_notes([n for tile in per_tile for n in tile])
+    return [f"{n} ({n_tiles[n]} tiles)" if n_tiles.get(n, 0) > 1 else n for n in merged]
 
 
 def _concat(frames: list[pd.DataFrame], sort_by: list[str]) -> pd.DataFrame:
@@ -348,9 +362,12 @@ def optimise_stage(gains: GainResult, sites: pd.DataFrame, users: pd.DataFrame, 
         solver=q.solver, time_limit_s=q.time_limit_s, mip_rel_gap=q.mip_gap, threads=q.threads,
     )
     if q.target_share is not None:
-        reachable = float(weight[np.asarray(cover.sum(axis=0)).ravel() > 0].sum())
-        plan = opt.min_cost_cover(cover, weight, cost, option_site, q.target_share * reachable,
-                                  max_count=q.max_panels, **solver_kw)
+        try:
+            plan = opt.min_cost_cover(cover, weight, cost, option_site, target_share=q.target_share,
+                                      budget=q.max_cost, max_count=q.max_panels, **solver_kw)
+        except opt.TargetUnreachable as exc:
+            raise opt.TargetUnreachable(f"budget.target_share = {q.target_share:g}: {exc}", reachable=exc.reachable,
+                                        bound=exc.bound, advice=exc.advice) from None
     else:
         if q.max_cost is None and q.max_panels is None:
             raise SitingError("no limit given: set budget.max_cost, budget.max_panels or budget.target_share "
@@ -359,7 +376,10 @@ def optimise_stage(gains: GainResult, sites: pd.DataFrame, users: pd.DataFrame, 
                                   **solver_kw)
     chosen = np.asarray(plan.chosen, dtype=np.int64)
     ranking = opt.rank_chosen(chosen, cover, weight)
-    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3, conflicts=solver_kw["conflicts"])
+    site_rows = sites.set_index("site_id").reindex(option_site)  # options' sites (site_id is the row position)
+    backups = opt.backups_for(chosen, cover, weight, cost, option_site, k=3, conflicts=solver_kw["conflicts"],
+                              option_wall=site_rows["wall_id"].to_numpy(np.int64),
+                              option_building=site_rows["building_id"].astype(str).to_numpy(object))
     return plan, ranking, backups, _sweep(cover, weight, cost, option_site, plan, q, solver_kw)
 
 

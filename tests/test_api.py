@@ -97,7 +97,9 @@ def test_stage_parameters_built_once_from_the_job():
 def test_element_count_one_function():
     """N = floor(w/p) floor(h/p) (Björnson, Özdogan, Larsson, IEEE Commun. Mag. 2020, arXiv:2006.03377)."""
     from siting import radio
-    from siting.outputs import element_count as outputs_element_count  # the outputs' copy, until it imports this
+    from siting.outputs import element_count as outputs_element_count
+
+    assert outputs_element_count is radio.element_count  # one function, no copy in the outputs
 
     assert radio.element_count(0.3, 0.3, 0.01) == 900  # exact multiples keep their last row
     # Half a wavelength at 28 GHz: c / 28 GHz / 2 = 5.3534 mm (c exact by the SI definition of the metre).

@@ -35,7 +35,6 @@ from siting.outputs import (
     compass_point,
     derive,
     element_count,
-    element_pitch_m,
     layers,
     planned_files,
     write_outputs,
@@ -160,6 +159,7 @@ def make_bundle(random_state: int = 7, budget: float | None = 1300.0, max_panels
         backups=backups, sweep=sweep, snr_target_db=TARGET_DB, budget=budget, max_panels=max_panels,
         params={"radio": {"frequency_ghz": 28.0, "snr_target_db": TARGET_DB, "bandwidth_hz": 4e8},
                 "surfaces": {"element_pitch_wavelengths": 0.5}, "optimize": {"budget": budget}},
+        element_pitch_m=299_792_458.0 / 28e9 / 2,  # half a wavelength at 28 GHz (c exact, SI definition)
         run_info={"input_hashes": {"buildings.geojson": "9f" * 32}, "timings_s": {"visibility": 1.25, "gains": 0.5},
                   "visibility": {"mean_degree": 3.5}, "notes": ["synthetic test district"]},
     )
@@ -253,14 +253,15 @@ def test_compass_points(az, name):
 
 def test_element_count_at_configured_pitch():
     # 28 GHz: lambda = c / f = 0.0107069 m (c = 299 792 458 m/s, SI definition); pitch 0.5 lambda = 5.35345 mm
-    pitch = element_pitch_m({"surfaces": {"element_pitch_wavelengths": 0.5}, "radio": {"frequency_ghz": 28.0}})
+    from siting.radio import element_pitch_m
+
+    pitch = element_pitch_m(28e9, 0.5)
     assert pitch == pytest.approx(0.0107069 / 2, rel=1e-5)
     # floor(0.3 / 0.00535345) = floor(56.04) = 56 per side; floor(0.6 / p) = floor(112.08) = 112
     assert element_count(0.3, 0.3, pitch) == 56 * 56
     assert element_count(0.6, 0.3, pitch) == 112 * 56
     # exact multiples must not lose a row to rounding: 0.3 m at 0.01 m pitch is 30 elements
     assert element_count(0.3, 0.7, 0.01) == 30 * 70
-    assert element_pitch_m({"radio": {"frequency_ghz": 28.0}}) is None
 
 
 # ------------------------------------------------------------------------------------------ layers
@@ -643,7 +644,7 @@ def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
     covered = newly.copy()
     covered[drop] = False
     b.plan.covered = covered
-    b.params = {**b.params, "surfaces": {**b.params["surfaces"], "load_cap_weight": 10.0}}
+    b.load_cap_weight = 10.0
     fig = derive(b)
     w = b.users["weight"].to_numpy()
     assert fig.summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"] - w[drop].sum())
@@ -651,8 +652,8 @@ def test_load_cap_counts_only_the_plans_covered_users(tmp_path):
     assert (fig.users["serving_site_id"].to_numpy()[drop] == -1).all()
     assert fig.sites["cumulative_covered_weight"].iloc[-1] == pytest.approx(fig.summary["covered_weight_after"])
     assert any("load cap" in n for n in fig.notes)
-    # without a cap in the parameters, plan.covered is not consulted
-    b.params["surfaces"]["load_cap_weight"] = 0.0
+    # without a cap, plan.covered is not consulted
+    b.load_cap_weight = 0.0
     assert derive(b).summary["newly_covered_weight"] == pytest.approx(fig0.summary["newly_covered_weight"])
 
 
@@ -689,7 +690,7 @@ def test_no_options_and_no_users_still_write_a_complete_set(tmp_path):
 
 
 def test_unknown_element_pitch_gives_empty_element_counts(tmp_path):
-    b = make_bundle(params={"radio": {"frequency_ghz": 28.0}})  # no surfaces.element_pitch_wavelengths
+    b = make_bundle(element_pitch_m=None)  # no surfaces.element_pitch_wavelengths
     write_outputs(tmp_path, b)
     raw = json.loads((tmp_path / "surfaces.geojson").read_text())
     assert raw["features"] and all(f["properties"]["elements"] is None for f in raw["features"])
@@ -1298,7 +1299,7 @@ def test_ids_print_as_integers_and_facings_stay_below_360(tmp_path):
 @pytest.mark.parametrize("az, shown", [(359.94, 359.9), (359.95, 0.0), (360.0, 0.0), (-0.04, 0.0), (-0.06, 359.9),
                                         (720.25, 0.2), (180.0, 180.0)])
 def test_angle_folding(az, shown):
-    from siting.outputs.derive import angle_deg
+    from siting.outputs.values import angle_deg
 
     got = float(angle_deg(az))
     assert got == pytest.approx(shown, abs=1e-9) and 0.0 <= got < 360.0 and math.copysign(1, got) == 1
@@ -1333,16 +1334,32 @@ def test_backups_tell_a_field_team_where_to_go(tmp_path):
     assert "From primary" in html_text and "Canyon Street" in html_text
 
 
-def test_extra_backup_columns_are_shown_when_given(tmp_path):
+def test_backup_share_kept_weight_and_weak_warning_are_shown(tmp_path):
     b = make_bundle()
     b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.8, 0.25),
-                                 weak=b.backups["backup_rank"] == 2)
+                                 kept_weight=100.0 - b.backups["backup_rank"],
+                                 weak=b.backups["backup_rank"] == 2, placement="other_building",
+                                 certainty="high")  # a column the outputs do not know is passed through
     write_outputs(tmp_path, b)
     csv = pd.read_csv(tmp_path / "survey.csv")
     assert set(csv["backup_1_recovered_share"]) == {0.8} and set(csv["backup_2_weak"]) == {True}
+    assert set(csv["backup_1_weak"]) == {False} and set(csv["backup_2_kept_weight"]) == {98.0}
+    assert set(csv["backup_1_placement"]) == {"other_building"} and set(csv["backup_1_certainty"]) == {"high"}
     text = (tmp_path / "survey.html").read_text(encoding="utf-8")
-    assert "recovered share 80 %" in text and "recovered share 25 %, weak" in text
-    assert json.loads((tmp_path / "run.json").read_text())["backups"][0]["recovered_share"] == 0.8
+    n_sites = len(csv)
+    assert text.count("80 % of the primary&#x27;s own weight") == n_sites
+    assert text.count("WEAK: recovers less than 50 %") == n_sites  # once per weak backup, i.e. rank 2 of each
+    assert text.count('<tr class="weak">') == n_sites and "another building" in text and "certainty: high" in text
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert run["backups"][0]["recovered_share"] == 0.8 and run["summary"]["n_weak_backups"] == n_sites
+
+
+def test_weak_flag_follows_the_share_when_the_optimiser_gives_none(tmp_path):
+    """Without a 'weak' column a backup below 50 % of the primary's own weight is weak (common practice)."""
+    b = make_bundle()
+    b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.5, 0.4999))
+    fig = derive(b)
+    assert (fig.backups["weak"] == (fig.backups["backup_rank"] == 2)).all()
 
 
 def test_currency_beside_every_cost(tmp_path):
@@ -1563,3 +1580,23 @@ def test_a_second_run_into_a_busy_folder_is_refused(tmp_path):
         staging.rmdir()
     assert _snapshot(d) == before
     write_outputs(d, make_bundle(random_state=4))  # free again
+
+
+def test_tables_print_on_a4(out):
+    """Print rules: A4 pages (ISO 216) and no table row split across two pages, in both printable pages."""
+    d, _ = out
+    for page in ("report.html", "survey.html"):
+        css = re.search(r"<style>(.*?)</style>", (d / page).read_text(encoding="utf-8"), re.S).group(1)
+        assert re.search(r"@page\s*\{[^}]*size:\s*A4", css), page
+        printing = css[css.index("@media print"):]
+        assert re.search(r"tr[^{]*\{[^}]*(page-)?break-inside:\s*avoid", printing), page
+        assert "thead { display: table-header-group; }" in printing, page  # headers repeat on each page
+
+
+def test_report_counts_weak_backups(tmp_path):
+    b = make_bundle()
+    b.backups = b.backups.assign(recovered_share=np.where(b.backups["backup_rank"] == 1, 0.9, 0.2))
+    write_outputs(tmp_path, b)
+    n_sites = len(derive(b).sites)
+    md = (tmp_path / "report.md").read_text(encoding="utf-8")
+    assert f"offers {2 * n_sites} backup spot(s)" in md and f"{n_sites} of them recover less than half" in md

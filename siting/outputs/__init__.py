@@ -39,13 +39,15 @@ import pandas
 import pyproj
 
 from ..errors import SitingError
-from . import atomic, figures, folder, layers, report, survey
-from .derive import PlanFigures, compass_point, derive, element_count, element_pitch_m
+from ..radio import element_count
+from . import atomic, figures, folder, layers, markdown, report, survey
+from . import record as record_mod
+from .derive import PlanFigures, derive
 from .folder import check_output_folder, output_folder_problems, planned_files
+from .values import compass_point
 
 __all__ = ["OutputBundle", "PlanFigures", "write_outputs", "derive", "compass_point", "element_count",
-           "element_pitch_m", "FORMATS", "check_output_folder", "output_folder_problems",
-           "planned_files"]
+           "FORMATS", "check_output_folder", "output_folder_problems", "planned_files"]
 
 FORMATS = ("geojson", "gpkg")
 
@@ -78,8 +80,9 @@ class OutputBundle:
     ranking: pandas.DataFrame
     """option, rank (only these are read; the weights are recomputed and printed as ``weight_gained``)"""
     backups: pandas.DataFrame
-    """option, backup_rank, backup_option, recovered_weight, in the order to show; any further column (e.g.
-    recovered_share, weak) is shown as given"""
+    """the optimiser's backups (:func:`siting.optimize.backups_for`): option, backup_rank, backup_option and, when
+    given, recovered_weight, recovered_share, kept_weight, weak, placement, in the order to show (weak, when
+    missing, is recovered_share < 0.5); any further column is shown as given"""
     sweep: pandas.DataFrame | None
     """budget, covered_weight, bound, gap, cost, n_sites, status"""
     snr_target_db: float
@@ -87,7 +90,8 @@ class OutputBundle:
     """max cost, None if only a panel count"""
     max_panels: int | None
     params: dict
-    """the resolved job as nested dict (for the report's parameter table)"""
+    """the resolved job as nested dict (for the report's parameter and assumption tables only; the figures
+    read the typed fields below)"""
     run_info: dict
     """input_hashes, timings_s per stage, versions, visibility degree stats, notes"""
     formats: tuple = ("geojson",)
@@ -99,7 +103,12 @@ class OutputBundle:
     guessed_height_links, exposure_w_m2, exposure_where, exposure_reference_w_m2, exposure_share
     (see :data:`siting.outputs.derive.SITE_CHECK_COLUMNS`); None when not computed"""
     currency: str = ""
-    """currency of every cost (e.g. "EUR"); empty: costs print in "cost units" """
+    """currency of every cost (e.g. "EUR"; ``budget.currency``); empty: costs print in "cost units" """
+    element_pitch_m: float | None = None
+    """element pitch [m] for the element counts when ``sizes`` has no 'elements' column (None: unknown)"""
+    load_cap_weight: float | None = None
+    """most weight one surface may carry (``surfaces.load_cap_weight``; None or 0: no cap, ``plan.covered``
+    is then not consulted)"""
     sensitivity: pandas.DataFrame | None = None
     """model, covered_weight, covered_directly_weight: the chosen plan under the planning model, each planning
     assumption relaxed alone and the upper-bound model; None when not computed"""
@@ -221,10 +230,10 @@ def _write_set(st, bundle, fig, formats, extra, t, t_start) -> dict:
 
     t0 = time.perf_counter()
     files = dict(rel, report_html="report.html", report_md="report.md", run_json="run.json")
-    record = report.run_record(bundle, fig, files, t)
+    record = record_mod.run_record(bundle, fig, files, t)
     put("report_html", "report.html", lambda p: atomic.write_text(p, report.report_html(bundle, fig, pngs, record)))
     put("report_md", "report.md",
-        lambda p: atomic.write_text(p, report.report_md(bundle, fig, figure_files, record)))
+        lambda p: atomic.write_text(p, markdown.report_md(bundle, fig, figure_files, record)))
     t["report"] = time.perf_counter() - t0
     t["total"] = time.perf_counter() - t_start
     record["timings_s"].update({f"outputs.{k}": v for k, v in t.items()})

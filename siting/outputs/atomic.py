@@ -9,10 +9,13 @@ removed if anything fails while it is being written.
 from __future__ import annotations
 
 import contextlib
+import json as _json
 import os
 import secrets
+import shutil as _shutil
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 from ..errors import SitingError
 
@@ -71,15 +74,15 @@ def _fsync(path: Path) -> None:
             os.close(fd)
 
 
-def write_with(path: str | os.PathLike, writer: Callable[[object], None], mode: str = "w") -> Path:
+def write_with(path: str | os.PathLike, writer: Callable[[Any], None], mode: str = "w") -> Path:
     """Open a temporary file beside ``path`` in ``mode``, call ``writer(file)``, then rename it to ``path``.
 
     Text modes use UTF-8 and ``\\n`` line ends on every platform.
     """
     path = Path(path)
     with atomic_path(path) as tmp:
-        kwargs = {} if "b" in mode else {"encoding": "utf-8", "newline": "\n"}
-        with open(tmp, mode, **kwargs) as fh:
+        text = "b" not in mode
+        with open(tmp, mode, encoding="utf-8" if text else None, newline="\n" if text else None) as fh:
             writer(fh)
             fh.flush()
     return path
@@ -116,9 +119,6 @@ def leftover_temp_files(folder: str | os.PathLike) -> list[Path]:
 # steps 2-5 leaves the journal, and :func:`recover` (run first by every write into the folder) completes the
 # commit from the staging folder, which already holds the complete new set.  Only files listed in a previous
 # manifest, and only names siting writes, are ever replaced or removed.
-
-import json as _json
-import shutil as _shutil
 
 JOURNAL = ".siting-commit.json"
 STAGING_PREFIX = TMP_PREFIX + "set-"

@@ -28,7 +28,8 @@ import pyproj
 import shapely
 
 from . import atomic
-from .derive import PlanFigures, currency_label, to_lonlat
+from .derive import PlanFigures
+from .values import currency_label, to_lonlat
 
 LONLAT_DECIMALS = 7
 

@@ -9,9 +9,7 @@ from __future__ import annotations
 
 import base64
 import html
-import importlib.metadata
 import math
-import platform
 from statistics import NormalDist
 
 import numpy as np
@@ -44,9 +42,6 @@ KEY_FIGURES = (
 )
 
 DECIMALS = {"weight": 2, "share": 1, "cost": 2, "db": 2, "num": 4}
-
-VERSIONED_PACKAGES = ("numpy", "scipy", "pandas", "shapely", "geopandas", "pyproj", "pyogrio", "pulp", "highspy",
-                      "numba", "matplotlib", "siting")
 
 _DIRECT_MODELS = {"umi": "3GPP TR 38.901 UMi-Street Canyon", "uma": "3GPP TR 38.901 UMa",
                   "free_space": "free space"}
@@ -176,17 +171,6 @@ def fmt(v, kind: str, unit: str = "") -> str:
     return f"{float(v):.{DECIMALS[kind]}f}"
 
 
-def package_versions() -> dict:
-    """Installed versions of the packages the results depend on (None when not installed)."""
-    out = {"python": platform.python_version()}
-    for name in VERSIONED_PACKAGES:
-        try:
-            out[name] = importlib.metadata.version(name)
-        except importlib.metadata.PackageNotFoundError:
-            out[name] = None
-    return out
-
-
 def flatten(d, prefix: str = "") -> list[tuple[str, object]]:
     """Nested dict -> [('a.b.c', value)] sorted by key; lists are kept as values."""
     out = []
@@ -198,34 +182,6 @@ def flatten(d, prefix: str = "") -> list[tuple[str, object]]:
         else:
             out.append((key, v))
     return out
-
-
-def jsonable(obj):
-    """Recursively convert to JSON-safe values: numpy scalars and arrays, NaN / inf -> None, keys -> str."""
-    if isinstance(obj, dict):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple, set)):
-        return [jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [jsonable(v) for v in obj.tolist()]
-    if isinstance(obj, pd.DataFrame):
-        return [jsonable(r) for r in obj.to_dict("records")]
-    if obj is None or obj is pd.NA:
-        return None
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return float(obj) if math.isfinite(float(obj)) else None
-    if isinstance(obj, str):
-        return obj
-    try:
-        if pd.isna(obj):
-            return None
-    except (TypeError, ValueError):
-        pass
-    return str(obj)
 
 
 # ---------------------------------------------------------------------------------------------- tables
@@ -254,9 +210,23 @@ SITES_SENTENCE = (
     "weight also by another. The survey list gives coordinates, addresses and backup spots.")
 
 
+def backups_sentence(fig: PlanFigures) -> str:
+    """How many backup spots the survey list offers, and how many of them are weak."""
+    bk = fig.backups
+    if not len(bk):
+        return "The survey list offers no backup spot."
+    weak = int(bk["weak"].sum())
+    text = (f"The survey list offers {len(bk)} backup spot(s), at most one per wall, for "
+            f"{bk['rank'].nunique()} site(s)")
+    if weak:
+        return (text + f"; {weak} of them recover less than half of their primary's own weight (marked WEAK): "
+                "losing that primary costs coverage whichever backup is used.")
+    return text + "; each recovers at least half of its primary's own weight."
+
+
 def site_headers(table, currency: str = "") -> list[str]:
     """The column headers of a site table, costs labelled with the currency."""
-    from .derive import currency_label
+    from .values import currency_label
 
     return [lbl.replace("{currency}", currency_label(currency)) for _, lbl, _ in table]
 
@@ -314,6 +284,34 @@ def _summary_sentences(s: dict) -> list[str]:
         out.append(f"The solver ({s['solver'] or 'n/a'}) ended with status '{s['status'] or 'n/a'}' and a gap of "
                    f"{fmt(s['gap'], 'num')} to its proven bound.")
     return out
+
+
+TIE_BREAK_TEXT = {
+    "proven": "proven: no plan of the same covered weight is cheaper (minimum cost: none of the same cost covers "
+              "more), within the relative gap",
+    "not_proven": "not proven: the second solve ran out of time; the better plan of both solves is shown",
+    "skipped": "skipped: no time was left, or the first plan is not proven",
+}
+
+
+def solver_rows(s: dict) -> list[tuple[str, str]]:
+    """The 'Budget and solver' table: limits, cost, the solver's status, bound, gap and tie-break."""
+    mode = {"max_coverage": "most covered weight within the limits",
+            "min_cost": "cheapest plan reaching the target share"}.get(s.get("mode") or "", s.get("mode") or "")
+    return [
+        ("Budget", fmt(s["budget"], "cost", _cur(s))), ("Panel count limit", fmt(s["max_panels"], "int")),
+        ("Cost of the plan", fmt(s["plan_cost"], "cost", _cur(s))),
+        ("Cheapest option", fmt(s["cheapest_option_cost"], "cost", _cur(s))),
+        ("Mode", fmt(mode, "text")), ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
+        ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
+        ("Tie-break", fmt(TIE_BREAK_TEXT.get(s.get("tie_break") or "", s.get("tie_break") or ""), "text")),
+        ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text")),
+    ]
+
+
+def timing_rows(record: dict) -> list[tuple[str, str]]:
+    """Wall time per stage [s] (the only part of a report that differs between runs of the same job)."""
+    return [(k, f"{float(v):.2f}") for k, v in (record.get("timings_s") or {}).items() if isinstance(v, (int, float))]
 
 
 def _key_figure(s: dict, key: str, kind: str) -> str:
@@ -425,7 +423,7 @@ img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 @page { size: A4; margin: 12mm; }
 @media print {
   body { max-width: none; margin: 0; padding: 0; font-size: 9.5pt; }
-  table { font-size: 7.5pt; page-break-inside: auto; } tr { page-break-inside: avoid; }
+  table { font-size: 7.5pt; page-break-inside: auto; } tr, td, th { page-break-inside: avoid; break-inside: avoid; }
   td, th { padding: 1px 3px; } .wide { overflow: visible; } thead { display: table-header-group; }
   h2 { page-break-after: avoid; } img { page-break-inside: avoid; }
 }
@@ -463,13 +461,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     p.append(_html_table(head, rows))
 
     p.append("<h2>Budget and solver</h2>")
-    p.append(_html_table(["Item", "Value"], [
-        ("Budget", fmt(s["budget"], "cost", _cur(s))), ("Panel count limit", fmt(s["max_panels"], "int")),
-        ("Cost of the plan", fmt(s["plan_cost"], "cost", _cur(s))), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost", _cur(s))),
-        ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
-        ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
-        ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text")),
-    ], numeric_from=9))
+    p.append(_html_table(["Item", "Value"], solver_rows(s), numeric_from=9))
 
     p.append("<h2>Map</h2>")
     p.append(_img_html(pngs["district_map"], "Map of the district with buildings, base stations, chosen surfaces "
@@ -488,7 +480,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
         p.append(_html_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)).replace("<table>", "<table id=\"sites\">", 1))
         p.append(_html_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE))
                  .replace("<table>", "<table id=\"site-details\">", 1))
-        p.append(f"<p>{esc(SITES_SENTENCE)}</p>")
+        p.append(f"<p>{esc(SITES_SENTENCE)}</p><p id=\"backups\">{esc(backups_sentence(fig))}</p>")
     else:
         p.append("<p>No site was chosen.</p>")
 
@@ -535,10 +527,8 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
         p.append("<h3>Parameters</h3>" + _html_table(["Key", "Value"], [(k, str(v)) for k, v in params], numeric_from=9))
 
     p.append("<h2>Run details</h2>")
-    timings = record.get("timings_s") or {}
-    if timings:
-        p.append(_html_table(["Stage", "Time [s]"], [(k, f"{float(v):.2f}") for k, v in timings.items()
-                                                    if isinstance(v, (int, float))]))
+    p.append("<h3 id=\"timings\">Timings</h3>" + _html_table(["Stage", "Time [s]"], timing_rows(record)))
+    p.append("<h3>Versions</h3>")
     p.append(_html_table(["Package", "Version"], [(k, str(v)) for k, v in record["versions"].items()], numeric_from=9))
     if fig.notes:
         p.append("<h3>Notes</h3><ul>" + "".join(f"<li>{esc(str(n))}</li>" for n in fig.notes) + "</ul>")
@@ -548,169 +538,3 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
 
 def _img_html(png: bytes, alt: str) -> str:
     return f"<p><img alt=\"{html.escape(alt)}\" src=\"data:image/png;base64,{base64.b64encode(png).decode('ascii')}\"></p>"
-
-
-# ---------------------------------------------------------------------------------------------- Markdown
-
-_MD_SPECIAL = str.maketrans({c: "\\" + c for c in "\\`*_"})
-
-
-def _md_text(v) -> str:
-    """Text from the data made inert in Markdown: HTML characters as entities, emphasis and code characters
-    backslash-escaped, no inline link or image (``](`` broken), one line."""
-    text = html.escape(str(v), quote=False).translate(_MD_SPECIAL).replace("](", "]\\(")
-    return text.replace("\r", " ").replace("\n", " ")
-
-
-def _md_escape(v: str) -> str:
-    return _md_text(v).replace("|", "\\|")
-
-
-def _md_table(head, rows) -> str:
-    lines = ["| " + " | ".join(_md_escape(h) for h in head) + " |", "|" + "---|" * len(head)]
-    lines += ["| " + " | ".join(_md_escape(c) for c in r) + " |" for r in rows]
-    return "\n".join(lines)
-
-
-def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str:
-    """The same report in Markdown; figures are referenced as files relative to the report."""
-    s = fig.summary
-    sentences = [_md_text(x) for x in _summary_sentences(s)]
-    if s["empty_plan"]:  # the reason comes first, in bold
-        sentences[0] = f"**{sentences[0]}**"
-    p = [f"# {_md_text(bundle.title)}", "", " ".join(sentences), ""]
-    p += ["## Key figures", "", _md_table(["Figure", "Value"], [(lbl, _key_figure(s, k, kind)) for k, lbl, kind in KEY_FIGURES]), ""]
-    head, rows = _kind_rows(fig)
-    p += ["## Coverage before and after", "", _md_table(head, rows), ""]
-    p += ["## Budget and solver", "", _md_table(["Item", "Value"], [
-        ("Budget", fmt(s["budget"], "cost", _cur(s))), ("Panel count limit", fmt(s["max_panels"], "int")),
-        ("Cost of the plan", fmt(s["plan_cost"], "cost", _cur(s))), ("Cheapest option", fmt(s["cheapest_option_cost"], "cost", _cur(s))),
-        ("Solver", fmt(s["solver"], "text")), ("Status", fmt(s["status"], "text")),
-        ("Objective", fmt(s["objective"], "num")), ("Bound", fmt(s["bound"], "num")), ("Gap", fmt(s["gap"], "num")),
-        ("Greedy baseline", fmt(s["greedy_objective"], "num")), ("Solver message", fmt(s["solver_message"], "text"))]), ""]
-    p += ["## Map", "", f"![Map of the district with buildings, base stations, chosen surfaces and demand]({figure_files['district_map']})", ""]
-    p += ["## Coverage against budget", ""]
-    if figure_files.get("coverage_curve"):
-        p += [f"![Covered demand weight against budget]({figure_files['coverage_curve']})", "",
-              _md_table(*_sweep_rows(bundle, s)), ""]
-    else:
-        p += ["No budget sweep was run for this job.", ""]
-    p += ["## SNR distribution", "", f"![SNR distribution without and with the plan]({figure_files['snr_cdf']})", ""]
-    p += ["## Ranked sites", ""]
-    if len(fig.sites):
-        p += [_md_table(site_headers(SITE_TABLE, _cur(s)), _site_rows(fig)), "",
-              _md_table(site_headers(SITE_DETAIL_TABLE), _site_rows(fig, SITE_DETAIL_TABLE)), "", SITES_SENTENCE, ""]
-    else:
-        p += ["No site was chosen.", ""]
-    p += ["## Feeds and building heights to check", ""]
-    if not s.get("site_checks_computed"):
-        p += ["No site checks were computed for this run.", ""]
-    elif len(fig.sites):
-        lobes, heights = _check_lists(fig)
-        p += ["Surfaces fed from a station's back lobe (more than 20 dB below its boresight gain):", ""]
-        p += ([f"- {_md_text(x)}" for x in lobes] or ["none."]) + [""]
-        p += ["Surfaces whose links depend on guessed building heights:", ""]
-        p += ([f"- {_md_text(x)}" for x in heights] or ["none."]) + [""]
-    else:
-        p += ["No site was chosen.", ""]
-    p += ["## RF exposure screening", ""]
-    if s.get("site_checks_computed") and len(fig.sites):
-        p += [_md_table(*_exposure_rows(fig)), ""]
-        sentence = _exposure_sentence(fig)
-        if sentence:
-            p += [_md_text(sentence), ""]
-    else:
-        p += ["No exposure screening was computed for this run." if len(fig.sites) else "No site was chosen.", ""]
-    p += [EXPOSURE_CAUTION, ""]
-    p += ["## What the model assumptions are worth", ""]
-    if fig.sensitivity is not None and len(fig.sensitivity):
-        p += [SENSITIVITY_SENTENCE, "", _md_table(*_sensitivity_rows(fig)), ""]
-    else:
-        p += ["No model sensitivity was computed for this run.", ""]
-    p += ["## Model assumptions", ""] + [f"- {a}" for a in assumptions(bundle.params)] + [""]
-    p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
-    p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
-    hashes = record.get("input_hashes") or {}
-    if hashes:
-        p += ["### Input files", "", _md_table(["File", "SHA-256"], sorted(hashes.items())), ""]
-    params = flatten(bundle.params)
-    if params:
-        p += ["### Parameters", "", _md_table(["Key", "Value"], [(k, str(v)) for k, v in params]), ""]
-    p += ["## Run details", ""]
-    timings = record.get("timings_s") or {}
-    if timings:
-        p += [_md_table(["Stage", "Time [s]"], [(k, f"{float(v):.2f}") for k, v in timings.items()
-                                                if isinstance(v, (int, float))]), ""]
-    p += [_md_table(["Package", "Version"], [(k, str(v)) for k, v in record["versions"].items()]), ""]
-    if fig.notes:
-        p += ["### Notes", ""] + [f"- {_md_text(n)}" for n in fig.notes] + [""]
-    return "\n".join(p)
-
-
-# ---------------------------------------------------------------------------------------------- run.json
-
-def _records(df: pd.DataFrame | None) -> list[dict] | None:
-    """A table as a list of records in its column order, or None."""
-    if df is None:
-        return None
-    return [dict(zip(df.columns, row)) for row in df.itertuples(index=False, name=None)]
-
-
-#: What the less obvious names of ``run.json`` and the other outputs mean (written into ``run.json``).
-DEFINITIONS = {
-    "counts.coverage_rows": "rows of the coverage relation: (surface option, demand point) pairs whose SNR "
-                            "through the surface was computed, whatever the SNR",
-    "counts.coverage_rows_at_target": "of those rows, the ones whose SNR reaches the SNR target",
-    "weight_gained": "newly covered weight a chosen site adds in rank order (the optimiser's ranking calls it "
-                     "marginal_weight)",
-    "cumulative_covered_weight": "covered weight after the sites up to this one, the weight covered directly "
-                                 "(without any surface) included",
-    "exclusive_weight": "newly covered weight that no other chosen site brings to the target",
-    "shared_weight": "newly covered weight that another chosen site also brings to the target",
-    "facing_deg": "outward wall normal, degrees clockwise from north, in [0, 360)",
-    "currency": "unit of every cost and budget; 'cost units' when the job names none",
-    "reason": "why a demand point is or is not covered (demand layer)",
-    "manifest.files": "the files this output set holds; a later run replaces or removes only these",
-}
-
-
-def run_record(bundle, fig: PlanFigures, files: dict, output_timings_s: dict) -> dict:
-    """Everything the report shows, in machine-readable form (written as ``run.json``)."""
-    import pyproj
-
-    plan = bundle.plan
-    get = (lambda n: plan.get(n)) if isinstance(plan, dict) else (lambda n: getattr(plan, n, None))
-    ri = dict(bundle.run_info or {})
-    ri.pop("notes", None)  # already merged into fig.notes
-    timings = dict(ri.pop("timings_s", {}) or {})
-    timings.update({f"outputs.{k}": v for k, v in output_timings_s.items()})
-    counts = dict(ri.pop("counts", {}) or {})
-    counts["coverage_rows"] = fig.summary["n_coverage_rows"]
-    counts["coverage_rows_at_target"] = fig.summary["n_coverage_rows_at_target"]
-    return jsonable({
-        # format 2: weight_gained, cumulative_covered_weight, manifest, definitions, counts
-        "format": "siting-run", "format_version": 2, "title": bundle.title,
-        "crs": pyproj.CRS(bundle.crs).to_string(),
-        "summary": fig.summary,
-        "coverage_by_kind": fig.by_kind,
-        "plan": {"chosen_option_ids": fig.sites["option_id"].tolist(), "status": get("status"),
-                 "solver": get("solver"), "objective": get("objective"), "bound": get("bound"), "gap": get("gap"),
-                 "cost": get("cost"), "message": get("message"), "greedy_objective": get("greedy_objective"),
-                 "timings_s": get("timings_s"), "model_size": get("model_size")},
-        "sites": fig.sites,
-        "backups": fig.backups,
-        "sweep": bundle.sweep if bundle.sweep is not None else None,
-        # the runner's tables as handed over (null when the run did not compute them)
-        "site_checks": _records(getattr(bundle, "site_checks", None)),
-        "sensitivity": _records(getattr(bundle, "sensitivity", None)),
-        "parameters": bundle.params,
-        "input_hashes": ri.pop("input_hashes", {}),
-        "timings_s": timings,
-        "versions": {**package_versions(), **(ri.pop("versions", {}) or {})},
-        "visibility": ri.pop("visibility", None),
-        "counts": counts,
-        "definitions": DEFINITIONS,
-        "notes": fig.notes,
-        "run_info": ri,
-        "files": files,
-    })

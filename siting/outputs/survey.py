@@ -13,9 +13,12 @@ sight when guessed building heights stand at the top of their band), exposure_w_
 from the surface or its feed where people may stand, a screening value), exposure_share (that density over the
 ICNIRP 2020 general-public whole-body reference level), for each backup k in the optimiser's order:
 backup_<k>_site_id, _building_id, _name, _address, _lon, _lat, _distance_m (horizontal distance from the
-primary spot), _facing_deg, _mount_height_m, _size_id, _recovered_weight and any further column the optimiser
-gives (e.g. _recovered_share, _weak); notes.  Ids print as integers where they are integral.  The four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet
-would read as a formula (starting with = + - @, tab or carriage return) get a leading apostrophe.
+primary spot), _facing_deg, _mount_height_m, _size_id, _width_m, _height_m, _placement (another building,
+another wall of the same building, or the primary's own wall), _recovered_weight, _recovered_share (share of
+the primary's exclusive weight the swap keeps), _kept_weight (the plan's covered weight after the swap),
+_weak (true below 50 %) and any further column the optimiser gives; notes.  Ids print as integers.  The
+four check columns are empty when the run computed no site checks.  Text cells that a spreadsheet would read as
+a formula (starting with = + - @, tab or carriage return) get a leading apostrophe.
 """
 
 from __future__ import annotations
@@ -29,13 +32,23 @@ import pandas as pd
 
 from .. import tables as T
 from . import atomic, figures
-from .derive import PlanFigures, currency_label
+from .backups import WEAK_SHARE
+from .derive import PlanFigures
+from .values import currency_label
 
-#: Backup columns of :class:`PlanFigures` shown under their own names; any other column is the optimiser's.
-BACKUP_FIXED = ("rank", "site_id", "backup_rank", "backup_option_id", "backup_site_id", "backup_lon", "backup_lat",
-                "recovered_weight", "backup_building_id", "backup_name", "backup_address", "backup_facing_deg",
-                "backup_facing", "backup_mount_height_m", "backup_size_id", "backup_distance_m", "same_building")
-BACKUP_TEXT = ("building_id", "name", "address")
+#: Per backup k, the survey list's columns ``backup_<k>_<name>`` from :attr:`PlanFigures.backups` column ``<column>``.
+BACKUP_CSV = (("site_id", "backup_site_id"), ("building_id", "backup_building_id"), ("name", "backup_name"),
+              ("address", "backup_address"), ("lon", "backup_lon"), ("lat", "backup_lat"),
+              ("distance_m", "backup_distance_m"), ("facing_deg", "backup_facing_deg"),
+              ("mount_height_m", "backup_mount_height_m"), ("size_id", "backup_size_id"),
+              ("width_m", "backup_width_m"), ("height_m", "backup_height_m"), ("placement", "placement"),
+              ("recovered_weight", "recovered_weight"), ("recovered_share", "recovered_share"),
+              ("kept_weight", "kept_weight"), ("weak", "weak"))
+#: Backup columns shown under their own names; any other column of :attr:`PlanFigures.backups` is the optimiser's.
+BACKUP_FIXED = ("rank", "site_id", "backup_rank", "backup_option_id", "backup_facing", "same_building",
+                *(c for _, c in BACKUP_CSV))
+PLACEMENT_TEXT = {"other_building": "another building", "other_wall": "another wall, same building",
+                  "same_wall": "same wall", "same_building": "same building"}
 
 BASE_COLUMNS = ["rank", "site_id", "lon", "lat", "building_id", "name", "address"]
 AFTER_TAGS = ["facing_deg", "facing", "mount_height_m", "size_id", "width_m", "height_m", "area_m2", "elements",
@@ -66,26 +79,28 @@ def survey_frame(bundle, fig: PlanFigures) -> pd.DataFrame:
     out["guessed_height_links"] = s["guessed_height_links"].astype("Int64").array  # empty cell when not computed
     out["elements"] = pd.array(np.where(s["elements"] >= 0, s["elements"], 0), dtype="Int64")
     out.loc[(s["elements"] < 0).to_numpy(), "elements"] = pd.NA  # unknown pitch: empty cell
-    bk = fig.backups
-    n_bk = int(bk["backup_rank"].max()) if len(bk) else 0
-    extra = [c for c in bk.columns if c not in BACKUP_FIXED]
-    ranks = s["rank"].to_numpy()
-    for j in range(1, n_bk + 1):
-        sub = bk[bk["backup_rank"] == j].drop_duplicates("rank").set_index("rank").reindex(ranks)
-        out[f"backup_{j}_site_id"] = sub["backup_site_id"].astype("Int64").to_numpy()
-        for c in BACKUP_TEXT:
-            out[f"backup_{j}_{c}"] = sub[f"backup_{c}"].astype(object).where(sub[f"backup_{c}"].notna(), "").to_numpy()
-        out[f"backup_{j}_lon"] = sub["backup_lon"].to_numpy(float)
-        out[f"backup_{j}_lat"] = sub["backup_lat"].to_numpy(float)
-        for c in ("distance_m", "facing_deg", "mount_height_m"):
-            out[f"backup_{j}_{c}"] = sub[f"backup_{c}"].to_numpy(float)
-        out[f"backup_{j}_size_id"] = sub["backup_size_id"].astype(object).where(sub["backup_size_id"].notna(), "").to_numpy()
-        out[f"backup_{j}_recovered_weight"] = sub["recovered_weight"].to_numpy(float)
-        for c in extra:
-            name = c if c.startswith("backup_") else f"backup_{j}_{c}"
-            out[name.replace("backup_", f"backup_{j}_", 1) if c.startswith("backup_") else name] = sub[c].to_numpy()
+    _backup_columns(out, fig.backups, s["rank"].to_numpy())
     out["notes"] = s["notes"].to_numpy()
     return out.reset_index(drop=True)
+
+
+def _backup_columns(out: pd.DataFrame, bk: pd.DataFrame, ranks: np.ndarray) -> None:
+    """Add the ``backup_<k>_*`` columns of every backup rank k to the survey frame ``out`` (in place)."""
+    extra = [c for c in bk.columns if c not in BACKUP_FIXED]
+    for j in range(1, int(bk["backup_rank"].max()) + 1 if len(bk) else 1):
+        sub = bk[bk["backup_rank"] == j].drop_duplicates("rank").set_index("rank").reindex(ranks)
+        for name, col in BACKUP_CSV:
+            v = sub[col]
+            if col == "backup_site_id":
+                out[f"backup_{j}_{name}"] = v.astype("Int64").array
+            elif col == "weak":
+                out[f"backup_{j}_{name}"] = v.astype("boolean").array
+            elif v.dtype == object:
+                out[f"backup_{j}_{name}"] = v.where(v.notna(), "").to_numpy(object)
+            else:
+                out[f"backup_{j}_{name}"] = v.to_numpy(float)
+        for c in extra:
+            out[f"backup_{j}_{c.removeprefix('backup_')}"] = sub[c].to_numpy()
 
 
 #: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
@@ -126,9 +141,12 @@ td { overflow-wrap: anywhere; } table.backups { width: 100%; }
         border: 1px solid #000; margin-right: .4em; vertical-align: middle; }
 table.backups { margin-top: .5em; font-size: .78em; } caption { text-align: left; font-weight: bold; }
 .notes { min-height: 3em; border: 1px dashed #999; margin-top: .4em; font-size: .8em; padding: 2px; }
+tr.weak td { background: #fdecea; }
 @page { size: A4; margin: 12mm; }
 @media print { body { margin: 0; font-size: 9pt; } .site { page-break-inside: avoid; } .site img { width: 55mm; }
-  table { font-size: 7.5pt; } td, th { padding: 1px 3px; } }
+  table { font-size: 7.5pt; max-width: 100%; page-break-inside: auto; }
+  tr, td, th { page-break-inside: avoid; break-inside: avoid; } thead { display: table-header-group; }
+  td, th { padding: 1px 3px; } }
 """
 
 FIELD_CHECKS = (
@@ -191,6 +209,19 @@ def _backup_extra(r, extra) -> str:
     return ", ".join(out)
 
 
+def _recovers(b) -> str:
+    """What swapping the primary for this backup keeps, in words, with the weak warning."""
+    share = b["recovered_share"]
+    text = f"{_fmt(b['recovered_weight'])}"
+    if pd.notna(share):
+        text += f" ({100 * float(share):.0f} % of the primary's own weight)"
+    if pd.notna(b["kept_weight"]):
+        text += f"; plan keeps {_fmt(b['kept_weight'])}"
+    if bool(b["weak"]):
+        text += f"; WEAK: recovers less than {100 * WEAK_SHARE:.0f} % of the primary's own weight"
+    return text
+
+
 def backup_table(backups: pd.DataFrame, rank: int) -> str:
     """The backup spots of one site as an HTML table (escaped), in the optimiser's order."""
     esc = html.escape
@@ -198,23 +229,26 @@ def backup_table(backups: pd.DataFrame, rank: int) -> str:
     if not len(bk):
         return "<p class=\"backups\">Backup spots: none.</p>"
     extra = [c for c in bk.columns if c not in BACKUP_FIXED]
-    head = ["#", "Site", "Building", "Address", "Wall facing", "Height", "Panel", "From primary", "lon, lat",
-            "Recovers"]
+    head = ["#", "Site", "Building", "Address", "Where", "Wall facing", "Height", "Panel", "From primary",
+            "lon, lat", "Recovers (newly covered weight)"]
     rows = []
     for _, b in bk.iterrows():
         building = str(b["backup_building_id"]) + (f" ({b['backup_name']})" if b["backup_name"] else "")
-        building += " (same building)" if bool(b["same_building"]) else ""
-        recovers = _fmt(b["recovered_weight"])
+        panel = str(b["backup_size_id"] or "-")
+        if np.isfinite(b["backup_width_m"]) and np.isfinite(b["backup_height_m"]):
+            panel += f": {b['backup_width_m']:.2f} m x {b['backup_height_m']:.2f} m"
+        where = PLACEMENT_TEXT.get(str(b["placement"]),
+                                   "same building" if bool(b["same_building"]) else "another building")
         more = _backup_extra(b, extra)
         rows.append([str(int(b["backup_rank"])), str(int(b["backup_site_id"])), building,
-                     str(b["backup_address"] or "-"),
+                     str(b["backup_address"] or "-"), where,
                      f"{b['backup_facing_deg']:.1f}\u00b0 ({b['backup_facing']})",
-                     f"{b['backup_mount_height_m']:.1f} m", str(b["backup_size_id"] or "-"),
-                     f"{b['backup_distance_m']:.1f} m",
-                     f"{b['backup_lon']:.7f}, {b['backup_lat']:.7f}",
-                     recovers + (f"; {more}" if more else "")])
+                     f"{b['backup_mount_height_m']:.1f} m", panel, f"{b['backup_distance_m']:.1f} m",
+                     f"{b['backup_lon']:.7f}, {b['backup_lat']:.7f}", _recovers(b) + (f"; {more}" if more else "")])
     h = "".join(f"<th>{esc(c)}</th>" for c in head)
-    body = "".join("<tr>" + "".join(f"<td>{esc(v)}</td>" for v in row) + "</tr>" for row in rows)
+    weak = ' class="weak"'
+    body = "".join(f"<tr{weak if bool(w) else ''}>" + "".join(f"<td>{esc(v)}</td>" for v in row) + "</tr>"
+                   for w, row in zip(bk["weak"], rows))
     return (f"<table class=\"backups\"><caption>Backup spots if this one fails the survey</caption>"
             f"<thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>")
 
@@ -235,6 +269,7 @@ def survey_html(bundle, fig: PlanFigures, frame: pd.DataFrame, title: str) -> st
     by_rank = fig.sites.set_index("rank")
     maps = figures.SiteMaps(bundle, fig) if len(frame) else None
     for _, r in frame.iterrows():
+        assert maps is not None  # (frame has rows)
         rank = int(r["rank"])
         site = by_rank.loc[rank]
         png = base64.b64encode(maps.png(rank)).decode("ascii")
