@@ -345,12 +345,19 @@ def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
 
 
 def _read_toml(path: str | Path) -> dict:
+    from .inputs.files import UTF8_BOM, file_problem, utf8_problem
+
     path = Path(path)
-    if not path.is_file():
-        raise JobError(f"job file {str(path)!r} not found; check the path (relative to {Path.cwd()})", str(path))
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+    problem = file_problem(path, "job file")
+    if problem and not path.exists():
+        problem = f"job file '{path}' not found; check the path (relative to {Path.cwd()})"
+    problem = problem or utf8_problem(path, "job file")
+    if problem:
+        raise JobError(problem, str(path))
+    data = path.read_bytes()
+    try:  # a leading byte-order mark is skipped (common practice: some Windows editors write one)
+        return tomllib.loads(data[len(UTF8_BOM):].decode() if data.startswith(UTF8_BOM) else data.decode())
+    except tomllib.TOMLDecodeError as exc:
         raise JobError(f"not valid TOML: {exc}; fix the syntax (https://toml.io)", str(path)) from None
 
 

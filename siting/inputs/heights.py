@@ -143,7 +143,8 @@ def _check_range(val: np.ndarray, ids: np.ndarray, what: str, path: Path) -> Non
     if high.any():
         raise InputDataError(
             f"buildings file '{path}': {what} exceeds {MAX_HEIGHT_M:g} m for buildings {_listing(ids[high])} "
-            f"(e.g. {val[high][0]:g} m); check the unit (feet? centimetres?) and correct these values"
+            f"(e.g. {val[high][0]:g} m; valid: above 0 up to {MAX_HEIGHT_M:g} m, common practice); check the unit "
+            "(feet? centimetres?) and correct these values"
         )
 
 

@@ -39,6 +39,7 @@ from .. import tables as T
 from ..constants import SPEED_OF_LIGHT_M_S
 from ..district import to_lonlat as district_to_lonlat
 from ..errors import SitingError
+from .emptyplan import empty_plan_reason
 
 COMPASS_16 = ("N", "NNE", "NE", "ENE", "E", "ESE", "SE", "SSE", "S", "SSW", "SW", "WSW", "W", "WNW", "NW", "NNW")
 
@@ -623,22 +624,8 @@ def _summary(b, u, sites_out, target, total_w, w_before, notes) -> dict:
             np.isclose(objective, w_new, rtol=1e-6, atol=1e-6) or np.isclose(objective, w_after, rtol=1e-6, atol=1e-6)):
         notes.append(f"the solver's objective ({objective:.6g}) differs from the newly covered weight recomputed "
                      f"from the coverage relation ({w_new:.6g}); a load cap or a reduced model may explain it")
-    empty_reason = ""
-    if not len(sites_out):
-        if not len(b.options):
-            empty_reason = ("no surface was chosen: there are no candidate options (no facade spot sees both a "
-                            "base station and a demand point within range)")
-        elif budget is not None and cheapest is not None and budget < cheapest:
-            cur = currency_label(getattr(b, "currency", ""))
-            empty_reason = (f"no surface was chosen: the budget ({budget:.2f} {cur}) is below the cheapest option's "
-                            f"cost ({cheapest:.2f} {cur}); raise the budget to at least {cheapest:.2f} {cur} to place "
-                            "one panel")
-        elif b.max_panels is not None and int(b.max_panels) <= 0:
-            empty_reason = "no surface was chosen: the panel count limit is 0"
-        else:
-            msg = _plan_attr(plan, "message", "") or ""
-            empty_reason = ("no surface was chosen: no affordable option brings any uncovered demand point up to "
-                            "the SNR target" + (f" (optimiser: {msg})" if msg else ""))
+    empty_reason = "" if len(sites_out) else empty_plan_reason(
+        b, target, currency_label(getattr(b, "currency", "")), _plan_attr(plan, "message", "") or "")
     return {
         "n_users": int(len(u)),
         "total_weight": total_w,
