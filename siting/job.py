@@ -340,7 +340,7 @@ def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
     for section, keys in SCHEMA.items():
         for name, key in keys.items():
             if key.type == "path" and job[section][name]:
-                job[section][name] = str((base_dir / job[section][name]).resolve())
+                job[section][name] = str((base_dir / Path(job[section][name]).expanduser()).resolve())
     return job
 
 

@@ -231,6 +231,16 @@ def _points_xy(gdf: gpd.GeoDataFrame, path: Path, role: str, labels: np.ndarray)
     return shapely.get_x(pts).astype(float), shapely.get_y(pts).astype(float)
 
 
+def _names(labels: np.ndarray) -> str:
+    """Feature labels such as ``bs_id 'A'`` joined for a message (the first ten, then a count)."""
+    more = f" and {len(labels) - _MAX_LISTED} more" if len(labels) > _MAX_LISTED else ""
+    return ", ".join(str(x) for x in labels[:_MAX_LISTED]) + more
+
+
+def _shown(value) -> str:
+    return f"{value:g}" if isinstance(value, (float, np.floating)) else repr(value)
+
+
 def _valid_text(kind: str) -> str:
     lo, hi, unit, meaning = RANGES[kind]
     return f"{meaning}: {lo:g} .. {hi:g}{' ' + unit if unit else ''} (common practice)"
@@ -243,7 +253,7 @@ def _check_range(val: np.ndarray, labels: np.ndarray, path: Path, role: str, col
     if bad.any():
         raise InputDataError(
             f"{role} file '{path}': property '{col}' is {val[bad][0]:g}{' ' + unit if unit else ''} for "
-            f"{_listing(labels[bad])}, outside the valid range ({_valid_text(kind)}); correct the value "
+            f"{_names(labels[bad])}, outside the valid range ({_valid_text(kind)}); correct the value "
             f"(check its unit) in the file"
         )
 
@@ -263,19 +273,17 @@ def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | N
     unreadable = ~absent & ~np.isfinite(val)
     if unreadable.any():
         raise InputDataError(
-            f"{role} file '{path}': property '{col}' is not a finite number for {_listing(labels[unreadable])} "
-            f"(e.g. {raw[unreadable].iloc[0]!r}); give plain numbers"
+            f"{role} file '{path}': property '{col}' is not a finite number for {_names(labels[unreadable])} "
+            f"(e.g. {_shown(raw[unreadable].iloc[0])}); give plain numbers"
             + (f" ({_valid_text(kind)})" if kind else "")
         )
     if absent.any():
         if required:
             raise InputDataError(
-                f"{role} file '{path}': property '{col}' (required) is empty or NaN for {_listing(labels[absent])}; "
+                f"{role} file '{path}': property '{col}' (required) is empty or NaN for {_names(labels[absent])}; "
                 "fill it with a number" + (f" ({_valid_text(kind)})" if kind else "")
             )
         val[absent] = float(default) if default is not None else np.nan
-    if kind is not None:
-        _check_range(val[~np.isnan(val)], labels[~np.isnan(val)], path, role, col, kind)
     return val
 
 
@@ -307,7 +315,7 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
             "base station a unique bs_id"
         )
     x, y = _points_xy(gdf, path, role, labels)
-    z = _numeric(gdf, "z_m", path, role, labels, required=True)
+    z = _numeric(gdf, "z_m", path, role, labels, required=True, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(
@@ -317,6 +325,8 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
     _check_range(z, labels, path, role, "z_m", "z_m")
     tx = _numeric(gdf, "tx_power_dbm", path, role, labels, required=True, kind="tx_power_dbm")
     gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=False, default=0.0, kind="max_gain_dbi")
+    _check_range(tx, labels, path, role, "tx_power_dbm", "tx_power_dbm")
+    _check_range(gain, labels, path, role, "max_gain_dbi", "max_gain_dbi")
     az = _numeric(gdf, "azimuth_deg", path, role, labels, required=False, default=0.0) % 360.0
     tilt = _numeric(gdf, "downtilt_deg", path, role, labels, required=False, default=0.0)
     bad = np.abs(tilt) > 90.0
@@ -385,7 +395,7 @@ def _given_sites(gdf: gpd.GeoDataFrame, path: Path) -> pd.DataFrame:
             f"sites file '{path}': site ids {_listing(sorted(set(refs[dup])))} occur more than once; make them unique"
         )
     x, y = _points_xy(gdf, path, "sites", labels)
-    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan)
+    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(f"sites file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
@@ -397,7 +407,7 @@ def _given_users(gdf: gpd.GeoDataFrame, path: Path, weight_column: str, notes: l
     refs = _refs(gdf, ("user_id", "id"))
     labels = np.array([f"user '{r}'" for r in refs], dtype=object)
     x, y = _points_xy(gdf, path, "users", labels)
-    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan)
+    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(f"users file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
@@ -406,7 +416,7 @@ def _given_users(gdf: gpd.GeoDataFrame, path: Path, weight_column: str, notes: l
         notes.append(f"users file '{path.name}' has no weight column '{weight_column}'; every user weighs 1.")
         w = np.ones(len(gdf))
     else:
-        w = _numeric(gdf, weight_column, path, "users", labels, required=True)
+        w = _numeric(gdf, weight_column, path, "users", labels, required=True, kind="weight")
         neg = w < 0
         if neg.any():
             raise InputDataError(
