@@ -339,3 +339,34 @@ def test_latin1_file_refused_with_offset(demo, capsys, name):
     offset = data.index(b"\xe9")
     err = refused(capsys, "validate", demo / "job.toml")
     assert f"'{demo / name}' is not UTF-8 text (byte 0xE9 at offset {offset}); save it as UTF-8" in err
+
+
+def test_empty_plan_reason_names_the_first_true_cause():
+    """Exact cases of the empty-plan reason: no station seen, no option reaches a user, budget below the cheapest
+    *useful* option (a cheaper useless option does not count), count limit 0."""
+    from types import SimpleNamespace
+
+    import geopandas as gpd
+    import pandas as pd
+    from shapely.geometry import box
+
+    from siting.outputs.emptyplan import empty_plan_reason
+
+    def bundle(coverage, budget=None, max_panels=None, bs_site_max=1):
+        return SimpleNamespace(
+            options=pd.DataFrame({"option_id": [0, 1], "cost": [100.0, 1500.0]}),
+            coverage=pd.DataFrame(coverage, columns=["option_id", "user_id", "snr_db"]),
+            direct=pd.DataFrame({"user_id": [0, 1], "covered": [True, False]}),
+            base_stations=pd.DataFrame({"x": [5000.0], "y": [5.0]}),
+            buildings=gpd.GeoDataFrame(geometry=[box(0, 0, 10, 10)]),
+            run_info={"visibility_degrees": {"bs_site": {"b": {"n": 2, "max": bs_site_max}}}},
+            budget=budget, max_panels=max_panels)
+
+    reason = empty_plan_reason(bundle([], bs_site_max=0), 5.0, "EUR")
+    assert "no candidate facade spot sees a base station" in reason and "4,990 m" in reason  # 5000 - 10 m
+    reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 0, 20.0)]), 5.0, "EUR")  # too weak; covered directly
+    assert "no option brings any demand point that the direct path leaves uncovered up to the SNR target" in reason
+    reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 1, 5.0)], budget=1000.0), 5.0, "EUR")
+    assert "below the cheapest useful option (1,500.00 EUR)" in reason and "budget.max_cost" in reason
+    reason = empty_plan_reason(bundle([(1, 1, 5.0)], budget=2000.0, max_panels=0), 5.0, "EUR")
+    assert "panel count limit is 0" in reason
