@@ -367,6 +367,6 @@ def test_empty_plan_reason_names_the_first_true_cause():
     reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 0, 20.0)]), 5.0, "EUR")  # too weak; covered directly
     assert "no option brings any demand point that the direct path leaves uncovered up to the SNR target" in reason
     reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 1, 5.0)], budget=1000.0), 5.0, "EUR")
-    assert "below the cheapest useful option (1,500.00 EUR)" in reason and "budget.max_cost" in reason
+    assert "the cheapest useful option, 1,500.00 EUR" in reason and "budget.max_cost" in reason
     reason = empty_plan_reason(bundle([(1, 1, 5.0)], budget=2000.0, max_panels=0), 5.0, "EUR")
     assert "panel count limit is 0" in reason

@@ -260,6 +260,8 @@ def _check_range(val: np.ndarray, labels: np.ndarray, path: Path, role: str, col
 
 def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | None = None,
              kind: str | None = None) -> np.ndarray:
+    """Column ``col`` as floats; refuses words, ``Infinity`` and (when required) empty or NaN values, naming the
+    features; ``kind`` (a key of :data:`RANGES`) adds the valid range to those messages."""
     if col not in gdf.columns:
         if required:
             raise InputDataError(

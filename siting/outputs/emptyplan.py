@@ -2,6 +2,7 @@
 
 The causes are checked in pipeline order, so the sentence names the stage where the plan became empty:
 
+0. there are no candidate options at all (no facade spot);
 1. no candidate facade spot sees a base station within ``radio.bs_range_m`` (stations far away, or every
    station hidden behind buildings);
 2. no option (a spot with a panel size) brings any demand point that the direct path leaves uncovered up to
@@ -38,7 +39,10 @@ def empty_plan_reason(b, target_db: float, currency: str, message: str = "") -> 
     """The reason an empty plan is empty (see the module docstring); ``b`` is an
     :class:`~siting.outputs.OutputBundle`, ``currency`` the label printed beside costs."""
     head = "no surface was chosen: "
-    if not len(b.options) or _no_station_seen(b):
+    if not len(b.options):
+        return (head + "there are no candidate options (no facade spot where a panel size fits); check the "
+                "footprints, candidates.mount_heights_m, candidates.roof_margin_m and the panel widths")
+    if _no_station_seen(b):
         far = _nearest_station_m(b)
         where = f" (the nearest base station is {far:,.0f} m from the nearest building)" if far else ""
         return (head + "no candidate facade spot sees a base station within radio.bs_range_m" + where + "; check "
@@ -55,8 +59,8 @@ def empty_plan_reason(b, target_db: float, currency: str, message: str = "") -> 
     cheapest = float(cost.reindex(useful["option_id"].unique()).min())
     budget = getattr(b, "budget", None)
     if budget is not None and float(budget) < cheapest:
-        return (head + f"the budget ({float(budget):,.2f} {currency}) is below the cheapest useful option "
-                f"({cheapest:,.2f} {currency}); raise budget.max_cost to at least {cheapest:,.2f} {currency} to "
+        return (head + f"the budget ({float(budget):,.2f} {currency}) is below the cheapest option that covers a "
+                f"demand point (the cheapest useful option, {cheapest:,.2f} {currency}); raise budget.max_cost to at least {cheapest:,.2f} {currency} to "
                 "place one panel")
     if getattr(b, "max_panels", None) is not None and int(b.max_panels) <= 0:
         return head + "the panel count limit is 0; raise budget.max_panels"
