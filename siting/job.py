@@ -222,10 +222,19 @@ def _nearest(name: str, valid) -> str:
     return f"; did you mean '{hit[0]}'?" if hit else f"; valid keys: {', '.join(sorted(valid))}"
 
 
+def _non_finite(value: Any) -> bool:
+    values = value if isinstance(value, list) else [value]
+    return any(isinstance(v, float) and not math.isfinite(v) for v in values)
+
+
 def _check_value(where: str, key: Key, value: Any, problems: list[str]) -> None:
     if not _type_ok(key, value):
         unit = f" [{key.unit}]" if key.unit else ""
-        problems.append(f"{where}: expected {_TYPE_WORD[key.type]}{unit}, got {value!r}")
+        allowed = "" if key.choices or (key.lo is None and key.hi is None) else (
+            f" >= {key.lo:g}" if key.hi is None else f" <= {key.hi:g}" if key.lo is None else
+            f" in {key.lo:g} .. {key.hi:g}")
+        problems.append(f"{where}: expected {_TYPE_WORD[key.type]}{unit}{allowed}, got {value!r}"
+                        + ("; infinity and nan are not allowed, give a plain number" if _non_finite(value) else ""))
         return
     values = value if key.type in ("floats", "list") else [value]
     for v in values:

@@ -370,3 +370,11 @@ def test_empty_plan_reason_names_the_first_true_cause():
     assert "the cheapest useful option, 1,500.00 EUR" in reason and "budget.max_cost" in reason
     reason = empty_plan_reason(bundle([(1, 1, 5.0)], budget=2000.0, max_panels=0), 5.0, "EUR")
     assert "panel count limit is 0" in reason
+
+
+def test_infinite_job_value_refused_with_range(demo, tmp_path, capsys):
+    err = refused(capsys, "validate", demo / "job.toml", "--set", "budget.max_cost=inf", "--set",
+                  "radio.snr_target_db=nan")
+    assert "budget.max_cost: expected a number [currency] >= 0, got inf; infinity and nan are not allowed" in err
+    assert "radio.snr_target_db: expected a number [dB] in -20 .. 60, got nan" in err
+    assert not (tmp_path / "out").exists()
