@@ -243,10 +243,11 @@ def _set_bs(demo: Path, **props) -> None:
 ])
 def test_absurd_station_values_refused(demo, tmp_path, capsys, props, col, valid):
     _set_bs(demo, **props)
-    err = refused(capsys, "validate", demo / "job.toml")
-    assert "base_stations.geojson" in err and "'OST-POLE-2'" in err and f"'{col}'" in err and valid in err
-    assert "common practice" in err or "fill it" in err
-    assert not (tmp_path / "out").exists()
+    for cmd in ("validate", "plan"):
+        err = refused(capsys, cmd, demo / "job.toml")
+        assert "base_stations.geojson" in err and "'OST-POLE-2'" in err and f"'{col}'" in err and valid in err
+        assert "common practice" in err or "fill it" in err
+    assert not (tmp_path / "out").exists()  # plan refused at load: no log, no cache, no output
 
 
 @pytest.mark.parametrize("weight,expect", [
