@@ -379,3 +379,24 @@ def test_infinite_job_value_refused_with_range(demo, tmp_path, capsys):
     assert "budget.max_cost: expected a number [currency] >= 0, got inf; infinity and nan are not allowed" in err
     assert "radio.snr_target_db: expected a number [dB] in -20 .. 60, got nan" in err
     assert not (tmp_path / "out").exists()
+
+
+def test_permission_messages_without_chmod(demo, tmp_path, capsys, monkeypatch):
+    """The permission checks, run under root too: ``os.access`` denies reading one layer and writing the output
+    folder (the chmod tests above are skipped for root, who reads and writes anything)."""
+    real = os.access
+    out = tmp_path / "out"
+    out.mkdir()
+
+    def access(path, mode, *a, **k):
+        if str(path).endswith("base_stations.geojson") and mode & os.R_OK:
+            return False
+        if Path(path) == out and mode & os.W_OK:
+            return False
+        return real(path, mode, *a, **k)
+
+    monkeypatch.setattr(os, "access", access)
+    err = refused(capsys, "plan", demo / "job.toml", out=out)
+    assert "2 problem(s)" in err
+    assert "base_stations.geojson' cannot be read by this user (permission denied); fix its permissions" in err
+    assert f"output.folder '{out}' is not writable by this user; fix its permissions" in err
