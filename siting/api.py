@@ -11,13 +11,14 @@ from pathlib import Path
 from typing import Any
 
 from .job import Job
+from .preflight import check_job
 from .runner import RunResult, run
 
 
 def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: list[str] | None = None,
          write: bool = True, cache_dir: str | os.PathLike[str] | None = None, fresh: bool = False,
          workers: int = 0, scheduler: str | None = None, progress: bool = False, tile_m: float | None = None,
-         **sections: Mapping[str, Any]) -> RunResult:
+         overwrite: bool = False, **sections: Mapping[str, Any]) -> RunResult:
     """Run a job end to end: district, candidates, link gains, the optimised plan, field checks, outputs.
 
     Parameters
@@ -41,6 +42,9 @@ def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: li
         Show progress bars.
     tile_m : float, optional
         Tile size [m] instead of ``run.tile_m``.
+    overwrite : bool
+        Write into an output folder that holds files no siting run created (the CLI's ``--overwrite``);
+        siting still replaces only the files of its own output set.
     **sections : mapping
         Key changes per section, applied last and validated: ``budget={"max_cost": 20000}``.
 
@@ -64,8 +68,9 @@ def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: li
         the_job = Job.from_dict(job, base_dir=Path.cwd(), source="job").replace(**sections)
     else:
         the_job = Job.from_toml(Path(job), overrides, **sections)
+        check_job(the_job, job_file=Path(job), write=write, overwrite=overwrite)  # the job file is an input too
     return run(the_job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress, tile_m=tile_m,
-               write=write, cache_dir=None if cache_dir is None else Path(cache_dir))
+               write=write, cache_dir=None if cache_dir is None else Path(cache_dir), overwrite=overwrite)
 
 
 __all__ = ["plan"]

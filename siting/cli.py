@@ -26,6 +26,8 @@ def _parser() -> argparse.ArgumentParser:
         p.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE",
                        help="override a job key, e.g. --set budget.max_cost=20000 (repeatable)")
         p.add_argument("--debug", action="store_true", help="show the traceback of an error")
+        p.add_argument("--overwrite", action="store_true",
+                       help="write into an output folder holding files no siting run created")
 
     plan = sub.add_parser("plan", help="run a job end to end and write the plan", epilog=EXIT_CODES)
     common(plan)
@@ -82,7 +84,10 @@ def _dispatch(args) -> int:
     if args.command == "keys":
         print(reference_markdown())
         return 0
+    from .preflight import check_district, check_job
+
     job = Job.from_toml(args.job, args.overrides)
+    check_job(job, job_file=args.job, overwrite=args.overwrite)  # before any layer is read
     if args.command == "validate":
         from .district import summary
         from .runner import capture_notes
@@ -91,6 +96,7 @@ def _dispatch(args) -> int:
         notes: list[str] = []
         with capture_notes(notes):
             district = load_stage(job.inputs, job.area)
+            check_district(job, district)
         print(summary(district))
         for message in notes:
             if message not in district.notes:  # the summary lists the notes already
@@ -99,7 +105,8 @@ def _dispatch(args) -> int:
     from .runner import run
 
     result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
-                 progress=show_progress(args.progress, args.quiet, sys.stderr.isatty()), notices=not args.quiet)
+                 progress=show_progress(args.progress, args.quiet, sys.stderr.isatty()), notices=not args.quiet,
+                 overwrite=args.overwrite)
     if not args.quiet:
         plan = result.plan
         covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())

@@ -224,10 +224,19 @@ def _nearest(name: str, valid) -> str:
     return f"; did you mean '{hit[0]}'?" if hit else f"; valid keys: {', '.join(sorted(valid))}"
 
 
+def _non_finite(value: Any) -> bool:
+    values = value if isinstance(value, list) else [value]
+    return any(isinstance(v, float) and not math.isfinite(v) for v in values)
+
+
 def _check_value(where: str, key: Key, value: Any, problems: list[str]) -> None:
     if not _type_ok(key, value):
         unit = f" [{key.unit}]" if key.unit else ""
-        problems.append(f"{where}: expected {_TYPE_WORD[key.type]}{unit}, got {value!r}")
+        allowed = "" if key.choices or (key.lo is None and key.hi is None) else (
+            f" >= {key.lo:g}" if key.hi is None else f" <= {key.hi:g}" if key.lo is None else
+            f" in {key.lo:g} .. {key.hi:g}")
+        problems.append(f"{where}: expected {_TYPE_WORD[key.type]}{unit}{allowed}, got {value!r}"
+                        + ("; infinity and nan are not allowed, give a plain number" if _non_finite(value) else ""))
         return
     values = value if key.type in ("floats", "list") else [value]
     for v in values:
@@ -342,17 +351,24 @@ def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
     for section, keys in SCHEMA.items():
         for name, key in keys.items():
             if key.type == "path" and job[section][name]:
-                job[section][name] = str((base_dir / job[section][name]).resolve())
+                job[section][name] = str((base_dir / Path(job[section][name]).expanduser()).resolve())
     return job
 
 
 def _read_toml(path: str | Path) -> dict:
+    from .inputs.files import UTF8_BOM, file_problem, utf8_problem
+
     path = Path(path)
-    if not path.is_file():
-        raise JobError(f"job file {str(path)!r} not found; check the path (relative to {Path.cwd()})", str(path))
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+    problem = file_problem(path, "job file")
+    if problem and not path.exists():
+        problem = f"job file '{path}' not found; check the path (relative to {Path.cwd()})"
+    problem = problem or utf8_problem(path, "job file")
+    if problem:
+        raise JobError(problem, str(path))
+    data = path.read_bytes()
+    try:  # a leading byte-order mark is skipped (common practice: some Windows editors write one)
+        return tomllib.loads(data[len(UTF8_BOM):].decode() if data.startswith(UTF8_BOM) else data.decode())
+    except tomllib.TOMLDecodeError as exc:
         raise JobError(f"not valid TOML: {exc}; fix the syntax (https://toml.io)", str(path)) from None
 
 

@@ -36,6 +36,7 @@ from __future__ import annotations
 import importlib
 import json
 import logging
+import logging.handlers
 import sys
 import time
 import warnings
@@ -49,7 +50,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import __version__, checks
+from . import __version__, checks, preflight
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District
@@ -195,6 +196,7 @@ def _load(ctx: _Context) -> tuple[District, pd.DataFrame]:
     notes: list[str] = []
     with capture_notes(notes):
         district = load_stage(ctx.params.inputs, ctx.params.area)
+        preflight.check_district(ctx.job, district)  # no demand possible: refused here; far stations: noted
         sizes = sizes_table(ctx.job.surfaces.panels, ctx.job.radio.frequency_ghz,
                             ctx.job.surfaces.element_pitch_wavelengths)
     ctx.notes["load"] = _unique(district.notes + notes)
@@ -220,6 +222,7 @@ def _candidates(ctx: _Context, district: District, sizes: pd.DataFrame) -> tuple
             sites, users, explicit = candidates_stage(district, ctx.params.candidates, ctx.params.demand, sizes,
                                                       ctx.params.inputs.storey_height_m)
         notes = _unique(explicit + notes)
+        preflight.check_demand(ctx.job, users)  # before the gains stage and before anything is stored
         ctx.cache.store("candidates", key, {"sites": sites, "users": users}, {"notes": notes})
         ctx.recomputed.append("candidates")
     ctx.notes["candidates"] = notes
@@ -350,9 +353,22 @@ def _log_handler(out_dir: Path) -> logging.Handler:
     return handler
 
 
+def _open_log(buffer: logging.handlers.BufferingHandler | None, out_dir: Path) -> logging.Handler | None:
+    """Swap the in-memory log of a job that passed its checks for ``siting.log`` (the records so far first),
+    so a job refused by its checks leaves no file behind."""
+    if buffer is None:
+        return None
+    handler = _log_handler(out_dir)
+    for record in buffer.buffer:
+        handler.handle(record)
+    log.removeHandler(buffer)
+    log.addHandler(handler)
+    return handler
+
+
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
-        cache_dir: str | Path | None = None, notices: bool | None = None) -> RunResult:
+        cache_dir: str | Path | None = None, notices: bool | None = None, overwrite: bool = False) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -375,11 +391,16 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         ``write=False`` nothing is written to disk unless ``cache_dir`` is given.
     cache_dir : str or Path, optional
         Stage cache folder; default ``<output.folder>/.cache`` when ``write``, else no cache.
+    overwrite : bool
+        Write into an output folder holding files that no siting run created (see
+        :func:`siting.preflight.check_job`, which runs first).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
+    preflight.check_job(job, write=write, overwrite=overwrite)
     out_dir = Path(job.output.folder)
     cache_root = Path(cache_dir) if cache_dir is not None else (out_dir / ".cache" if write else None)
-    handler = _log_handler(out_dir) if write else None
+    buffer = logging.handlers.BufferingHandler(1 << 20) if write else None  # siting.log opens after the checks
+    handler: logging.Handler | None = buffer
     if handler is not None:
         log.addHandler(handler)
     log.setLevel(logging.INFO)
@@ -389,6 +410,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
         district, sizes = _load(ctx)
         sites, users, cand_key = _candidates(ctx, district, sizes)
+        handler = _open_log(buffer, out_dir) or handler
         _compile_notice(ctx, progress if notices is None else notices)
         gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,
                                              scheduler)
@@ -407,7 +429,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
                            params=ctx.params)
         if write:
             t0 = time.perf_counter()
-            result.outputs = write_stage(result, ctx.params.radio)
+            result.outputs = write_stage(result, ctx.params.radio, overwrite=overwrite)
             ctx.timings["outputs"] = time.perf_counter() - t0
             _advance(ctx.bar, "done")
         log.info("finished; recomputed stages: %s", ", ".join(ctx.recomputed) or "none")
@@ -421,7 +443,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
             handler.close()
 
 
-def write_stage(result: RunResult, p: RadioParams) -> dict:
+def write_stage(result: RunResult, p: RadioParams, overwrite: bool = False) -> dict:
     """Hand every table to the output writers (GeoJSON, survey list, report, run.json, the LOS graph if asked)."""
     from . import radio
     from .outputs import OutputBundle, write_outputs
@@ -458,7 +480,7 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
     extra = {}
     if job.output.los_graph:
         extra["los_graph"] = ("los_graph.graphml", lambda path: write_los_graph(path, gains))
-    return write_outputs(Path(job.output.folder), bundle, extra_files=extra)
+    return write_outputs(Path(job.output.folder), bundle, extra_files=extra, overwrite=overwrite)
 
 
 def write_los_graph(path: Path, gains: GainResult) -> Path:

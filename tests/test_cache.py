@@ -50,3 +50,72 @@ def test_no_root_is_no_cache(tmp_path, monkeypatch):
     cache.store("stage", key, {"t": pd.DataFrame({"a": [1]})}, {"notes": ["n"]})
     assert cache.load("stage", key) is None
     assert list(tmp_path.iterdir()) == []
+
+
+def _corrupt(path, how: str) -> None:
+    """Damage one file of a cache entry: change bytes (same size), cut it in half, or make it unreadable."""
+    import os
+
+    data = path.read_bytes()
+    if how == "tampered":
+        mid = len(data) // 2
+        path.write_bytes(data[:mid] + bytes([data[mid] ^ 0xFF]) + data[mid + 1:])
+    elif how == "truncated":
+        path.write_bytes(data[: len(data) // 2])
+    elif hasattr(os, "geteuid") and os.geteuid() == 0:  # root reads any file: a folder in its place instead
+        path.unlink()
+        path.mkdir()
+    else:
+        path.chmod(0)
+
+
+def test_every_damaged_file_of_a_stage_is_recomputed(tmp_path, caplog, monkeypatch):
+    """Each file of the cached candidates and optimise entries, tampered, truncated or unreadable in turn: the
+    rerun logs the bad entry, recomputes it and gives the same plan (issue: a tampered cache entry crashed)."""
+    from pathlib import Path
+
+    import siting.runner
+    from siting.job import Job
+    from siting.runner import run
+
+    monkeypatch.setattr(siting.runner, "plan_checks", lambda *a, **k: (None, None))  # field checks: not cached
+
+    demo = Path(__file__).resolve().parents[1] / "demo_district" / "job.toml"
+    job = Job.from_toml(demo, ["area.bbox=[1.9045, 46.8118, 1.9075, 46.8140]", "budget.sweep_budgets=[]"])
+    cache = tmp_path / "cache"
+    first = run(job, write=False, cache_dir=cache)
+    assert len(first.plan.chosen) > 0
+    for stage in ("candidates", "optimise"):
+        (entry,) = cache.glob(f"{stage}-*")
+        for name in sorted(p.name for p in entry.iterdir()):
+            for how in ("tampered", "truncated", "unreadable"):
+                _corrupt(entry / name, how)
+                caplog.clear()
+                again = run(job, write=False, cache_dir=cache)
+                assert stage in again.recomputed, (stage, name, how)
+                assert any(f"cache entry {entry.name} is not usable" in r.message and "recomputing" in r.message
+                           for r in caplog.records), (name, how)
+                assert list(again.plan.chosen) == list(first.plan.chosen), (name, how)
+                assert again.plan.objective == first.plan.objective and again.notes == first.notes
+                assert (entry / name).is_file()  # stored again, whole
+
+
+def test_edited_manifest_extras_are_caught(tmp_path):
+    """A manifest whose extras (a plan's figures, notes) were edited fails its own digest: not trusted."""
+    events = []
+    cache = StageCache(tmp_path, log=events.append)
+    key = digest(["stage", 2])
+    cache.store("stage", key, {"t": pd.DataFrame({"a": [1.0]})}, {"plan": {"objective": 10.0}})
+    manifest = next(tmp_path.glob("stage-*")) / "manifest.json"
+    manifest.write_text(manifest.read_text().replace("10.0", "99.0"))
+    assert cache.load("stage", key) is None and "manifest.json" in events[-1]
+    cache.store("stage", key, {"t": pd.DataFrame({"a": [1.0]})})
+    manifest.write_text("[1, 2]")  # valid JSON, not a manifest
+    assert cache.load("stage", key) is None and "not a table of files" in events[-1]
+
+
+def test_unstorable_entry_is_logged_not_fatal(tmp_path):
+    events = []
+    (tmp_path / "cache").write_text("a file where the cache folder should be")
+    StageCache(tmp_path / "cache", log=events.append).store("stage", digest(["x"]), {"t": pd.DataFrame({"a": [1]})})
+    assert events and "could not be stored" in events[-1]

@@ -83,6 +83,7 @@ def _resolve_heights(
     if "height" in df.columns and height_column != "height":
         sources.append(("height", "height"))
     for col, name in sources:
+        _refuse_non_finite(df[col], ids, col, path)
         val, unparsed = parse_height_m(df[col])
         if unparsed.any():
             notes.append(
@@ -132,6 +133,23 @@ def _resolve_heights(
     return height, rule
 
 
+_NON_FINITE = frozenset({"inf", "+inf", "-inf", "infinity", "+infinity", "-infinity", "nan", "+nan", "-nan"})
+
+
+def _refuse_non_finite(values: pd.Series, ids: np.ndarray, col: str, path: Path) -> None:
+    """Refuse ``Infinity`` and ``NaN`` given as heights (numbers or words): they are not missing, they are wrong."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        bad = np.isinf(values.to_numpy(float))
+    else:
+        bad = values.astype(str).str.strip().str.lower().isin(_NON_FINITE).to_numpy() & values.notna().to_numpy()
+    if bad.any():
+        raise InputDataError(
+            f"buildings file '{path}': '{col}' is not a finite number for buildings {_listing(ids[bad])} (e.g. "
+            f"{values[bad].iloc[0]}); valid: above 0 up to {MAX_HEIGHT_M:g} m (common practice): give the height in "
+            "metres, or remove the value to use building:levels or the default height"
+        )
+
+
 def _check_range(val: np.ndarray, ids: np.ndarray, what: str, path: Path) -> None:
     low = val <= 0
     if low.any():
@@ -143,7 +161,8 @@ def _check_range(val: np.ndarray, ids: np.ndarray, what: str, path: Path) -> Non
     if high.any():
         raise InputDataError(
             f"buildings file '{path}': {what} exceeds {MAX_HEIGHT_M:g} m for buildings {_listing(ids[high])} "
-            f"(e.g. {val[high][0]:g} m); check the unit (feet? centimetres?) and correct these values"
+            f"(e.g. {val[high][0]:g} m; valid: above 0 up to {MAX_HEIGHT_M:g} m, common practice); check the unit "
+            "(feet? centimetres?) and correct these values"
         )
 
 

@@ -20,6 +20,17 @@ from .heights import _resolve_heights
 
 MIN_PART_AREA_M2 = 1.0
 
+#: Plausible ranges of point-layer properties: (low, high, unit, meaning).  Common practice, not a standard:
+#: the tallest structures stand below 1,000 m; transmit powers of radio equipment span about -30 dBm (a
+#: low-power test source) to 80 dBm (100 kW, broadcast); antenna gains from -30 dBi to 60 dBi (a large dish).
+#: A weight counts households, subscribers or a traffic share at one point: 1e9 is beyond any one point.
+RANGES: dict[str, tuple[float, float, str, str]] = {
+    "z_m": (0.0, 1000.0, "m", "height above ground"),
+    "tx_power_dbm": (-30.0, 80.0, "dBm", "transmit power"),
+    "max_gain_dbi": (-30.0, 60.0, "dBi", "antenna gain"),
+    "weight": (0.0, 1e9, "", "demand weight: households, subscribers or traffic share"),
+}
+
 
 def _ids_to_str(s: pd.Series) -> np.ndarray:
     """Ids as strings (integral floats without '.0'); None where the value is missing."""
@@ -220,7 +231,37 @@ def _points_xy(gdf: gpd.GeoDataFrame, path: Path, role: str, labels: np.ndarray)
     return shapely.get_x(pts).astype(float), shapely.get_y(pts).astype(float)
 
 
-def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | None = None) -> np.ndarray:
+def _names(labels: np.ndarray) -> str:
+    """Feature labels such as ``bs_id 'A'`` joined for a message (the first ten, then a count)."""
+    more = f" and {len(labels) - _MAX_LISTED} more" if len(labels) > _MAX_LISTED else ""
+    return ", ".join(str(x) for x in labels[:_MAX_LISTED]) + more
+
+
+def _shown(value) -> str:
+    return f"{value:g}" if isinstance(value, (float, np.floating)) else repr(value)
+
+
+def _valid_text(kind: str) -> str:
+    lo, hi, unit, meaning = RANGES[kind]
+    return f"{meaning}: {lo:g} .. {hi:g}{' ' + unit if unit else ''} (common practice)"
+
+
+def _check_range(val: np.ndarray, labels: np.ndarray, path: Path, role: str, col: str, kind: str) -> None:
+    """Refuse values outside :data:`RANGES` ``[kind]``, naming the file, the features, the column and the range."""
+    lo, hi, unit, _ = RANGES[kind]
+    bad = (val < lo) | (val > hi)
+    if bad.any():
+        raise InputDataError(
+            f"{role} file '{path}': property '{col}' is {val[bad][0]:g}{' ' + unit if unit else ''} for "
+            f"{_names(labels[bad])}, outside the valid range ({_valid_text(kind)}); correct the value "
+            f"(check its unit) in the file"
+        )
+
+
+def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | None = None,
+             kind: str | None = None) -> np.ndarray:
+    """Column ``col`` as floats; refuses words, ``Infinity`` and (when required) empty or NaN values, naming the
+    features; ``kind`` (a key of :data:`RANGES`) adds the valid range to those messages."""
     if col not in gdf.columns:
         if required:
             raise InputDataError(
@@ -234,13 +275,15 @@ def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | N
     unreadable = ~absent & ~np.isfinite(val)
     if unreadable.any():
         raise InputDataError(
-            f"{role} file '{path}': property '{col}' is not a finite number for {_listing(labels[unreadable])} "
-            f"(e.g. {raw[unreadable].iloc[0]!r}); give plain numbers"
+            f"{role} file '{path}': property '{col}' is not a finite number for {_names(labels[unreadable])} "
+            f"(e.g. {_shown(raw[unreadable].iloc[0])}); give plain numbers"
+            + (f" ({_valid_text(kind)})" if kind else "")
         )
     if absent.any():
         if required:
             raise InputDataError(
-                f"{role} file '{path}': property '{col}' (required) is empty for {_listing(labels[absent])}; fill it"
+                f"{role} file '{path}': property '{col}' (required) is empty or NaN for {_names(labels[absent])}; "
+                "fill it with a number" + (f" ({_valid_text(kind)})" if kind else "")
             )
         val[absent] = float(default) if default is not None else np.nan
     return val
@@ -274,15 +317,18 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
             "base station a unique bs_id"
         )
     x, y = _points_xy(gdf, path, role, labels)
-    z = _numeric(gdf, "z_m", path, role, labels, required=True)
+    z = _numeric(gdf, "z_m", path, role, labels, required=True, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(
             f"{role} file '{path}': z_m (antenna height above ground) is negative for {_listing(labels[neg])}; "
             "give heights above ground in metres"
         )
-    tx = _numeric(gdf, "tx_power_dbm", path, role, labels, required=True)
-    gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=False, default=0.0)
+    _check_range(z, labels, path, role, "z_m", "z_m")
+    tx = _numeric(gdf, "tx_power_dbm", path, role, labels, required=True, kind="tx_power_dbm")
+    gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=False, default=0.0, kind="max_gain_dbi")
+    _check_range(tx, labels, path, role, "tx_power_dbm", "tx_power_dbm")
+    _check_range(gain, labels, path, role, "max_gain_dbi", "max_gain_dbi")
     az = _numeric(gdf, "azimuth_deg", path, role, labels, required=False, default=0.0) % 360.0
     tilt = _numeric(gdf, "downtilt_deg", path, role, labels, required=False, default=0.0)
     bad = np.abs(tilt) > 90.0
@@ -351,10 +397,11 @@ def _given_sites(gdf: gpd.GeoDataFrame, path: Path) -> pd.DataFrame:
             f"sites file '{path}': site ids {_listing(sorted(set(refs[dup])))} occur more than once; make them unique"
         )
     x, y = _points_xy(gdf, path, "sites", labels)
-    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan)
+    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(f"sites file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
+    _check_range(z[~np.isnan(z)], labels[~np.isnan(z)], path, "sites", "z_m", "z_m")
     return pd.DataFrame({"site_ref": pd.Series(refs, dtype=object), "x": x, "y": y, "z_m": z})
 
 
@@ -362,21 +409,24 @@ def _given_users(gdf: gpd.GeoDataFrame, path: Path, weight_column: str, notes: l
     refs = _refs(gdf, ("user_id", "id"))
     labels = np.array([f"user '{r}'" for r in refs], dtype=object)
     x, y = _points_xy(gdf, path, "users", labels)
-    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan)
+    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan, kind="z_m")
     neg = z < 0
     if neg.any():
         raise InputDataError(f"users file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
+    _check_range(z[~np.isnan(z)], labels[~np.isnan(z)], path, "users", "z_m", "z_m")
     if weight_column not in gdf.columns:
         notes.append(f"users file '{path.name}' has no weight column '{weight_column}'; every user weighs 1.")
         w = np.ones(len(gdf))
     else:
-        w = _numeric(gdf, weight_column, path, "users", labels, required=True)
+        w = _numeric(gdf, weight_column, path, "users", labels, required=True, kind="weight")
         neg = w < 0
         if neg.any():
             raise InputDataError(
                 f"users file '{path}': weight column '{weight_column}' is negative for {_listing(labels[neg])} "
-                f"(e.g. {w[neg][0]:g}); weights are demand (households, subscribers, traffic share) and must be >= 0"
+                f"(e.g. {w[neg][0]:g}); weights are demand (households, subscribers, traffic share) and must be "
+                f">= 0: correct them in the file (valid {_valid_text('weight')})"
             )
+        _check_range(w, labels, path, "users", weight_column, "weight")
     return pd.DataFrame({"user_ref": pd.Series(refs, dtype=object), "x": x, "y": y, "z_m": z, "weight": w})
 
 

@@ -12,10 +12,12 @@ from pathlib import Path
 
 import geopandas as gpd
 import pandas as pd
+import shapely
 
 from ..cache import file_sha256
-from ..errors import InputDataError
+from ..errors import InputDataError, SitingWarning
 from .common import _listing
+from .files import check_file, utf8_problem
 
 _GEOJSON_SUFFIXES = (".geojson", ".json", ".geojsonl", ".geojsons")
 _PARQUET_SUFFIXES = (".parquet", ".geoparquet")
@@ -58,11 +60,11 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
         Only used for ``.osm.pbf``: passed to pyrosm as its bounding box.
     """
     path = Path(path)
-    if not path.exists():
-        raise InputDataError(
-            f"{role} file '{path}' not found; check the path (relative paths in a job file resolve against "
-            "the job file's folder)"
-        )
+    check_file(path, f"{role} file")
+    if _is_geojson(path):
+        problem = utf8_problem(path, f"{role} file")  # RFC 7946, section 11: GeoJSON is UTF-8
+        if problem:
+            raise InputDataError(problem)
     if _is_pbf(path):
         if role != "buildings":
             raise InputDataError(
@@ -120,7 +122,21 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
             f"{role} file '{path}'{where} has no features; check that the right file or layer was named and "
             "that the export did not filter everything out"
         )
-    gdf = gdf.reset_index(drop=True)
+    return _drop_z(gdf.reset_index(drop=True), path, role)
+
+
+def _drop_z(gdf: gpd.GeoDataFrame, path: Path, role: str) -> gpd.GeoDataFrame:
+    """The layer with 3-D coordinates made 2-D, with one model note: heights come from the attributes
+    (building height rules, ``z_m``), never from the Z of the coordinates."""
+    geoms = gdf.geometry.values
+    has_z = shapely.has_z(geoms)
+    if not has_z.any():
+        return gdf
+    where = "buildings' height rules" if role == "buildings" else "'z_m' property"
+    warnings.warn(f"{role} file '{path.name}' has 3-D coordinates in {int(has_z.sum())} feature(s); the Z values "
+                  f"were dropped: heights come from the {where}, not from Z.", SitingWarning, stacklevel=3)
+    gdf = gdf.copy()
+    gdf[gdf.geometry.name] = gpd.GeoSeries(shapely.force_2d(geoms), index=gdf.index, crs=gdf.crs)
     return gdf
 
 

@@ -36,6 +36,7 @@ import pandas as pd
 from ..radio import element_count
 from .backups import BACKUP_INPUT_COLUMNS, backup_rows
 from .contract import SITE_CHECK_COLUMNS, check_bundle, sensitivity_table, site_check_columns
+from .emptyplan import empty_plan_reason
 from .values import (
     angle_deg,
     chosen_ids,
@@ -374,26 +375,6 @@ def derive(b) -> PlanFigures:
                        sensitivity=sensitivity_table(b, total_w))
 
 
-def _empty_reason(b, sites_out: pd.DataFrame) -> str:
-    """Why the plan chooses nothing, in words ('' when it chooses something)."""
-    if len(sites_out):
-        return ""
-    if not len(b.options):
-        return ("no surface was chosen: there are no candidate options (no facade spot sees both a base station "
-                "and a demand point within range)")
-    opt_cost = b.options["cost"].to_numpy(float)
-    cheapest, budget = float(opt_cost.min()), float_or_none(b.budget)
-    if budget is not None and budget < cheapest:
-        cur = currency_label(b.currency)
-        return (f"no surface was chosen: the budget ({budget:.2f} {cur}) is below the cheapest option's cost "
-                f"({cheapest:.2f} {cur}); raise the budget to at least {cheapest:.2f} {cur} to place one panel")
-    if b.max_panels is not None and int(b.max_panels) <= 0:
-        return "no surface was chosen: the panel count limit is 0"
-    msg = plan_attr(b.plan, "message", "") or ""
-    return ("no surface was chosen: no affordable option brings any uncovered demand point up to the SNR target"
-            + (f" (optimiser: {msg})" if msg else ""))
-
-
 def _plan_summary(plan) -> dict:
     return {
         "status": str(plan_attr(plan, "status", "") or ""),
@@ -468,7 +449,8 @@ def _summary(b, u, sites_out, target, total_w, notes) -> dict:
         "snr_target_db": target,
         **plan,
         "empty_plan": not len(sites_out),
-        "empty_plan_reason": _empty_reason(b, sites_out),
+        "empty_plan_reason": "" if len(sites_out) else empty_plan_reason(
+            b, target, currency_label(b.currency), plan["solver_message"]),
     }
     out.update(_check_summary(b, u, sites_out, target))
     return out
