@@ -316,7 +316,7 @@ def test_min_cost_mode_reaches_the_share_of_the_best_feasible_plan(demo_result, 
     job = demo_job(tmp_path, "budget.max_panels=1", "budget.target_share=0.99", "budget.max_cost=0",
                    "budget.sweep_budgets=[]")
     plan = run(job, write=False, cache_dir=tmp_path / "cache").plan
-    cover, weight, cost, _ = optimisation_inputs(result.gains, result.users, RadioParams.from_job(result.job.to_dict()))
+    cover, weight, cost, _ = optimisation_inputs(result.gains, result.users, RadioParams.from_job(result.job))
     single = cover.astype(float) @ weight  # covered weight of each option alone
     best = single.max()
     assert plan.mode == "min_cost" and len(plan.chosen) == 1
