@@ -5,7 +5,8 @@ error event (script errors, and resources such as images that fail to load or de
 are caught in the capture phase), and one that, on 'load', asks the browser to decode every <img> (``HTMLImageElement.decode()``), draws it on a
 canvas and looks at its bottom row of pixels (a PNG cut short still "decodes" in Chromium, shown partly, but
 its missing rows stay transparent, while every figure of ours has an opaque background), and writes the
-results and natural sizes into a <pre id="__check"> element.  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
+results and natural sizes into a <pre id="__check"> element (first with ``final: false`` as soon as the page
+loads, so a page whose image decoding never settles still reports its errors; such a run is retried).  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
 ``--enable-logging=stderr`` prints the console messages, which are scanned for errors.
 """
 
@@ -25,14 +26,16 @@ _HEAD = """<script>window.__errors=[];window.addEventListener('error',function(e
 window.__errors.push(t&&t.tagName?('failed to load '+t.tagName+' '+String(t.src||t.href||'').slice(0,60)):
 String(e.message));},true);</script>"""
 _TAIL = """<script>window.addEventListener('load',function(){var imgs=Array.prototype.slice.call(document.images);
+var p=document.createElement('pre');p.id='__check';document.body.appendChild(p);
+p.textContent=JSON.stringify({final:false,images:imgs.map(function(i){return {w:i.naturalWidth,h:i.naturalHeight,
+complete:i.complete,decoded:null,bottom_painted:null,alt:i.alt};}),errors:window.__errors});
 function painted(i){try{var c=document.createElement('canvas');c.width=i.naturalWidth;c.height=i.naturalHeight;
 var x=c.getContext('2d');x.drawImage(i,0,0);var d=x.getImageData(0,c.height-1,c.width,1).data;
 for(var k=3;k<d.length;k+=4){if(d[k]>0)return true;}return false;}catch(e){return 'error: '+e;}}
 Promise.all(imgs.map(function(i){return i.decode().then(function(){return true;},function(){return false;});}))
 .then(function(ok){var out=imgs.map(function(i,k){return {w:i.naturalWidth,h:i.naturalHeight,complete:i.complete,
 decoded:ok[k],bottom_painted:ok[k]&&i.naturalWidth>0?painted(i):false,alt:i.alt};});
-var p=document.createElement('pre');p.id='__check';
-p.textContent=JSON.stringify({images:out,errors:window.__errors});document.body.appendChild(p);});});</script>"""
+p.textContent=JSON.stringify({final:true,images:out,errors:window.__errors});});});</script>"""
 
 
 def find_chromium() -> str | None:
@@ -56,6 +59,7 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
     with tempfile.TemporaryDirectory() as tmp:
         probe = html_path.with_name(".browser-check-" + html_path.name)  # same folder: relative links still work
         probe.write_text(text, encoding="utf-8")
+        m = None
         try:
             for budget_ms in (5000, 30000, 30000):  # a busy machine may need more virtual time; one fresh retry
                 cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
@@ -64,8 +68,9 @@ def check_page(html_path: str | os.PathLike, timeout_s: float = 90.0) -> dict:
                        "--run-all-compositor-stages-before-draw", f"--virtual-time-budget={budget_ms}", "--dump-dom",
                        probe.resolve().as_uri()]
                 proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
-                m = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
-                if m is not None:
+                found = re.search(r'<pre id="__check">(.*?)</pre>', proc.stdout, re.S)
+                m = found or m
+                if found is not None and '"final":true' in found.group(1).replace("&quot;", '"'):
                     break
         finally:
             probe.unlink(missing_ok=True)
