@@ -55,6 +55,8 @@ from .executor import _advance, _bar, _Executor
 from .gains import GainResult, RadioParams
 from .job import Job, load_job
 from .optimize import Plan
+from .plandiff import field_run_info
+from .replan import FIELD_INPUTS, prepare_field, replan_stage
 from .stages import (
     StageParams,
     _model_fit_warnings,
@@ -133,6 +135,7 @@ class RunResult:
     timings_s: dict[str, float] = field(default_factory=dict)
     recomputed: list[str] = field(default_factory=list)
     params: StageParams | None = None
+    field: Any = None  # the field verdicts' FieldContext (siting.replan) when inputs.survey_results is given
 
 
 # -------------------------------------------------------------------------------------------- orchestration
@@ -199,7 +202,8 @@ def _load(ctx: _Context) -> tuple[District, pd.DataFrame]:
 def _candidates(ctx: _Context, district: District, sizes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, str]:
     t0 = time.perf_counter()
     job = ctx.job.to_dict()
-    key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
+    inputs = {k: v for k, v in job["inputs"].items() if k not in FIELD_INPUTS}  # read after this stage
+    key = digest([__version__, sorted(district.input_hashes.items()), inputs, job["area"],
                   job["candidates"], job["demand"], sizes["width_m"].tolist()])
     hit = ctx.cache.load("candidates", key, expect=("sites", "users"))
     if hit:
@@ -252,10 +256,11 @@ def _gains(ctx: _Context, district, sites, sizes, users, cand_key: str, tile_m: 
     return gains, heights_m, gains_key
 
 
-def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
+def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str, sizes=None, field_ctx=None):
     t0 = time.perf_counter()
     job = ctx.job.to_dict()
-    key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"]])
+    key = digest([gains_key, job["budget"], job["solver"], job["surfaces"]["load_cap_weight"],
+                  *([field_ctx.key()] if field_ctx is not None else [])])
     hit = ctx.cache.load("optimise", key, expect=("ranking", "backups", "covered"))
     if hit:
         tables, extras = hit
@@ -268,8 +273,13 @@ def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
     else:
         notes = []
         with capture_notes(notes):
-            plan, ranking, backups, sweep = optimise_stage(gains, sites, users, ctx.params.optimise,
-                                                           ctx.params.radio)
+            if field_ctx is None:
+                plan, ranking, backups, sweep = optimise_stage(gains, sites, users, ctx.params.optimise,
+                                                               ctx.params.radio)
+            else:  # around the field verdicts (siting.replan)
+                plan, ranking, backups, sweep = replan_stage(gains, sites, sizes, users, ctx.params.optimise,
+                                                             ctx.params.radio, field_ctx)
+                notes += [n for n in field_ctx.notes if n not in notes]
         tables = {"ranking": ranking, "backups": backups, "covered": pd.DataFrame({"covered": plan.covered})}
         if sweep is not None:
             tables["sweep"] = sweep
@@ -326,9 +336,13 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
         district, sizes = _load(ctx)
         sites, users, cand_key = _candidates(ctx, district, sizes)
+        field_ctx = None
+        if job.inputs.survey_results:  # field verdicts: moved spots join the candidates (siting.replan)
+            sites, field_ctx = prepare_field(job.inputs.survey_results, district, sites, sizes, job.candidates)
+            cand_key = digest([cand_key, field_ctx.moved_key()]) if len(field_ctx.moved) else cand_key
         gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,
                                              scheduler)
-        plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key)
+        plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key, sizes, field_ctx)
         t0 = time.perf_counter()
         ctx.notes["checks"] = []
         with capture_notes(ctx.notes["checks"]):
@@ -340,7 +354,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
             log.warning(message)
         result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
                            site_checks=field_checks[0], sensitivity=field_checks[1], notes=notes, stage_notes=ctx.notes, timings_s=ctx.timings, recomputed=ctx.recomputed,
-                           params=ctx.params)
+                           params=ctx.params, field=field_ctx)
         if write:
             t0 = time.perf_counter()
             result.outputs = write_stage(result, ctx.params.radio)
@@ -378,6 +392,7 @@ def write_stage(result: RunResult, p: RadioParams) -> dict:
         "counts": {"buildings": len(result.district.buildings), "base_stations": len(result.district.base_stations),
                    "sites": len(result.sites), "users": len(result.users), "options": len(gains.options),
                    "coverage_rows": len(gains.coverage)},
+        **field_run_info(result),  # job fingerprint, field verdicts, changes against the previous plan
     }
     bundle = OutputBundle(
         crs=result.district.crs, buildings=result.district.buildings, base_stations=result.district.base_stations,

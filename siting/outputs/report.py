@@ -17,6 +17,7 @@ from statistics import NormalDist
 import numpy as np
 import pandas as pd
 
+from ..plandiff import report_html_section, report_md_lines
 from .derive import PlanFigures
 
 # (summary key, label, kind); kinds: weight, share, cost, int, db, num, text
@@ -522,6 +523,7 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     else:
         p.append("<p>No model sensitivity was computed for this run.</p>")
 
+    p.append(report_html_section(record))  # changes against the previous plan (siting.plandiff)
     p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in assumptions(bundle.params))
              + "</ul>")
     p.append("<h2>Cautions</h2><ul class=\"caution\">" + "".join(f"<li>{esc(c)}</li>" for c in CAUTIONS) + "</ul>")
@@ -627,6 +629,7 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
         p += [SENSITIVITY_SENTENCE, "", _md_table(*_sensitivity_rows(fig)), ""]
     else:
         p += ["No model sensitivity was computed for this run.", ""]
+    p += report_md_lines(record)  # changes against the previous plan (siting.plandiff)
     p += ["## Model assumptions", ""] + [f"- {a}" for a in assumptions(bundle.params)] + [""]
     p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
     p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]
