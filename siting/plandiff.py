@@ -3,13 +3,13 @@
 The previous plan is the ``run.json`` of the job's output folder (read before the new set replaces it) or the
 one ``inputs.previous_plan`` names (a ``run.json`` or a folder holding one).  Each site of either plan is
 
-- ``kept``: in both plans (``accepted in the field`` when a verdict accepted it; a size change is named);
+- ``kept``: in both plans (``settled in the field`` when a verdict accepted it; a size change is named);
 - ``dropped``: only in the previous plan, with the reason: ``rejected``, ``wall rejected``, ``moved`` (to the
   spot that replaces it), ``panel too large`` or ``re-optimised`` (the optimiser preferred other spots);
 - ``added``: only in the new plan: ``moved here`` (the spot of a moved site) or ``re-optimised``.
 
 Site ids compare only within one candidate set: when the job fingerprints differ the diff says so and lists
-nothing.  The next survey list (``survey.csv``) holds only the sites still to visit (accepted ones are done), with
+nothing.  The next survey list (``survey.csv``) holds only the sites still to visit (accepted ones and the spots of moved ones are done), with
 their backups, the job fingerprint and empty verdict columns for the field teams (see :mod:`siting.verdicts`).
 """
 
@@ -89,8 +89,7 @@ def plan_diff(previous: dict | None, new_sites: pd.DataFrame, fingerprint: str, 
     new = {int(s): (z, r) for s, z, r in zip(new_sites["site_id"], new_sites["size_id"], new_sites["rank"])}
     why = None if field_ctx is None or field_ctx.restriction is None else field_ctx.restriction.why
     accepted = set(field_ctx.accepted_sites()) if field_ctx is not None else set()
-    moved_to = {int(r): int(s) for r, s in zip(field_ctx.moved["site_ref"], field_ctx.moved["site_id"])} \
-        if field_ctx is not None else {}
+    moved_to = field_ctx.moved_to() if field_ctx is not None else {}
     moved_from = {v: k for k, v in moved_to.items()}
     rows = []
     for site in sorted(set(old) | set(new)):
@@ -99,7 +98,7 @@ def plan_diff(previous: dict | None, new_sites: pd.DataFrame, fingerprint: str, 
                "size_after": after[0] if after else None, "rank_before": before["rank"] if before else None,
                "rank_after": after[1] if after else None}
         if before and after:
-            reason = "accepted in the field" if site in accepted else "still chosen"
+            reason = "settled in the field" if site in accepted else "still chosen"
             if str(before["size_id"]) != str(after[0]):
                 reason += f"; size {before['size_id']} -> {after[0]}"
             rows.append({**row, "change": "kept", "reason": reason})
@@ -122,6 +121,11 @@ def field_run_info(result) -> dict[str, Any]:
     so the output folder's run.json is still the previous plan's.
     """
     fctx = result.field
+    if fctx is not None and fctx.restriction is None:  # the plan came from the stage cache
+        from .verdicts import restrict_options
+
+        fctx.restriction = restrict_options(fctx.verdicts, result.sites, result.gains.options, result.sizes,
+                                            fctx.moved_to())
     fp = fctx.fingerprint if fctx is not None else job_fingerprint(result.sites)
     job = result.job
     prev_path = job.inputs.previous_plan or Path(job.output.folder) / "run.json"
@@ -151,7 +155,7 @@ def field_survey_frame(frame: pd.DataFrame, run_info: dict | None) -> pd.DataFra
 def _rows(record: dict) -> tuple[dict, list[list[str]]]:
     diff = (record.get("run_info") or {}).get("plan_diff") or {}
     rows = [[str(r["site_id"]), r["change"], str(r["size_before"] or "-"), str(r["size_after"] or "-"),
-             str(r["reason"])] for r in diff.get("sites", []) if r["change"] != "kept" or "accepted" in r["reason"]
+             str(r["reason"])] for r in diff.get("sites", []) if r["change"] != "kept" or "settled" in r["reason"]
             or "size" in r["reason"]]
     return diff, rows
 

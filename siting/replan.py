@@ -48,6 +48,8 @@ class FieldContext:
         Model notes of the verdicts (facing mismatches, approximations).
     restriction : Restriction or None
         Allowed and fixed options (set by :func:`replan_stage`).
+    conflicts : numpy.ndarray or None
+        The site pairs that may not both hold a panel in the re-plan (spacing, overlaps with moved spots).
     """
 
     verdicts: Verdicts
@@ -55,6 +57,7 @@ class FieldContext:
     moved: pd.DataFrame
     notes: list[str] = field(default_factory=list)
     restriction: Restriction | None = None
+    conflicts: np.ndarray | None = None
 
     def key(self) -> str:
         """Digest of the verdicts and the moved spots (for the stage cache)."""
@@ -64,8 +67,13 @@ class FieldContext:
         """Digest of the moved spots (they change the candidate spots, so the gains)."""
         return digest(self.moved[["site_id", "x", "y", "z_m", "normal_az_deg"]].round(3).to_numpy().tolist())
 
+    def moved_to(self) -> dict[int, int]:
+        """Moved site id -> the id of the spot that replaces it."""
+        return {int(r): int(s) for r, s in zip(self.moved["site_ref"], self.moved["site_id"])}
+
     def accepted_sites(self) -> list[int]:
-        return sorted(self.verdicts.of("accepted")["site_id"].astype(int).tolist())
+        """Sites settled in the field: accepted ones and the spots of moved ones (fixed in the plan)."""
+        return sorted(self.verdicts.of("accepted")["site_id"].astype(int).tolist() + list(self.moved_to().values()))
 
     def summary(self) -> dict[str, Any]:
         """JSON-able account of the verdicts (for run.json)."""
@@ -74,7 +82,7 @@ class FieldContext:
                 "counts": {s: int((t["status"] == s).sum()) for s in ("accepted", "rejected", "moved", "pending")},
                 "walls_rejected": int(t["rejects_wall"].sum()),
                 "accepted_sites": self.accepted_sites(),
-                "moved_spots": {str(r): int(s) for r, s in zip(self.moved["site_ref"], self.moved["site_id"])},
+                "moved_spots": {str(k): v for k, v in self.moved_to().items()},
                 "verdicts": t.drop(columns=["line"]).replace({np.nan: None}).to_dict("records"),
                 "notes": list(self.notes)}
 
@@ -109,6 +117,20 @@ def _with_placeholders(sites: pd.DataFrame, path: str) -> pd.DataFrame:
     return pd.concat([sites[["site_id", "wall_id"]], extra.assign(wall_id=-1)], ignore_index=True)
 
 
+def _moved_overlaps(sites: pd.DataFrame, moved: pd.DataFrame, sizes: pd.DataFrame, min_spacing_m: float) -> np.ndarray:
+    """(moved spot, other spot) pairs on one wall closer than the widest panel or the spacing [m] (3-D)."""
+    if not len(moved):
+        return np.zeros((0, 2), np.int64)
+    reach_m = max(float(sizes["width_m"].max()), min_spacing_m)
+    xyz = sites[["x", "y", "z_m"]].to_numpy(float)
+    wall = sites["wall_id"].to_numpy()
+    pairs = []
+    for s in moved["site_id"].to_numpy(np.int64):
+        near = np.flatnonzero((np.linalg.norm(xyz - xyz[s], axis=1) < reach_m) & (wall == wall[s]))
+        pairs += [(s, int(o)) for o in near if o != s]
+    return np.asarray(pairs, np.int64).reshape(-1, 2)
+
+
 def _rank(fixed, residual, cover, weight, w_res) -> pd.DataFrame:
     """Accepted options first (greedy order among them), then the residual plan's options."""
     a = opt.rank_chosen(fixed, cover, weight)
@@ -126,8 +148,10 @@ def replan_stage(gains, sites: pd.DataFrame, sizes: pd.DataFrame, users: pd.Data
     from .stages import _sweep, optimisation_inputs, wall_conflicts
 
     cover, weight, cost, option_site = optimisation_inputs(gains, users, p)
-    ctx.restriction = r = restrict_options(ctx.verdicts, sites, gains.options, sizes)
-    conflicts = wall_conflicts(sites, q.min_spacing_m)
+    ctx.restriction = r = restrict_options(ctx.verdicts, sites, gains.options, sizes, ctx.moved_to())
+    conflicts = np.concatenate([wall_conflicts(sites, q.min_spacing_m),
+                                _moved_overlaps(sites, ctx.moved, sizes, q.min_spacing_m)])
+    ctx.conflicts = conflicts
     kw: dict[str, Any] = dict(solver=q.solver, time_limit_s=q.time_limit_s, mip_rel_gap=q.mip_gap, threads=q.threads)
     target = None
     if q.target_share is not None:

@@ -20,8 +20,10 @@ Re-planning (:func:`solve_with_verdicts`, on the optimiser's arrays):
 
 - rejected sites lose every option; with ``rejects_wall`` every spot on that wall does;
 - options of a panel larger (wider or taller) than ``largest_panel`` go;
-- a moved site loses its options and a given spot at the measured position, snapped to the nearest usable wall
-  like the job's given spots (:func:`siting.candidates.snap_given_spots`), becomes a free candidate;
+- a moved site loses its options; a given spot at the measured position, snapped to the nearest usable wall like
+  the job's given spots (:func:`siting.candidates.snap_given_spots`), takes its place and is fixed like an accepted
+  site (the team moves a site only to a spot it found workable; set the row to rejected to drop it instead); other
+  spots on that wall closer than the panel width (or ``budget.min_spacing_m``) go;
 - accepted sites are fixed with their planned size (or the largest that fits): the residual problem is solved
   exactly: their options and the other options at their sites go, their cost comes off the budget and one each
   off the panel count, the users they cover count as covered (weight 0), spots in spacing conflict with them go;
@@ -307,12 +309,13 @@ class Restriction:
 
 
 def restrict_options(verdicts: Verdicts, sites: pd.DataFrame, options: pd.DataFrame,
-                     sizes: pd.DataFrame) -> Restriction:
-    """Allowed options and the accepted options under the verdicts.
+                     sizes: pd.DataFrame, moved_to: dict[int, int] | None = None) -> Restriction:
+    """Allowed options and the fixed options (accepted sites, spots of moved sites) under the verdicts.
 
-    An accepted site is fixed with the size it was planned with (the survey list's ``size_id``) when that size is
-    allowed there, else with its largest allowed size (by area, then cost).
-    Raises :class:`InputDataError` when an accepted site has no allowed option.
+    A fixed site takes the size it was planned with (the survey list's ``size_id``) when that size is allowed
+    there, else its largest allowed size (by area, then cost).  ``moved_to`` maps a moved site to the spot that
+    replaces it (:func:`moved_spots`); that row's ``largest_panel`` applies to the spot.
+    Raises :class:`InputDataError` when a fixed site has no allowed option.
     """
     t = verdicts.table
     site_of = options["site_id"].to_numpy(np.int64)
@@ -326,18 +329,22 @@ def restrict_options(verdicts: Verdicts, sites: pd.DataFrame, options: pd.DataFr
     dims = sizes.set_index(sizes["size_id"].astype(str))[["width_m", "height_m"]]
     ow = sizes["width_m"].to_numpy(float)[options["size_idx"].to_numpy(np.int64)]
     oh = sizes["height_m"].to_numpy(float)[options["size_idx"].to_numpy(np.int64)]
-    for _, r in t[t["largest_panel"] != ""].iterrows():
-        w, h = dims.loc[r["largest_panel"]]
-        big = (site_of == r["site_id"]) & ((ow > w + 1e-9) | (oh > h + 1e-9)) & (why == "")
+    moved_to = moved_to or {}
+    target = np.array([moved_to.get(int(s), int(s)) if st == "moved" else int(s)
+                       for s, st in zip(t["site_id"], t["status"])], np.int64)
+    for i in np.flatnonzero((t["largest_panel"] != "").to_numpy()):
+        w, h = dims.loc[t["largest_panel"].iloc[i]]
+        big = (site_of == target[i]) & ((ow > w + 1e-9) | (oh > h + 1e-9)) & (why == "")
         why[big] = "panel too large"
     keep = why == ""
     fixed = []
     area = ow * oh
     cost = options["cost"].to_numpy(float)
-    for _, r in t[t["status"] == "accepted"].iterrows():
-        at = np.flatnonzero((site_of == r["site_id"]) & keep)
+    for i in np.flatnonzero(t["status"].isin(["accepted", "moved"]).to_numpy()):
+        r = t.iloc[i]
+        at = np.flatnonzero((site_of == target[i]) & keep)
         if not len(at):
-            raise InputDataError(f"inputs.survey_results '{verdicts.source}': line {r['line']}: accepted site "
+            raise InputDataError(f"inputs.survey_results '{verdicts.source}': line {r['line']}: {r['status']} site "
                                  f"{r['site_id']} has no panel size that fits there (largest_panel "
                                  f"{r['largest_panel'] or '-'}); correct largest_panel or the status")
         same = at[options["size_id"].astype(str).to_numpy()[at] == r["planned_size_id"]]
