@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from . import __version__
 from .errors import SitingError
@@ -21,14 +22,20 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"siting {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
-    def common(p):
-        p.add_argument("job", help="job file (TOML)")
+    def common(p, many=False):
+        if many:
+            p.add_argument("job", nargs="+", help="job file (TOML); several files or a folder of them run as a "
+                           "resumable queue (siting.batch)")
+        else:
+            p.add_argument("job", help="job file (TOML)")
         p.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE",
                        help="override a job key, e.g. --set budget.max_cost=20000 (repeatable)")
         p.add_argument("--debug", action="store_true", help="show the traceback of an error")
 
     plan = sub.add_parser("plan", help="run a job end to end and write the plan", epilog=EXIT_CODES)
-    common(plan)
+    common(plan, many=True)
+    plan.add_argument("--queue", default=None, metavar="FILE",
+                      help="queue state file of a batch (default siting_queue.json in the jobs' folder)")
     plan.add_argument("--fresh", action="store_true", help="ignore the stage cache and recompute everything")
     plan.add_argument("--workers", type=int, default=0, metavar="N",
                       help="run the heavy stages on a local Dask cluster of N worker processes")
@@ -72,6 +79,16 @@ def _dispatch(args) -> int:
     if args.command == "keys":
         print(reference_markdown())
         return 0
+    if args.command == "plan":
+        from .batch import expand_jobs
+        from .scenarios import has_scenarios
+
+        jobs = expand_jobs(args.job)
+        if len(jobs) > 1 or Path(args.job[0]).is_dir():
+            return _batch(args)
+        if has_scenarios(jobs[0]):
+            return _scenarios(args, jobs[0])
+        args.job = str(jobs[0])
     job = Job.from_toml(args.job, args.overrides)
     if args.command == "validate":
         from .district import summary
@@ -100,6 +117,38 @@ def _dispatch(args) -> int:
               f"gap {plan.gap:.2%}")
         print(f"outputs in {job.output.folder}")
     return 0
+
+
+def _say(args):
+    return (lambda line: None) if args.quiet else (lambda line: print(line, flush=True))
+
+
+def _batch(args) -> int:
+    """Several jobs (or a folder): the resumable queue of :mod:`siting.batch`; exit code of the worst job."""
+    from .batch import run_batch, summary_text
+
+    result = run_batch(args.job, args.overrides, queue_file=args.queue, fresh=args.fresh, workers=args.workers,
+                       scheduler=args.scheduler, progress=bool(args.progress) and not args.quiet, log=_say(args))
+    if not args.quiet:
+        print(summary_text(result))
+    for row in result.rows:
+        if row["status"] == "failed":
+            print(f"siting: error in {row['job']}: {row['error']}", file=sys.stderr)
+    return result.exit_code
+
+
+def _scenarios(args, path) -> int:
+    """A job with scenarios (:mod:`siting.scenarios`); exit code of the worst scenario."""
+    from .scenarios import run_scenarios
+
+    result = run_scenarios(path, args.overrides, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
+                           progress=bool(args.progress) and not args.quiet, log=_say(args))
+    for r in result.runs:
+        if not r.ok:
+            print(f"siting: scenario {r.name} failed: {r.error}", file=sys.stderr)
+    if not args.quiet:
+        print(f"comparison in {result.files.get('scenarios_md', '-')}")
+    return result.exit_code
 
 
 if __name__ == "__main__":

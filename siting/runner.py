@@ -302,7 +302,7 @@ def _log_handler(out_dir: Path) -> logging.Handler:
 
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
-        cache_dir: str | Path | None = None) -> RunResult:
+        cache_dir: str | Path | None = None, checks: bool = True) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -322,6 +322,9 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         ``write=False`` nothing is written to disk unless ``cache_dir`` is given.
     cache_dir : str or Path, optional
         Stage cache folder; default ``<output.folder>/.cache`` when ``write``, else no cache.
+    checks : bool
+        Compute the chosen surfaces' field checks and the model sensitivity (``False``: both None; scenario runs
+        may skip them, see :mod:`siting.scenarios`).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
     out_dir = Path(job.output.folder)
@@ -347,7 +350,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         ctx.notes["checks"] = []
         with capture_notes(ctx.notes["checks"]):
             field_checks = plan_checks(district, sites, sizes, users, gains, plan, ctx.params.radio, heights_m,
-                                       ctx.params.height_uncertainty_m)
+                                       ctx.params.height_uncertainty_m) if checks else (None, None)
         ctx.timings["checks"] = time.perf_counter() - t0
         notes = _unique([n for stage in ctx.notes.values() for n in stage])
         for message in notes:

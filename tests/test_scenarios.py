@@ -1,0 +1,108 @@
+"""Scenarios: a shared stage cache, a failing scenario that stops nothing, robustness against a direct recount."""
+
+from __future__ import annotations
+
+import json
+from collections import Counter
+
+import pandas as pd
+import pytest
+
+from siting.errors import JobError
+from siting.scenarios import parse_scenarios, read_scenarios, run_scenarios
+
+from .field_jobs import small_job
+
+SCENARIOS = """
+[[scenarios]]
+name = "b10k"
+budget.max_cost = 10000.0
+
+[[scenarios]]
+name = "b20k"
+
+[[scenarios]]
+name = "b15k"
+"budget.max_cost" = 15000.0
+time_limit_s = 30.0
+
+[[scenarios]]
+name = "broken"
+budget.max_cost = -5.0
+
+[[scenarios]]
+name = "two-panels"
+budget = { max_panels = 2 }
+"""
+
+
+@pytest.fixture(scope="module")
+def scenario_run(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("scen")
+    job = small_job(tmp, extra=SCENARIOS)
+    return run_scenarios(job), tmp / "out"
+
+
+def test_budget_scenarios_take_gains_from_the_shared_cache(scenario_run):
+    result, _ = scenario_run
+    runs = {r.name: r for r in result.runs}
+    assert any(s.startswith("gains") for s in runs["b10k"].recomputed)  # the first computes them
+    for name in ("b20k", "b15k", "two-panels"):
+        assert runs[name].recomputed == ["optimise"], name  # candidates and gains from the cache
+
+
+def test_a_failing_scenario_does_not_stop_the_others(scenario_run):
+    result, out = scenario_run
+    runs = {r.name: r for r in result.runs}
+    assert not runs["broken"].ok and runs["broken"].exit_code == 2
+    assert "budget.max_cost" in runs["broken"].error and "broken" in runs["broken"].error
+    assert all(runs[n].ok for n in ("b10k", "b20k", "b15k", "two-panels")) and result.exit_code == 2
+    for n in ("b10k", "b20k", "b15k", "two-panels"):
+        assert (out / "scenarios" / n / "run.json").is_file()
+    assert not (out / "scenarios" / "broken").exists()
+    # the overrides took effect: budgets, a panel count and a per-scenario time limit
+    assert runs["b10k"].row["cost"] <= 10000 + 1e-6 and runs["two-panels"].row["surfaces"] <= 2
+    assert runs["b15k"].row["time_limit_s"] == 30.0 and runs["b20k"].row["time_limit_s"] == 60.0
+    # more money never covers less (each plan is proven optimal)
+    assert runs["b10k"].row["covered_weight"] <= runs["b15k"].row["covered_weight"] <= runs["b20k"].row["covered_weight"]
+
+
+def test_robustness_equals_a_direct_recount_from_the_scenario_plans(scenario_run):
+    """Recount from each scenario's own run.json (its chosen sites), independent of the in-memory tables."""
+    result, out = scenario_run
+    recount = Counter()
+    for name in result.counted:
+        record = json.loads((out / "scenarios" / name / "run.json").read_text())
+        recount.update({int(s["site_id"]) for s in record["sites"]})
+    table = result.robustness.set_index("site_id")["chosen_in"]
+    assert dict(table) == dict(recount)
+    robust = pd.read_csv(out / "robust_survey.csv")
+    assert list(robust["chosen_in"]) == sorted(robust["chosen_in"], reverse=True)  # most robust first
+    assert robust["site_id"].tolist() == result.robustness["site_id"].tolist()
+    assert {"job_fingerprint", "status", "rejects_wall"} <= set(robust.columns)
+
+
+def test_comparison_report_lists_every_scenario(scenario_run):
+    result, out = scenario_run
+    md = (out / "scenarios.md").read_text()
+    for name in ("b10k", "b20k", "b15k", "broken", "two-panels"):
+        assert f"| {name} |" in md
+    assert "proven optimal" in md and "failed" in md and "Site robustness" in md
+    record = json.loads((out / "scenarios.json").read_text())
+    assert [s["name"] for s in record["scenarios"]] == ["b10k", "b20k", "b15k", "broken", "two-panels"]
+    assert "<table>" in (out / "scenarios.html").read_text()
+
+
+def test_scenario_file_and_bad_definitions(tmp_path):
+    extra = tmp_path / "more.toml"
+    extra.write_text('[[scenarios]]\nname = "f39"\nradio.frequency_ghz = 39.0\noptimise.time_limit_s = 5.0\n')
+    job = small_job(tmp_path, extra='[[scenarios]]\nname = "a"\n')
+    text = job.read_text().replace("[inputs]", f'[inputs]\nscenarios = "{extra}"', 1)
+    job.write_text(text)
+    _, scenarios = read_scenarios(job)
+    assert [s.name for s in scenarios] == ["a", "f39"]
+    assert set(scenarios[1].overrides) == {("radio", "frequency_ghz", 39.0), ("solver", "time_limit_s", 5.0)}
+    with pytest.raises(JobError, match="duplicate scenario name 'x'"):
+        parse_scenarios([{"name": "x"}, {"name": "x"}], "job")
+    with pytest.raises(JobError, match="name '../up'"):
+        parse_scenarios([{"name": "../up"}], "job")
