@@ -106,3 +106,25 @@ def test_scenario_file_and_bad_definitions(tmp_path):
         parse_scenarios([{"name": "x"}, {"name": "x"}], "job")
     with pytest.raises(JobError, match="name '../up'"):
         parse_scenarios([{"name": "../up"}], "job")
+
+
+def test_summary_says_which_plans_are_proven_and_which_stopped_at_a_gap(tmp_path):
+    """Reporting of the time limit: a plan stopped by it is named with its gap (rows as the runner gives them)."""
+    from siting.batch import BatchResult, summary_text
+    from siting.scenario_report import comparison_md
+    from siting.scenarios import ScenarioResult, ScenarioRun, proven_text
+
+    assert proven_text("optimal", 0.0) == "proven optimal"
+    assert proven_text("time_limit", 0.0312) == "stopped at gap 3.12 % (time_limit)"
+    runs = [ScenarioRun("fast", True, row={"status": "optimal", "proven": proven_text("optimal", 0.0), "gap": 0.0}),
+            ScenarioRun("slow", True, row={"status": "time_limit", "proven": proven_text("time_limit", 0.05),
+                                           "gap": 0.05})]
+    md = comparison_md(ScenarioResult(runs, pd.DataFrame(), [], ""))
+    assert "| fast | optimal | proven optimal |" in md and "stopped at gap 5.00 % (time_limit)" in md
+    assert "Stopped at a gap: slow" in md
+    batch = BatchResult([{"job": "/x/a.toml", "status": "ok", "optimality": "proven optimal", "exit_code": 0},
+                         {"job": "/x/b.toml", "status": "ok", "optimality": proven_text("time_limit", 0.01),
+                          "exit_code": 0},
+                         {"job": "/x/c.toml", "status": "failed", "exit_code": 3, "error": "no usable plan"}])
+    text = summary_text(batch)
+    assert "| a.toml | ok |" in text and "stopped at gap 1.00 %" in text and batch.exit_code == 3
