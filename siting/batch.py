@@ -120,6 +120,19 @@ def _run_scenarios(path: Path, overrides, *, fresh, workers, scheduler, progress
             "output": str(res.files.get("scenarios_md", "")), "error": "; ".join(failed)}
 
 
+def run_job(path: Path, overrides, kw: dict) -> dict:
+    """One queue entry (a job, or a job's scenarios) as a summary row; a failure is returned, not raised."""
+    from .scenarios import has_scenarios
+
+    try:
+        row = (_run_scenarios if has_scenarios(path) else _run_single)(path, overrides, **kw)
+    except SitingError as exc:
+        row = {"status": "failed", "exit_code": exc.exit_code, "error": str(exc)}
+    except Exception as exc:  # noqa: BLE001 - one failing job must not stop the queue
+        row = {"status": "failed", "exit_code": 1, "error": f"unexpected error: {type(exc).__name__}: {exc}"}
+    return {c: row.get(c) for c in SUMMARY_COLUMNS if c != "job"}
+
+
 def _output_present(row: dict) -> bool:
     out = Path(str(row.get("output") or ""))
     return bool(row.get("output")) and (out.is_file() or (out / "run.json").is_file())
@@ -127,7 +140,7 @@ def _output_present(row: dict) -> bool:
 
 def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, queue_file: str | Path | None = None,
               fresh: bool = False, workers: int = 0, scheduler: str | None = None, progress: bool = False,
-              log=None) -> BatchResult:
+              log=None, parallel: int = 1) -> BatchResult:
     """Run a queue of jobs (files or folders of ``*.toml``), resumably; return the summary.
 
     Parameters
@@ -144,8 +157,10 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
         Dask settings of :func:`siting.runner.run` (each job's tiles on the cluster).
     log : callable, optional
         Receives one line per job.
+    parallel : int
+        Run up to this many jobs at once, each in its own process (1: one after another).
     """
-    from .scenarios import has_scenarios
+    from .scenarios import _pooled
 
     jobs = expand_jobs(paths)
     if not jobs:
@@ -154,32 +169,32 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
     qpath = Path(queue_file) if queue_file else common / QUEUE_FILE
     state = _read_state(qpath)
     state.update(format="siting-queue", format_version=1)
-    rows = []
+    rows: dict[str, dict] = {}
+    todo = []
     for path in jobs:
         key, dg = str(path), job_digest(path, overrides)
         done = state["jobs"].get(key)
         if not fresh and done and done.get("status") == "ok" and dg and done.get("digest") == dg \
                 and _output_present(done["row"]):
-            rows.append({"job": key, **done["row"], "status": "done"})
+            rows[key] = {"job": key, **done["row"], "status": "done"}
             if log is not None:
                 log(f"{path.name}: finished earlier, not rerun")
-            continue
-        kw = dict(fresh=fresh, workers=workers, scheduler=scheduler, progress=progress)
-        try:
-            row = (_run_scenarios if has_scenarios(path) else _run_single)(path, overrides, **kw)
-        except SitingError as exc:
-            row = {"status": "failed", "exit_code": exc.exit_code, "error": str(exc)}
-        except Exception as exc:  # noqa: BLE001 - one failing job must not stop the queue
-            row = {"status": "failed", "exit_code": 1, "error": f"unexpected error: {type(exc).__name__}: {exc}"}
-        row = {c: row.get(c) for c in SUMMARY_COLUMNS if c != "job"}
-        rows.append({"job": key, **row})
+        else:
+            todo.append((path, dg))
+    kw = dict(fresh=fresh, workers=workers, scheduler=scheduler, progress=progress and parallel <= 1)
+    results = _pooled(run_job, [((path, overrides, kw), {}) for path, _ in todo], parallel,
+                      lambda args, exc: {**{c: None for c in SUMMARY_COLUMNS if c != "job"}, "status": "failed",
+                                         "exit_code": 1, "error": f"worker process failed: {exc}"})
+    for (path, dg), row in zip(todo, results):
+        key = str(path)
+        rows[key] = {"job": key, **row}
         state["jobs"][key] = {"digest": dg, "status": row["status"], "row": row,
                               "finished_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}
         atomic.write_text(qpath, json.dumps(state, indent=1, default=str) + "\n")
         if log is not None:
             log(f"{path.name}: {row['status']}" + (f" ({row['optimality']})" if row.get("optimality") else "")
                 + (f": {row['error']}" if row.get("error") else ""))
-    result = BatchResult(rows)
+    result = BatchResult([rows[str(p)] for p in jobs])
     result.files = write_summary(qpath.parent, result)
     return result
 

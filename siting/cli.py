@@ -34,6 +34,8 @@ def _parser() -> argparse.ArgumentParser:
 
     plan = sub.add_parser("plan", help="run a job end to end and write the plan", epilog=EXIT_CODES)
     common(plan, many=True)
+    plan.add_argument("--parallel", type=int, default=1, metavar="N",
+                      help="run up to N jobs of a batch, or N scenarios of a job, at once in separate processes")
     plan.add_argument("--queue", default=None, metavar="FILE",
                       help="queue state file of a batch (default siting_queue.json in the jobs' folder)")
     plan.add_argument("--fresh", action="store_true", help="ignore the stage cache and recompute everything")
@@ -128,7 +130,8 @@ def _batch(args) -> int:
     from .batch import run_batch, summary_text
 
     result = run_batch(args.job, args.overrides, queue_file=args.queue, fresh=args.fresh, workers=args.workers,
-                       scheduler=args.scheduler, progress=bool(args.progress) and not args.quiet, log=_say(args))
+                       scheduler=args.scheduler, progress=bool(args.progress) and not args.quiet, log=_say(args),
+                       parallel=args.parallel)
     if not args.quiet:
         print(summary_text(result))
     for row in result.rows:
@@ -142,7 +145,7 @@ def _scenarios(args, path) -> int:
     from .scenarios import run_scenarios
 
     result = run_scenarios(path, args.overrides, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
-                           progress=bool(args.progress) and not args.quiet, log=_say(args))
+                           progress=bool(args.progress) and not args.quiet, log=_say(args), parallel=args.parallel)
     for r in result.runs:
         if not r.ok:
             print(f"siting: scenario {r.name} failed: {r.error}", file=sys.stderr)

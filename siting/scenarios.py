@@ -13,6 +13,7 @@ dotted keys::
     "radio.frequency_ghz" = 39.0         # a quoted dotted key works too
     time_limit_s = 30.0                  # shorthand of solver.time_limit_s (also optimise.time_limit_s)
     checks = true                        # compute the field checks for this scenario (default: off)
+    sweep = true                         # draw its own coverage-versus-budget curve (default: off)
 
 Every scenario runs through :func:`siting.runner.run` with one stage cache (``<output.folder>/.cache``), so
 scenarios whose inputs match share stages: a budget scenario takes candidates, visibility and gains from the cache
@@ -32,6 +33,7 @@ common job fingerprint; scenarios that change the candidate spots are listed as 
 from __future__ import annotations
 
 import copy
+import itertools
 import json
 import re
 import time
@@ -51,17 +53,19 @@ from .verdicts import FINGERPRINT_COLUMN, VERDICT_COLUMNS
 _NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 _ALIASES = {("time_limit_s",): ("solver", "time_limit_s"), ("optimise", "time_limit_s"): ("solver", "time_limit_s"),
             ("optimize", "time_limit_s"): ("solver", "time_limit_s")}
-_OPTIONS = ("name", "checks", "description")
+_OPTIONS = ("name", "checks", "sweep", "description")
 
 
 @dataclass(frozen=True)
 class Scenario:
-    """One scenario: a name, overrides as (section, key, value), and whether to compute the field checks."""
+    """One scenario: a name, overrides as (section, key, value), whether to compute the field checks and the
+    coverage-versus-budget curve (the scenarios themselves compare budgets; off unless set)."""
 
     name: str
     overrides: tuple[tuple[str, str, Any], ...]
     checks: bool = False
     description: str = ""
+    sweep: bool = False
 
 
 def _flatten(table: dict, where: str, problems: list[str]) -> list[tuple[str, str, Any]]:
@@ -102,11 +106,11 @@ def parse_scenarios(tables: Any, source: str) -> list[Scenario]:
         if name in seen:
             problems.append(f"{where}: duplicate scenario name {name!r}; give every scenario its own name")
         seen.add(name)
-        checks = t.get("checks", False)
-        if not isinstance(checks, bool):
-            problems.append(f"{where}.checks: expected true or false, got {checks!r}")
-        out.append(Scenario(name, tuple(_flatten(t, f"{where} ({name})", problems)), bool(checks),
-                            str(t.get("description", ""))))
+        for flag in ("checks", "sweep"):
+            if not isinstance(t.get(flag, False), bool):
+                problems.append(f"{where}.{flag}: expected true or false, got {t[flag]!r}")
+        out.append(Scenario(name, tuple(_flatten(t, f"{where} ({name})", problems)), bool(t.get("checks", False)),
+                            str(t.get("description", "")), bool(t.get("sweep", False))))
     if problems:
         raise JobError(problems, source)
     return out
@@ -164,6 +168,10 @@ def scenario_job(raw: dict, scenario: Scenario, job_path: Path, base_out: Path) 
     if isinstance(job["output"], dict):
         job["output"]["folder"] = str(base_out / "scenarios" / scenario.name)
     _apply(job, scenario.overrides)
+    budget = job.get("budget")
+    if not scenario.sweep and isinstance(budget, dict) and not any(k == "sweep_budgets" for _, k, _ in scenario.overrides):
+        cost = budget.get("max_cost")  # the curve shrinks to the plan's own point (no extra solves)
+        budget["sweep_budgets"] = [cost] if isinstance(cost, (int, float)) and cost > 0 else []
     return Job.from_dict(job, base_dir=job_path.parent, source=f"{job_path} scenario {scenario.name!r}")
 
 
@@ -308,9 +316,32 @@ class ScenarioResult:
         return out
 
 
+def process_pool(parallel: int):
+    """A pool of ``parallel`` fresh interpreter processes ('spawn': no state forked from solver threads)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    return ProcessPoolExecutor(max_workers=parallel, mp_context=multiprocessing.get_context("spawn"))
+
+
+def _pooled(fn, calls: list[tuple[tuple, dict]], parallel: int, on_failure):
+    """``fn(*args, **kw)`` for each call, in order; in ``parallel`` processes when above 1 (results in order)."""
+    if parallel <= 1 or len(calls) < 2:
+        for args, kw in calls:
+            yield fn(*args, **kw)
+        return
+    with process_pool(min(parallel, len(calls))) as pool:
+        futures = [pool.submit(fn, *args, **kw) for args, kw in calls]
+        for (args, _), fut in zip(calls, futures):
+            try:
+                yield fut.result()
+            except Exception as exc:  # noqa: BLE001 - a crashed worker fails its own item only
+                yield on_failure(args, exc)
+
+
 def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, fresh: bool = False, workers: int = 0,
                   scheduler: str | None = None, progress: bool = False, checks: bool | None = None,
-                  write: bool = True, log=None) -> ScenarioResult:
+                  write: bool = True, log=None, parallel: int = 1) -> ScenarioResult:
     """Run every scenario of a job file (one after another, one shared stage cache) and compare them.
 
     Parameters
@@ -329,16 +360,22 @@ def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, f
         Write the comparison files into the job's output folder.
     log : callable, optional
         Receives one line per finished scenario.
+    parallel : int
+        Run up to this many scenarios at once, each in its own process, once the first scenario has filled the
+        shared cache (1: one after another).
     """
     job_path = Path(job_path)
     raw, scenarios = read_scenarios(job_path, overrides)
     if not scenarios:
         raise JobError("no scenarios: add [[scenarios]] tables or inputs.scenarios to the job", str(job_path))
     base_out = base_output_folder(raw, job_path)
+    kw = dict(workers=workers, scheduler=scheduler, progress=progress and parallel <= 1, checks=checks)
+    first = run_one(raw, scenarios[0], job_path, base_out, fresh=fresh, **kw)  # fills the shared cache
+    rest = _pooled(run_one, [((raw, sc, job_path, base_out), kw) for sc in scenarios[1:]], parallel,
+                   lambda args, exc: ScenarioRun(args[1].name, False, 1, f"worker process failed: {exc}",
+                                                 {"status": "failed"}))
     runs = []
-    for i, sc in enumerate(scenarios):
-        r = run_one(raw, sc, job_path, base_out, fresh=fresh and i == 0, workers=workers, scheduler=scheduler,
-                    progress=progress, checks=checks)
+    for sc, r in zip(scenarios, itertools.chain([first], rest)):
         runs.append(r)
         if log is not None:
             log(f"scenario {sc.name}: " + (f"{r.row['surfaces']} surface(s), cost {r.row['cost']:,.0f}, "

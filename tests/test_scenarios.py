@@ -128,3 +128,16 @@ def test_summary_says_which_plans_are_proven_and_which_stopped_at_a_gap(tmp_path
                          {"job": "/x/c.toml", "status": "failed", "exit_code": 3, "error": "no usable plan"}])
     text = summary_text(batch)
     assert "| a.toml | ok |" in text and "stopped at gap 1.00 %" in text and batch.exit_code == 3
+
+
+def test_parallel_scenarios_give_the_same_plans(scenario_run, tmp_path):
+    """Scenarios in two processes (after the first fills the cache) choose exactly what the sequential run chose."""
+    sequential, _ = scenario_run
+    job = small_job(tmp_path, extra=SCENARIOS)
+    parallel = run_scenarios(job, parallel=2)
+    assert [r.name for r in parallel.runs] == [r.name for r in sequential.runs]
+    for a, b in zip(sequential.runs, parallel.runs):
+        assert a.ok == b.ok and a.exit_code == b.exit_code
+        if a.ok:
+            assert sorted(a.chosen["site_id"]) == sorted(b.chosen["site_id"]) and b.recomputed == a.recomputed
+    pd.testing.assert_frame_equal(sequential.robustness, parallel.robustness)
