@@ -302,7 +302,7 @@ def _log_handler(out_dir: Path) -> logging.Handler:
 
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
-        cache_dir: str | Path | None = None, checks: bool = True) -> RunResult:
+        cache_dir: str | Path | None = None, checks: bool = True, cache: StageCache | None = None) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -325,6 +325,9 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     checks : bool
         Compute the chosen surfaces' field checks and the model sensitivity (``False``: both None; scenario runs
         may skip them, see :mod:`siting.scenarios`).
+    cache : StageCache, optional
+        The stage cache object to use instead of one at ``cache_dir`` (the scenarios of a job share one that also
+        keeps its entries in memory).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
     out_dir = Path(job.output.folder)
@@ -333,7 +336,8 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     if handler is not None:
         log.addHandler(handler)
     log.setLevel(logging.INFO)
-    ctx = _Context(job, StageParams.from_job(job), StageCache(cache_root, log=log.warning, read=not fresh),
+    cache = cache if cache is not None else StageCache(cache_root, log=log.warning, read=not fresh)
+    ctx = _Context(job, StageParams.from_job(job), cache,
                    progress, _bar(progress, total=5 if write else 4, desc="load"))
     try:
         log.info("siting %s: job started, output folder %s", __version__, out_dir)

@@ -14,11 +14,14 @@ dotted keys::
     time_limit_s = 30.0                  # shorthand of solver.time_limit_s (also optimise.time_limit_s)
     checks = true                        # compute the field checks for this scenario (default: off)
     sweep = true                         # draw its own coverage-versus-budget curve (default: off)
+    outputs = "full"                     # its whole output set (default "light": run.json and survey.csv)
 
 Every scenario runs through :func:`siting.runner.run` with one stage cache (``<output.folder>/.cache``), so
 scenarios whose inputs match share stages: a budget scenario takes candidates, visibility and gains from the cache
-and solves only.  A scenario whose job is invalid or that fails is recorded with its error; the others run.  Each
-writes its output set into ``<output.folder>/scenarios/<name>/``; the comparison goes into ``<output.folder>``:
+(in memory when the scenarios run in one process) and solves only.  A scenario whose job is invalid or that fails
+is recorded with its error; the others run.  Each writes its output set into ``<output.folder>/scenarios/<name>/`` (``light`` by default: ``run.json`` and
+``survey.csv``, see :mod:`siting.scenario_outputs`; ``outputs = "full"`` for all layers, maps and reports); the
+comparison goes into ``<output.folder>``:
 
 - ``scenarios.md`` / ``scenarios.html`` / ``scenarios.json``: per scenario its status, surfaces, cost, covered
   weight and share, bound and gap (proven optimal or stopped at a gap), time; per site its robustness (in how many
@@ -53,7 +56,7 @@ from .verdicts import FINGERPRINT_COLUMN, VERDICT_COLUMNS
 _NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 _ALIASES = {("time_limit_s",): ("solver", "time_limit_s"), ("optimise", "time_limit_s"): ("solver", "time_limit_s"),
             ("optimize", "time_limit_s"): ("solver", "time_limit_s")}
-_OPTIONS = ("name", "checks", "sweep", "description")
+_OPTIONS = ("name", "checks", "sweep", "outputs", "description")
 
 
 @dataclass(frozen=True)
@@ -66,6 +69,7 @@ class Scenario:
     checks: bool = False
     description: str = ""
     sweep: bool = False
+    outputs: str = "light"
 
 
 def _flatten(table: dict, where: str, problems: list[str]) -> list[tuple[str, str, Any]]:
@@ -109,8 +113,10 @@ def parse_scenarios(tables: Any, source: str) -> list[Scenario]:
         for flag in ("checks", "sweep"):
             if not isinstance(t.get(flag, False), bool):
                 problems.append(f"{where}.{flag}: expected true or false, got {t[flag]!r}")
+        if t.get("outputs", "light") not in ("light", "full"):
+            problems.append(f"{where}.outputs: {t['outputs']!r} is not allowed; use \"light\" or \"full\"")
         out.append(Scenario(name, tuple(_flatten(t, f"{where} ({name})", problems)), bool(t.get("checks", False)),
-                            str(t.get("description", "")), bool(t.get("sweep", False))))
+                            str(t.get("description", "")), bool(t.get("sweep", False)), t.get("outputs", "light")))
     if problems:
         raise JobError(problems, source)
     return out
@@ -241,15 +247,25 @@ def _row(result, seconds: float) -> dict:
 
 
 def run_one(raw: dict, scenario: Scenario, job_path: Path, base_out: Path, *, fresh: bool = False, workers: int = 0,
-            scheduler: str | None = None, progress: bool = False, checks: bool | None = None) -> ScenarioRun:
-    """Run one scenario with the shared stage cache; a failure is returned, not raised."""
+            scheduler: str | None = None, progress: bool = False, checks: bool | None = None,
+            outputs: str | None = None, cache=None) -> ScenarioRun:
+    """Run one scenario with the shared stage cache; a failure is returned, not raised.
+
+    ``cache`` is the shared :class:`~siting.scenario_outputs.MemoryStageCache` (default: a new one on
+    ``<base_out>/.cache``); ``checks`` and ``outputs`` override the scenario's own settings.
+    """
     from .runner import run
+    from .scenario_outputs import MemoryStageCache, write_light
 
     t0 = time.perf_counter()
+    cache = cache if cache is not None else MemoryStageCache(base_out / ".cache", read=not fresh)
+    light = (outputs or scenario.outputs) == "light"
     try:
         job = scenario_job(raw, scenario, job_path, base_out)
-        result = run(job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress,
-                     cache_dir=base_out / ".cache", checks=scenario.checks if checks is None else checks)
+        result = run(job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress, write=not light,
+                     cache=cache, checks=scenario.checks if checks is None else checks)
+        if light:
+            write_light(result)
     except SitingError as exc:
         return ScenarioRun(scenario.name, False, exc.exit_code, str(exc), {"status": "failed"})
     except Exception as exc:  # noqa: BLE001 - one failing scenario must not stop the others
@@ -341,7 +357,7 @@ def _pooled(fn, calls: list[tuple[tuple, dict]], parallel: int, on_failure):
 
 def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, fresh: bool = False, workers: int = 0,
                   scheduler: str | None = None, progress: bool = False, checks: bool | None = None,
-                  write: bool = True, log=None, parallel: int = 1) -> ScenarioResult:
+                  write: bool = True, log=None, parallel: int = 1, outputs: str | None = None) -> ScenarioResult:
     """Run every scenario of a job file (one after another, one shared stage cache) and compare them.
 
     Parameters
@@ -362,15 +378,24 @@ def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, f
         Receives one line per finished scenario.
     parallel : int
         Run up to this many scenarios at once, each in its own process, once the first scenario has filled the
-        shared cache (1: one after another).
+        shared cache (1: one after another, sharing the cache in memory too).
+    outputs : str, optional
+        "light" or "full" output sets for every scenario (default: each scenario's own, "light" unless set).
     """
     job_path = Path(job_path)
     raw, scenarios = read_scenarios(job_path, overrides)
     if not scenarios:
         raise JobError("no scenarios: add [[scenarios]] tables or inputs.scenarios to the job", str(job_path))
     base_out = base_output_folder(raw, job_path)
-    kw = dict(workers=workers, scheduler=scheduler, progress=progress and parallel <= 1, checks=checks)
-    first = run_one(raw, scenarios[0], job_path, base_out, fresh=fresh, **kw)  # fills the shared cache
+    from .scenario_outputs import MemoryStageCache
+
+    kw: dict[str, Any] = dict(workers=workers, scheduler=scheduler, progress=progress and parallel <= 1, checks=checks,
+                              outputs=outputs)
+    cache = MemoryStageCache(base_out / ".cache", read=not fresh)
+    first = run_one(raw, scenarios[0], job_path, base_out, fresh=fresh, cache=cache, **kw)  # fills the cache
+    cache.read = True
+    if parallel <= 1:
+        kw["cache"] = cache  # (a process pool gets its own per scenario: it shares the entries on disk)
     rest = _pooled(run_one, [((raw, sc, job_path, base_out), kw) for sc in scenarios[1:]], parallel,
                    lambda args, exc: ScenarioRun(args[1].name, False, 1, f"worker process failed: {exc}",
                                                  {"status": "failed"}))

@@ -33,6 +33,7 @@ budget.max_cost = -5.0
 [[scenarios]]
 name = "two-panels"
 budget = { max_panels = 2 }
+outputs = "full"
 """
 
 
@@ -60,6 +61,9 @@ def test_a_failing_scenario_does_not_stop_the_others(scenario_run):
     for n in ("b10k", "b20k", "b15k", "two-panels"):
         assert (out / "scenarios" / n / "run.json").is_file()
     assert not (out / "scenarios" / "broken").exists()
+    # light output sets by default (run.json and survey.csv), the whole set on request
+    assert sorted(p.name for p in (out / "scenarios" / "b10k").iterdir()) == ["run.json", "survey.csv"]
+    assert (out / "scenarios" / "two-panels" / "report.html").is_file()
     # the overrides took effect: budgets, a panel count and a per-scenario time limit
     assert runs["b10k"].row["cost"] <= 10000 + 1e-6 and runs["two-panels"].row["surfaces"] <= 2
     assert runs["b15k"].row["time_limit_s"] == 30.0 and runs["b20k"].row["time_limit_s"] == 60.0
