@@ -9,8 +9,9 @@ one ``inputs.previous_plan`` names (a ``run.json`` or a folder holding one).  Ea
 - ``added``: only in the new plan: ``moved here`` (the spot of a moved site) or ``re-optimised``.
 
 Site ids compare only within one candidate set: when the job fingerprints differ the diff says so and lists
-nothing.  The next survey list (``survey.csv``) holds only the sites still to visit (accepted ones and the spots of moved ones are done), with
-their backups, the job fingerprint and empty verdict columns for the field teams (see :mod:`siting.verdicts`).
+nothing.  The next survey list (``survey.csv``) holds only the sites still to visit (accepted ones and the spots
+of moved ones are done), with their backups, the job fingerprint and empty verdict columns for the field teams
+(see :mod:`siting.verdicts`).
 """
 
 from __future__ import annotations
@@ -132,7 +133,8 @@ def field_run_info(result) -> dict[str, Any]:
     opts = result.gains.options
     rank = result.ranking.set_index("option")["rank"] if len(result.ranking) else pd.Series(dtype="int64")
     chosen = np.asarray(result.plan.chosen, np.int64)
-    new_sites = pd.DataFrame({"site_id": opts["site_id"].to_numpy()[chosen], "size_id": opts["size_id"].to_numpy()[chosen],
+    new_sites = pd.DataFrame({"site_id": opts["site_id"].to_numpy()[chosen],
+                              "size_id": opts["size_id"].to_numpy()[chosen],
                               "rank": rank.reindex(chosen).to_numpy()})
     out: dict[str, Any] = {"job_fingerprint": fp,
                            "plan_diff": plan_diff(read_previous_plan(prev_path), new_sites, fp, opts, fctx)}

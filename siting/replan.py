@@ -136,7 +136,8 @@ def _rank(fixed, residual, cover, weight, w_res) -> pd.DataFrame:
     a = opt.rank_chosen(fixed, cover, weight)
     b = opt.rank_chosen(residual, cover, w_res)
     if len(a) and len(b):
-        b = b.assign(rank=b["rank"] + len(a), cumulative_weight=b["cumulative_weight"] + a["cumulative_weight"].iloc[-1])
+        b = b.assign(rank=b["rank"] + len(a),
+                     cumulative_weight=b["cumulative_weight"] + a["cumulative_weight"].iloc[-1])
     return pd.concat([x for x in (a, b) if len(x)], ignore_index=True) if len(a) or len(b) else a
 
 
@@ -185,7 +186,8 @@ def replan_stage(gains, sites: pd.DataFrame, sizes: pd.DataFrame, users: pd.Data
             sweep = _sweep(sp.csr_array(cover)[free], w_res, cost[free], option_site[free], info["residual_plan"],
                            q_res, dict(kw, conflicts=sub_conf, load_cap=q.load_cap_weight))
         if sweep is not None:
-            sweep = sweep.assign(budget=sweep["budget"] + fc, covered_weight=sweep["covered_weight"] + info["fixed_weight"],
+            sweep = sweep.assign(budget=sweep["budget"] + fc,
+                                 covered_weight=sweep["covered_weight"] + info["fixed_weight"],
                                  bound=sweep["bound"] + info["fixed_weight"], cost=sweep["cost"] + fc,
                                  n_sites=sweep["n_sites"] + len(r.fixed))
     return plan, ranking, backups, sweep

@@ -19,9 +19,10 @@ dotted keys::
 Every scenario runs through :func:`siting.runner.run` with one stage cache (``<output.folder>/.cache``), so
 scenarios whose inputs match share stages: a budget scenario takes candidates, visibility and gains from the cache
 (in memory when the scenarios run in one process) and solves only.  A scenario whose job is invalid or that fails
-is recorded with its error; the others run.  Each writes its output set into ``<output.folder>/scenarios/<name>/`` (``light`` by default: ``run.json`` and
-``survey.csv``, see :mod:`siting.scenario_outputs`; ``outputs = "full"`` for all layers, maps and reports); the
-comparison goes into ``<output.folder>``:
+is recorded with its error; the others run.  Each writes its output set into
+``<output.folder>/scenarios/<name>/`` (``light`` by default: ``run.json`` and ``survey.csv``, see
+:mod:`siting.scenario_outputs`; ``outputs = "full"`` for all layers, maps and reports); the comparison goes into
+``<output.folder>``:
 
 - ``scenarios.md`` / ``scenarios.html`` / ``scenarios.json``: per scenario its status, surfaces, cost, covered
   weight and share, bound and gap (proven optimal or stopped at a gap), time; per site its robustness (in how many
@@ -175,7 +176,8 @@ def scenario_job(raw: dict, scenario: Scenario, job_path: Path, base_out: Path) 
         job["output"]["folder"] = str(base_out / "scenarios" / scenario.name)
     _apply(job, scenario.overrides)
     budget = job.get("budget")
-    if not scenario.sweep and isinstance(budget, dict) and not any(k == "sweep_budgets" for _, k, _ in scenario.overrides):
+    own_sweep = any(k == "sweep_budgets" for _, k, _ in scenario.overrides)
+    if not scenario.sweep and isinstance(budget, dict) and not own_sweep:
         cost = budget.get("max_cost")  # the curve shrinks to the plan's own point (no extra solves)
         budget["sweep_budgets"] = [cost] if isinstance(cost, (int, float)) and cost > 0 else []
     return Job.from_dict(job, base_dir=job_path.parent, source=f"{job_path} scenario {scenario.name!r}")
@@ -229,7 +231,8 @@ def _chosen_table(result) -> pd.DataFrame:
     lon, lat = to_lonlat(s["x"].to_numpy(float), s["y"].to_numpy(float), result.district.crs)
     return pd.DataFrame({
         "site_id": s.index.to_numpy(np.int64), "size_id": o["size_id"].to_numpy()[chosen].astype(str),
-        "rank": rk["rank"].reindex(chosen).to_numpy(), "weight_gained": rk["marginal_weight"].reindex(chosen).to_numpy(),
+        "rank": rk["rank"].reindex(chosen).to_numpy(),
+        "weight_gained": rk["marginal_weight"].reindex(chosen).to_numpy(),
         "lon": np.round(np.asarray(lon, float), 7), "lat": np.round(np.asarray(lat, float), 7),
         "building_id": s["building_id"].astype(str).to_numpy(), "facing_deg": s["normal_az_deg"].to_numpy(float),
         "mount_height_m": s["z_m"].to_numpy(float)})

@@ -13,7 +13,8 @@ def small_job(folder: Path, name: str = "job", *, max_cost: float = 20000.0, ext
     """The demo job clipped to about 230 m x 220 m (one mounting height, 10 m spacing); returns the job path."""
     text = (DEMO / "job.toml").read_text()
     text = text.replace('buildings = "buildings.geojson"', f'buildings = "{DEMO / "buildings.geojson"}"')
-    text = text.replace('base_stations = "base_stations.geojson"', f'base_stations = "{DEMO / "base_stations.geojson"}"')
+    text = text.replace('base_stations = "base_stations.geojson"',
+                        f'base_stations = "{DEMO / "base_stations.geojson"}"')
     text = text.replace("[inputs]", "[area]\nbbox = [1.9070, 46.8125, 1.9100, 46.8145]\n\n[inputs]", 1)
     text = text.replace("spacing_m = 5.0", "spacing_m = 10.0").replace("mount_heights_m = [4.0, 8.0]",
                                                                       "mount_heights_m = [6.0]")

@@ -22,7 +22,8 @@ from siting.verdicts import read_verdicts, solve_with_verdicts
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_JOB = ROOT / "demo_district" / "job.toml"
 #: A corner of the demo town (about 230 m x 220 m): the pipeline in a few seconds.
-SMALL = ["area.bbox=[1.9070, 46.8125, 1.9100, 46.8145]", "candidates.spacing_m=10.0", "candidates.mount_heights_m=[6.0]",
+SMALL = ["area.bbox=[1.9070, 46.8125, 1.9100, 46.8145]", "candidates.spacing_m=10.0",
+         "candidates.mount_heights_m=[6.0]",
          "budget.max_cost=20000.0", "budget.sweep_budgets=[]"]
 
 
