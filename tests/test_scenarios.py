@@ -146,3 +146,21 @@ def test_parallel_scenarios_give_the_same_plans(scenario_run, tmp_path):
         if a.ok:
             assert sorted(a.chosen["site_id"]) == sorted(b.chosen["site_id"]) and b.recomputed == a.recomputed
     pd.testing.assert_frame_equal(sequential.robustness, parallel.robustness)
+
+
+def test_cli_runs_the_scenarios_of_a_job(tmp_path):
+    import subprocess
+    import sys
+
+    from .field_jobs import ROOT
+
+    job = small_job(tmp_path, extra='[[scenarios]]\nname = "ok"\n\n'
+                                    '[[scenarios]]\nname = "bad"\nradio.frequncy_ghz = 3.0\n')
+    proc = subprocess.run([sys.executable, "-c", "import sys; from siting.cli import main; sys.exit(main())", "plan",
+                           str(job), "--set", "budget.max_cost=8000.0"], capture_output=True, text=True, timeout=600,
+                          cwd=ROOT)
+    assert proc.returncode == 2, proc.stderr
+    assert "scenario bad failed" in proc.stderr and "did you mean 'frequency_ghz'" in proc.stderr
+    assert "scenario ok: " in proc.stdout and "proven optimal" in proc.stdout
+    record = json.loads((tmp_path / "out" / "scenarios" / "ok" / "run.json").read_text())
+    assert record["parameters"]["budget"]["max_cost"] == 8000.0  # --set reaches every scenario
