@@ -211,3 +211,37 @@ def test_cli_bad_survey_results_exit_2(round_trip, tmp_path):
                           capture_output=True, text=True, timeout=300, cwd=ROOT)
     assert proc.returncode == 2, proc.stderr
     assert "line 2" in proc.stderr and "measured_lon" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_load_cap_replan_is_flagged_approximate():
+    cover, weight, cost, option_site, conflicts, keep, fixed = _instance(3)
+    assert len(fixed)
+    plan, info = solve_with_verdicts(sp.csr_array(cover), weight, cost, option_site, keep, fixed, budget=9.0,
+                                     conflicts=conflicts, load_cap=3.0)
+    assert not info["exact"] and any("approximate" in n for n in info["notes"])
+    assert set(fixed) <= set(np.asarray(plan.chosen).tolist())
+
+
+def test_plan_diff_names_every_reason():
+    """Each previous site's fate from the option reasons; a previous plan of another candidate set is refused."""
+    from types import SimpleNamespace
+
+    from siting.plandiff import plan_diff
+    from siting.verdicts import Restriction
+
+    options = pd.DataFrame({"site_id": [1, 1, 2, 3, 4, 5, 6, 7, 8]})
+    why = np.array(["", "", "rejected", "wall rejected", "moved", "", "", "", "panel too large"])
+    ctx = SimpleNamespace(restriction=Restriction(why == "", why, np.array([0])), accepted_sites=lambda: [1, 7],
+                          moved_to=lambda: {4: 7})
+    previous = {"_path": "prev/run.json", "run_info": {"job_fingerprint": "abc"},
+                "sites": [{"site_id": s, "size_id": "M", "rank": i + 1} for i, s in enumerate([1, 2, 3, 4, 5, 8])]}
+    new = pd.DataFrame({"site_id": [1, 6, 7], "size_id": ["L", "S", "M"], "rank": [1, 2, 3]})
+    diff = plan_diff(previous, new, "abc", options, ctx)
+    got = {r["site_id"]: (r["change"], r["reason"]) for r in diff["sites"]}
+    assert got == {1: ("kept", "settled in the field; size M -> L"), 2: ("dropped", "rejected"),
+                   3: ("dropped", "wall rejected"), 4: ("dropped", "moved to spot 7"), 5: ("dropped", "re-optimised"),
+                   6: ("added", "re-optimised"), 7: ("added", "moved here from site 4"),
+                   8: ("dropped", "panel too large")}
+    assert diff["counts"] == {"kept": 1, "dropped": 5, "added": 2}
+    other = plan_diff(previous, new, "xyz", options, ctx)
+    assert not other["comparable"] and "another candidate set" in other["reason"] and other["sites"] == []
