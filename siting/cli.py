@@ -104,7 +104,9 @@ def _dispatch(args) -> int:
         for message in notes:
             if message not in district.notes:  # the summary lists the notes already
                 print(f"warning: {message}")
-        return 0
+        from .scenarios import validate_scenarios
+
+        return validate_scenarios(args.job, args.overrides, print)
     from .runner import run
 
     progress = sys.stderr.isatty() if args.progress is None else args.progress
@@ -117,6 +119,10 @@ def _dispatch(args) -> int:
         print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}, weight newly covered "
               f"{plan.objective:,.1f} (before {covered_before:,.1f} of {total:,.1f}); solver {plan.status}, "
               f"gap {plan.gap:.2%}")
+        from .plandiff import cli_lines
+
+        for line in cli_lines(result.outputs.get("run_json")):  # field verdicts and changes (siting.plandiff)
+            print(line)
         print(f"outputs in {job.output.folder}")
     return 0
 

@@ -197,3 +197,23 @@ def report_html_section(record: dict) -> str:
                  + "".join("<tr>" + "".join(f"<td>{esc(c)}</td>" for c in r) + "</tr>" for r in rows)
                  + "</tbody></table>")
     return f"<h2>Changes against the previous plan</h2><p>{esc(_sentence(diff))}</p>{table}"
+
+
+def cli_lines(run_json: str | Path | None) -> list[str]:
+    """What ``siting plan`` prints about the verdicts and the changes, read back from the run.json written."""
+    try:
+        info = json.loads(Path(str(run_json)).read_text(encoding="utf-8")).get("run_info") or {}
+    except (OSError, ValueError, TypeError):
+        return []
+    out = []
+    field_info = info.get("field")
+    if field_info:
+        c = field_info["counts"]
+        out.append(f"field verdicts: {c['accepted']} accepted, {c['moved']} moved, {c['rejected']} rejected "
+                   f"({field_info['walls_rejected']} whole wall(s)), {c['pending']} pending")
+    diff = info.get("plan_diff") or {}
+    if diff.get("comparable"):
+        c = diff["counts"]
+        out.append(f"against the previous plan: {c['kept']} kept, {c['dropped']} dropped, {c['added']} added "
+                   "(report.md lists why)")
+    return out

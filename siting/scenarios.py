@@ -183,6 +183,24 @@ def scenario_job(raw: dict, scenario: Scenario, job_path: Path, base_out: Path) 
     return Job.from_dict(job, base_dir=job_path.parent, source=f"{job_path} scenario {scenario.name!r}")
 
 
+def validate_scenarios(job_path: str | Path, overrides: list[str] | None = None, say=print) -> int:
+    """Check every scenario's job (``siting validate``): 0 when all are valid (or there are none), else 2."""
+    if not has_scenarios(job_path):
+        return 0
+    job_path = Path(job_path)
+    raw, scenarios = read_scenarios(job_path, overrides)
+    base_out = base_output_folder(raw, job_path)
+    worst = 0
+    for sc in scenarios:
+        try:
+            scenario_job(raw, sc, job_path, base_out)
+            say(f"scenario {sc.name}: valid")
+        except JobError as exc:
+            say(f"scenario {sc.name}: {exc}")
+            worst = exc.exit_code
+    return worst
+
+
 # ------------------------------------------------------------------------------------------------ running
 @dataclass
 class ScenarioRun:

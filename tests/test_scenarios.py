@@ -164,3 +164,12 @@ def test_cli_runs_the_scenarios_of_a_job(tmp_path):
     assert "scenario ok: " in proc.stdout and "proven optimal" in proc.stdout
     record = json.loads((tmp_path / "out" / "scenarios" / "ok" / "run.json").read_text())
     assert record["parameters"]["budget"]["max_cost"] == 8000.0  # --set reaches every scenario
+
+
+def test_validate_checks_every_scenario(tmp_path):
+    from siting.scenarios import validate_scenarios
+
+    job = small_job(tmp_path, extra='[[scenarios]]\nname = "ok"\n\n[[scenarios]]\nname = "bad"\nbudget.max_cst = 1.0\n')
+    said: list[str] = []
+    assert validate_scenarios(job, say=said.append) == 2
+    assert said[0] == "scenario ok: valid" and "did you mean 'max_cost'" in said[1]
