@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from . import __version__
 from .errors import SitingError
@@ -21,8 +22,12 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"siting {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
-    def common(p):
-        p.add_argument("job", help="job file (TOML)")
+    def common(p, many=False):
+        if many:
+            p.add_argument("job", nargs="+", help="job file (TOML); several files or a folder of them run as a "
+                           "resumable queue (siting.batch)")
+        else:
+            p.add_argument("job", help="job file (TOML)")
         p.add_argument("--set", dest="overrides", action="append", default=[], metavar="SECTION.KEY=VALUE",
                        help="override a job key, e.g. --set budget.max_cost=20000 (repeatable)")
         p.add_argument("--debug", action="store_true", help="show the traceback of an error")
@@ -30,7 +35,11 @@ def _parser() -> argparse.ArgumentParser:
                        help="write into an output folder holding files no siting run created")
 
     plan = sub.add_parser("plan", help="run a job end to end and write the plan", epilog=EXIT_CODES)
-    common(plan)
+    common(plan, many=True)
+    plan.add_argument("--parallel", type=int, default=1, metavar="N",
+                      help="run up to N jobs of a batch, or N scenarios of a job, at once in separate processes")
+    plan.add_argument("--queue", default=None, metavar="FILE",
+                      help="queue state file of a batch (default siting_queue.json in the jobs' folder)")
     plan.add_argument("--fresh", action="store_true", help="ignore the stage cache and recompute everything")
     plan.add_argument("--workers", type=int, default=0, metavar="N",
                       help="run the heavy stages on a local Dask cluster of N worker processes")
@@ -84,6 +93,16 @@ def _dispatch(args) -> int:
     if args.command == "keys":
         print(reference_markdown())
         return 0
+    if args.command == "plan":
+        from .batch import expand_jobs
+        from .scenarios import has_scenarios
+
+        jobs = expand_jobs(args.job)
+        if len(jobs) > 1 or Path(args.job[0]).is_dir():
+            return _batch(args)
+        if has_scenarios(jobs[0]):
+            return _scenarios(args, jobs[0])
+        args.job = str(jobs[0])
     from .preflight import check_district, check_job
 
     job = Job.from_toml(args.job, args.overrides)
@@ -101,7 +120,9 @@ def _dispatch(args) -> int:
         for message in notes:
             if message not in district.notes:  # the summary lists the notes already
                 print(f"warning: {message}")
-        return 0
+        from .scenarios import validate_scenarios
+
+        return validate_scenarios(args.job, args.overrides, print)
     from .runner import run
 
     result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
@@ -114,8 +135,45 @@ def _dispatch(args) -> int:
         print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}, weight newly covered "
               f"{plan.objective:,.1f} (before {covered_before:,.1f} of {total:,.1f}); solver {plan.status}, "
               f"gap {plan.gap:.2%}")
+        from .plandiff import cli_lines
+
+        for line in cli_lines(result.outputs.get("run_json")):  # field verdicts and changes (siting.plandiff)
+            print(line)
         print(f"outputs in {job.output.folder}")
     return 0
+
+
+def _say(args):
+    return (lambda line: None) if args.quiet else (lambda line: print(line, flush=True))
+
+
+def _batch(args) -> int:
+    """Several jobs (or a folder): the resumable queue of :mod:`siting.batch`; exit code of the worst job."""
+    from .batch import run_batch, summary_text
+
+    result = run_batch(args.job, args.overrides, queue_file=args.queue, fresh=args.fresh, workers=args.workers,
+                       scheduler=args.scheduler, progress=bool(args.progress) and not args.quiet, log=_say(args),
+                       parallel=args.parallel)
+    if not args.quiet:
+        print(summary_text(result))
+    for row in result.rows:
+        if row["status"] == "failed":
+            print(f"siting: error in {row['job']}: {row['error']}", file=sys.stderr)
+    return result.exit_code
+
+
+def _scenarios(args, path) -> int:
+    """A job with scenarios (:mod:`siting.scenarios`); exit code of the worst scenario."""
+    from .scenarios import run_scenarios
+
+    result = run_scenarios(path, args.overrides, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
+                           progress=bool(args.progress) and not args.quiet, log=_say(args), parallel=args.parallel)
+    for r in result.runs:
+        if not r.ok:
+            print(f"siting: scenario {r.name} failed: {r.error}", file=sys.stderr)
+    if not args.quiet:
+        print(f"comparison in {result.files.get('scenarios_md', '-')}")
+    return result.exit_code
 
 
 if __name__ == "__main__":

@@ -83,6 +83,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "users": Key("path", "", none="", doc="optional point layer of given demand points"),
         "user_weight_column": Key("str", "weight", doc="column of the users layer holding the demand weight"),
         "crs": Key("str", "", none="", doc="projected CRS for all metric work, e.g. 'EPSG:25832' ('' = local UTM zone)"),
+        "survey_results": Key("path", "", none="", doc="field verdicts: the survey list (CSV) with status, reason, "
+                              "measured position, largest panel and rejects_wall filled in; re-plans around them"),
+        "previous_plan": Key("path", "", none="", doc="run.json (or its folder) of the plan to compare with ('' = the "
+                             "output folder's run.json)"),
+        "scenarios": Key("path", "", none="", doc="TOML file of [[scenarios]] tables (name + overrides) to run "
+                         "besides those in the job"),
     },
     "area": {
         "bbox": Key("floats", [], "deg", none=[], doc="[min_lon, min_lat, max_lon, max_lat] clip box ([] = whole layer)"),
@@ -302,6 +308,8 @@ def parse_override(text: str) -> tuple[str, str, Any]:
 def _check_sections(raw: Mapping, job: dict, problems: list[str]) -> None:
     """Unknown sections and keys (with the nearest valid name), wrong types and ranges; copies values into ``job``."""
     for section, body in raw.items():
+        if section == "scenarios":  # [[scenarios]]: read by siting.scenarios, not part of one job
+            continue
         if section not in SCHEMA:
             problems.append(f"unknown section [{section}]{_nearest(section, SCHEMA).replace('keys', 'sections')}")
             continue

@@ -59,6 +59,8 @@ from .executor import _advance, _bar, _Executor
 from .gains import GainResult, RadioParams
 from .job import Job, load_job
 from .optimize import Plan
+from .plandiff import field_run_info
+from .replan import FIELD_INPUTS, prepare_field, replan_stage
 from .stages import (
     StageParams,
     _model_fit_warnings,
@@ -137,6 +139,7 @@ class RunResult:
     timings_s: dict[str, float] = field(default_factory=dict)
     recomputed: list[str] = field(default_factory=list)
     params: StageParams | None = None
+    field: Any = None  # the field verdicts' FieldContext (siting.replan) when inputs.survey_results is given
 
 
 # -------------------------------------------------------------------------------------------- orchestration
@@ -210,7 +213,8 @@ def _load(ctx: _Context) -> tuple[District, pd.DataFrame]:
 def _candidates(ctx: _Context, district: District, sizes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, str]:
     t0 = time.perf_counter()
     job = ctx.job.to_dict()
-    key = digest([__version__, sorted(district.input_hashes.items()), job["inputs"], job["area"],
+    inputs = {k: v for k, v in job["inputs"].items() if k not in FIELD_INPUTS}  # read after this stage
+    key = digest([__version__, sorted(district.input_hashes.items()), inputs, job["area"],
                   job["candidates"], job["demand"], sizes["width_m"].tolist()])
     hit = ctx.cache.load("candidates", key, expect=("sites", "users"))
     if hit:
@@ -264,11 +268,12 @@ def _gains(ctx: _Context, district, sites, sizes, users, cand_key: str, tile_m: 
     return gains, heights_m, gains_key
 
 
-def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
+def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str, sizes=None, field_ctx=None):
     t0 = time.perf_counter()
     job = ctx.job.to_dict()
     budget = {k: v for k, v in job["budget"].items() if k != "currency"}  # the currency is only printed
-    key = digest([gains_key, budget, job["solver"], job["surfaces"]["load_cap_weight"]])
+    key = digest([gains_key, budget, job["solver"], job["surfaces"]["load_cap_weight"],
+                  *([field_ctx.key()] if field_ctx is not None else [])])
     hit = ctx.cache.load("optimise", key, expect=("ranking", "backups", "covered"))
     if hit:
         tables, extras = hit
@@ -281,8 +286,13 @@ def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str):
     else:
         notes = []
         with capture_notes(notes):
-            plan, ranking, backups, sweep = optimise_stage(gains, sites, users, ctx.params.optimise,
-                                                           ctx.params.radio)
+            if field_ctx is None:
+                plan, ranking, backups, sweep = optimise_stage(gains, sites, users, ctx.params.optimise,
+                                                               ctx.params.radio)
+            else:  # around the field verdicts (siting.replan)
+                plan, ranking, backups, sweep = replan_stage(gains, sites, sizes, users, ctx.params.optimise,
+                                                             ctx.params.radio, field_ctx)
+                notes += [n for n in field_ctx.notes if n not in notes]
         tables = {"ranking": ranking, "backups": backups, "covered": pd.DataFrame({"covered": plan.covered})}
         if sweep is not None:
             tables["sweep"] = sweep
@@ -368,7 +378,8 @@ def _open_log(buffer: logging.handlers.BufferingHandler | None, out_dir: Path) -
 
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
-        cache_dir: str | Path | None = None, notices: bool | None = None, overwrite: bool = False) -> RunResult:
+        cache_dir: str | Path | None = None, notices: bool | None = None, overwrite: bool = False,
+        checks: bool = True, cache: StageCache | None = None) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -394,6 +405,12 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     overwrite : bool
         Write into an output folder holding files that no siting run created (see
         :func:`siting.preflight.check_job`, which runs first).
+    checks : bool
+        Compute the chosen surfaces' field checks and the model sensitivity (``False``: both None; scenario runs
+        may skip them, see :mod:`siting.scenarios`).
+    cache : StageCache, optional
+        The stage cache object to use instead of one at ``cache_dir`` (the scenarios of a job share one that also
+        keeps its entries in memory).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
     preflight.check_job(job, write=write, overwrite=overwrite)
@@ -404,7 +421,8 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     if handler is not None:
         log.addHandler(handler)
     log.setLevel(logging.INFO)
-    ctx = _Context(job, StageParams.from_job(job), StageCache(cache_root, log=log.warning, read=not fresh),
+    cache = cache if cache is not None else StageCache(cache_root, log=log.warning, read=not fresh)
+    ctx = _Context(job, StageParams.from_job(job), cache,
                    progress, _bar(progress, total=5 if write else 4, desc="load"))
     try:
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
@@ -412,21 +430,25 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         sites, users, cand_key = _candidates(ctx, district, sizes)
         handler = _open_log(buffer, out_dir) or handler
         _compile_notice(ctx, progress if notices is None else notices)
+        field_ctx = None
+        if job.inputs.survey_results:  # field verdicts: moved spots join the candidates (siting.replan)
+            sites, field_ctx = prepare_field(job.inputs.survey_results, district, sites, sizes, job.candidates)
+            cand_key = digest([cand_key, field_ctx.moved_key()]) if len(field_ctx.moved) else cand_key
         gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,
                                              scheduler)
-        plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key)
+        plan, ranking, backups, sweep = _optimise(ctx, gains, sites, users, gains_key, sizes, field_ctx)
         t0 = time.perf_counter()
         ctx.notes["checks"] = []
         with capture_notes(ctx.notes["checks"]):
             field_checks = plan_checks(district, sites, sizes, users, gains, plan, ctx.params.radio, heights_m,
-                                       ctx.params.height_uncertainty_m)
+                                       ctx.params.height_uncertainty_m) if checks else (None, None)
         ctx.timings["checks"] = time.perf_counter() - t0
         notes = _unique([n for stage in ctx.notes.values() for n in stage])
         for message in notes:
             log.warning(message)
         result = RunResult(job, district, sites, users, sizes, gains, plan, ranking, backups, sweep,
                            site_checks=field_checks[0], sensitivity=field_checks[1], notes=notes, stage_notes=ctx.notes, timings_s=ctx.timings, recomputed=ctx.recomputed,
-                           params=ctx.params)
+                           params=ctx.params, field=field_ctx)
         if write:
             t0 = time.perf_counter()
             result.outputs = write_stage(result, ctx.params.radio, overwrite=overwrite)
@@ -443,10 +465,11 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
             handler.close()
 
 
-def write_stage(result: RunResult, p: RadioParams, overwrite: bool = False) -> dict:
-    """Hand every table to the output writers (GeoJSON, survey list, report, run.json, the LOS graph if asked)."""
+def output_bundle(result: RunResult, p: RadioParams, **run_info_extra: Any):
+    """The :class:`~siting.outputs.OutputBundle` of a run: every table and the run information the writers need
+    (``run_info_extra`` joins the run information, e.g. ``outputs="light"`` for a scenario's light set)."""
     from . import radio
-    from .outputs import OutputBundle, write_outputs
+    from .outputs import OutputBundle
 
     job, gains = result.job, result.gains
     pairs_stats = {
@@ -465,8 +488,10 @@ def write_stage(result: RunResult, p: RadioParams, overwrite: bool = False) -> d
         "counts": {"buildings": len(result.district.buildings), "base_stations": len(result.district.base_stations),
                    "sites": len(result.sites), "users": len(result.users), "options": len(gains.options),
                    "coverage_rows": rows, "coverage_rows_at_target": at_target},
+        **field_run_info(result),  # job fingerprint, field verdicts, changes against the previous plan
+        **run_info_extra,
     }
-    bundle = OutputBundle(
+    return OutputBundle(
         crs=result.district.crs, buildings=result.district.buildings, base_stations=result.district.base_stations,
         sites=result.sites, sizes=result.sizes, users=result.users, options=gains.options, coverage=gains.coverage,
         direct=gains.direct, plan=result.plan, ranking=result.ranking, backups=result.backups, sweep=result.sweep,
@@ -477,6 +502,14 @@ def write_stage(result: RunResult, p: RadioParams, overwrite: bool = False) -> d
         element_pitch_m=radio.element_pitch_m(p.frequency_hz, job.surfaces.element_pitch_wavelengths),
         load_cap_weight=job.surfaces.load_cap_weight,
     )
+
+
+def write_stage(result: RunResult, p: RadioParams, overwrite: bool = False) -> dict:
+    """Hand every table to the output writers (GeoJSON, survey list, report, run.json, the LOS graph if asked)."""
+    from .outputs import write_outputs
+
+    job, gains = result.job, result.gains
+    bundle = output_bundle(result, p)
     extra = {}
     if job.output.los_graph:
         extra["los_graph"] = ("los_graph.graphml", lambda path: write_los_graph(path, gains))

@@ -39,6 +39,7 @@ import pandas
 import pyproj
 
 from ..errors import SitingError
+from ..plandiff import field_survey_frame
 from ..radio import element_count
 from . import atomic, figures, folder, layers, markdown, report, survey
 from . import record as record_mod
@@ -206,6 +207,7 @@ def _write_set(st, bundle, fig, formats, extra, t, t_start) -> dict:
 
     t0 = time.perf_counter()
     frame = survey.survey_frame(bundle, fig)
+    frame = field_survey_frame(frame, bundle.run_info)  # the next survey list: sites still to visit
     put("survey_csv", "survey.csv", lambda p: survey.write_survey_csv(p, frame))
     put("survey_html", "survey.html",
         lambda p: atomic.write_text(p, survey.survey_html(bundle, fig, frame, bundle.title)))

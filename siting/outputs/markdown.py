@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import html
 
+from ..plandiff import report_section
 from .derive import PlanFigures
 from .report import (
     CAUTIONS,
@@ -109,6 +110,11 @@ def report_md(bundle, fig: PlanFigures, figure_files: dict, record: dict) -> str
         p += [SENSITIVITY_SENTENCE, "", _md_table(*_sensitivity_rows(fig)), ""]
     else:
         p += ["No model sensitivity was computed for this run.", ""]
+    changes = report_section(record)  # changes against the previous plan (siting.plandiff)
+    if changes is not None:
+        sentence, head, rows = changes
+        p += ["## Changes against the previous plan", "", _md_text(sentence), ""]
+        p += [_md_table(head, rows), ""] if rows else []
     p += ["## Model assumptions", ""] + [f"- {a}" for a in assumptions(bundle.params)] + [""]
     p += ["## Cautions", ""] + [f"- {c}" for c in CAUTIONS] + [""]
     p += ["## Inputs and parameters", "", _md_table(["Input", "Value"], _input_rows(bundle, s)), ""]

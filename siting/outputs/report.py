@@ -15,6 +15,7 @@ from statistics import NormalDist
 import numpy as np
 import pandas as pd
 
+from ..plandiff import report_section
 from .derive import PlanFigures
 
 # (summary key, label, kind); kinds: weight, share, cost, int, db, num, text
@@ -514,6 +515,11 @@ def report_html(bundle, fig: PlanFigures, pngs: dict, record: dict) -> str:
     else:
         p.append("<p>No model sensitivity was computed for this run.</p>")
 
+    changes = report_section(record)  # changes against the previous plan (siting.plandiff)
+    if changes is not None:
+        sentence, head, rows = changes
+        p.append(f"<h2>Changes against the previous plan</h2><p>{esc(sentence)}</p>"
+                 + (_html_table(head, rows, numeric_from=len(head)) if rows else ""))
     p.append("<h2>Model assumptions</h2><ul>" + "".join(f"<li>{esc(a)}</li>" for a in assumptions(bundle.params))
              + "</ul>")
     p.append("<h2>Cautions</h2><ul class=\"caution\">" + "".join(f"<li>{esc(c)}</li>" for c in CAUTIONS) + "</ul>")
