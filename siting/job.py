@@ -86,7 +86,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "survey_results": Key("path", "", none="", doc="field verdicts: the survey list (CSV) with status, reason, "
                               "measured position, largest panel and rejects_wall filled in; re-plans around them"),
         "previous_plan": Key("path", "", none="", doc="run.json (or its folder) of the plan to compare with ('' = the "
-                             "output folder's run.json)"),
+                             "output folder's run.json when re-planning from survey_results, else none)"),
         "scenarios": Key("path", "", none="", doc="TOML file of [[scenarios]] tables (name + overrides) to run "
                          "besides those in the job"),
     },

@@ -128,7 +128,9 @@ def field_run_info(result) -> dict[str, Any]:
                                             fctx.moved_to())
     fp = fctx.fingerprint if fctx is not None else job_fingerprint(result.sites)
     job = result.job
-    prev_path = job.inputs.previous_plan or Path(job.output.folder) / "run.json"
+    # a re-plan from field verdicts compares with the output folder's plan; any other run only with the plan named
+    # in inputs.previous_plan, so rerunning a job (fresh, cached, resumed) gives the same report
+    prev_path = job.inputs.previous_plan or (Path(job.output.folder) / "run.json" if fctx is not None else None)
     opts = result.gains.options
     rank = result.ranking.set_index("option")["rank"] if len(result.ranking) else pd.Series(dtype="int64")
     chosen = np.asarray(result.plan.chosen, np.int64)
