@@ -46,7 +46,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import __version__, checks
+from . import __version__, _warmup, checks
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District
@@ -324,6 +324,7 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
                    progress, _bar(progress, total=5 if write else 4, desc="load"))
     try:
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
+        _warmup.start(clearance=ctx.params.radio.fresnel_clearance > 0)  # first run: compile kernels in parallel
         district, sizes = _load(ctx)
         sites, users, cand_key = _candidates(ctx, district, sizes)
         gains, heights_m, gains_key = _gains(ctx, district, sites, sizes, users, cand_key, tile_m, workers,

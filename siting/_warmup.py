@@ -1,0 +1,94 @@
+"""First-run compile of the numba kernels in background processes, in parallel with each other and the job.
+
+On a fresh install numba's on-disk cache (``cache=True``) is empty and every kernel is compiled on first use,
+one after the other in the job's process.  :func:`start` (called by the runner when a job starts) checks which
+kernel groups the job needs and which of them are not cached yet, and compiles each missing group in its own
+child process (``python -c`` with zero-length or one-element dummy data, so the compiled signature is the one
+the job uses); the kernels' Python wrappers call :func:`wait` before their first use and then load the
+compiled code from the cache.  A warm run starts no process.  ``SITING_NO_WARMUP=1`` turns this off (the
+kernels then compile lazily in the job's process, as before).
+
+Groups: ``rays`` (edge grid, pair search, pair table), ``clearance`` (first-Fresnel-zone walk, only for
+jobs with ``radio.fresnel_clearance`` > 0), ``surface`` (near-field tile sum).
+"""
+
+from __future__ import annotations
+
+import importlib
+import logging
+import os
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+log = logging.getLogger("siting")
+
+# group -> (module, its compile function's argument)
+_GROUPS = {
+    "rays": ("siting._kernels_visibility", False),
+    "clearance": ("siting._kernels_visibility", True),
+    "surface": ("siting.radio._surface_kernel", None),
+}
+_pending: list[tuple[str, subprocess.Popen, float]] = []
+_lock = threading.Lock()
+
+
+def _kernels(group: str):
+    module, arg = _GROUPS[group]
+    kernels = importlib.import_module(module).KERNELS
+    return kernels if arg is None else kernels[arg]
+
+
+def cached(group: str) -> bool:
+    """True when numba's cache holds an index for every kernel of the group (numba re-checks the source)."""
+    try:
+        return all(Path(k._cache._cache_file._index_path).exists() for k in _kernels(group))
+    except Exception:  # noqa: BLE001 - private numba layout changed: assume cached, compile lazily
+        return True
+
+
+def start(clearance: bool) -> list[str]:
+    """Compile, in background processes, the kernel groups a job needs that are not cached; returns them.
+
+    Parameters
+    ----------
+    clearance : bool
+        The job uses the first-Fresnel-zone clearance rule (``radio.fresnel_clearance`` > 0).
+    """
+    if os.environ.get("SITING_NO_WARMUP", "") not in ("", "0"):
+        return []
+    groups = [g for g in ("rays", "clearance", "surface") if (clearance or g != "clearance") and not cached(g)]
+    if not groups:
+        return []
+    log.info("first run: compiling the line-of-sight and surface kernels (%s) once, in the background; later "
+             "runs load them from numba's cache", ", ".join(groups))  # fmt: skip
+    root = str(Path(__file__).resolve().parent.parent)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([root, os.environ.get("PYTHONPATH", "")]).rstrip(os.pathsep))
+    with _lock:
+        for g in groups:
+            code = f"import siting._warmup as w; w.compile_group({g!r})"
+            proc = subprocess.Popen([sys.executable, "-c", code], env=env, stdout=subprocess.DEVNULL,
+                                    stderr=subprocess.DEVNULL)  # fmt: skip
+            _pending.append((g, proc, time.perf_counter()))
+    return groups
+
+
+def compile_group(group: str) -> None:
+    """Compile (or load from the cache) one kernel group with dummy data (runs in the child process)."""
+    module, arg = _GROUPS[group]
+    fn = importlib.import_module(module).compile_kernels
+    fn() if arg is None else fn(arg)
+
+
+def wait() -> None:
+    """Wait for the background compiles started by :func:`start` (no-op when none is running)."""
+    if not _pending:
+        return
+    with _lock:
+        while _pending:
+            g, proc, t0 = _pending.pop()
+            rc = proc.wait()
+            log.debug("kernel group %s compiled in the background in %.1f s (exit %s)", g, time.perf_counter() - t0,
+                      rc)  # fmt: skip
