@@ -36,6 +36,8 @@ from .reductions import _Reduced
 MIN_COMPONENTS = 8  # fewer components: the whole model is solved (the split gains little)
 MAX_SHARE = 0.5  # the largest component holds at most this share of the options
 ENUM_MAX = 4096  # option sets enumerated per component before exact solves take over
+SOLVE_MAX = 300  # options of the largest component whose frontier may come from exact solves
+TIME_SHARE = 0.25  # share of the time left that the split may take before the whole model is solved instead
 MAX_UNITS = 1_000_000  # resource units of the dynamic programme
 MAX_TABLE_BYTES = 2_000_000_000  # choice table of the dynamic programme
 
@@ -213,7 +215,8 @@ def frontiers(inst: _Instance, red: _Reduced, cap_budget: float | None, settings
         return None
     k, unit, kind = res
     n_comp, comp = component_labels(red)
-    if n_comp < MIN_COMPONENTS or np.bincount(comp).max() > MAX_SHARE * len(comp):
+    size = np.bincount(comp)
+    if n_comp < MIN_COMPONENTS or size.max() > min(SOLVE_MAX, MAX_SHARE * len(comp)):
         return None
     cap = _cap_units(inst, unit, cap_budget)
     if cap > MAX_UNITS or n_comp * (cap + 1) > MAX_TABLE_BYTES:
@@ -249,7 +252,8 @@ def solve_split(inst: _Instance, red: _Reduced, limits, settings, backend, t0: f
     from .assemble import Assembly, covered_weight
     from .heuristics import _greedy_plan
 
-    got = frontiers(inst, red, inst.budget, settings, backend, deadline)
+    now = time.perf_counter()
+    got = frontiers(inst, red, inst.budget, settings, backend, now + TIME_SHARE * max(0.0, deadline - now))
     if got is None:
         return None
     fr, k, unit, kind = got
