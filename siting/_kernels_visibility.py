@@ -166,8 +166,28 @@ def _scan(i, fill, pos, key, a, b, thr, r, pg, with_los, buried_a, buried_b, gri
                 key[pos + n] = 2 * j + vis
             n += 1
     if fill and n > 1:
-        key[pos : pos + n] = np.sort(key[pos : pos + n])
+        _shell_sort(key, pos, pos + n)
     return n
+
+
+@njit(**_JIT)
+def _shell_sort(a, lo, hi):
+    """Sort a[lo:hi] in place ascending (Shell sort, Ciura's gap sequence extended by x2.25; a few lines that
+    compile in a fraction of the time of ``np.sort``, and fast on the short, partly ordered runs of one point)."""
+    n = hi - lo
+    gap = 1
+    while gap * 9 // 4 + 1 < n:
+        gap = gap * 9 // 4 + 1
+    while gap > 0:
+        for i in range(lo + gap, hi):
+            v = a[i]
+            j = i
+            while j - gap >= lo and a[j - gap] > v:
+                a[j] = a[j - gap]
+                j -= gap
+            a[j] = v
+        gap = 1 if gap in (2, 3) else gap * 4 // 9
+    return a
 
 
 @njit(**_JIT)

@@ -54,15 +54,22 @@ def build_edge_grid(ex0, ey0, ex1, ey1, eh, cs, nx, ny, pad):
         for iy in range(iy0, iy1 + 1):
             for ix in range(ix0, ix1 + 1):
                 counts[iy * nx + ix + 1] += 1
-    start = np.cumsum(counts)
-    m = start[-1]
+    start = np.empty(nx * ny + 1, np.int64)  # (loops rather than np.cumsum / np.full: quicker to compile)
+    fill = np.empty(nx * ny, np.int64)
+    hmax = np.empty(nx * ny, np.float64)
+    acc = 0
+    for c in range(nx * ny + 1):
+        acc += counts[c]
+        start[c] = acc
+        if c < nx * ny:
+            fill[c] = acc
+            hmax[c] = -np.inf
+    m = start[nx * ny]
     cx0 = np.empty(m, np.float64)
     cy0 = np.empty(m, np.float64)
     cx1 = np.empty(m, np.float64)
     cy1 = np.empty(m, np.float64)
     ch = np.empty(m, np.float64)
-    hmax = np.full(nx * ny, -np.inf)
-    fill = start[:-1].copy()
     for e in range(n):
         ix0, ix1 = _cell_span(min(ex0[e], ex1[e]), max(ex0[e], ex1[e]), pad, cs, nx)
         iy0, iy1 = _cell_span(min(ey0[e], ey1[e]), max(ey0[e], ey1[e]), pad, cs, ny)
