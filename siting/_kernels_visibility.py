@@ -138,10 +138,11 @@ def _bare_los(x, y, z, bx, by, bz, last, grid):
 
 
 @njit(**_JIT)
-def _scan(i, fill, pos, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid):
+def _scan(i, fill, pos, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid, sort):
     """Count (fill=False) or write (fill=True, from ``key[pos]``) the accepted b of point i.
 
-    Keys are 2*b + LOS bit (bare-ray rule), sorted.  Returns the number of accepted b.
+    Keys are 2*b + LOS bit (bare-ray rule), in scan order, sorted when ``sort``.  Returns the number of
+    accepted b.
     """
     ax, ay, az, a_has, anx, any_ = a
     bx, by, bz, b_has, bnx, bny = b
@@ -165,7 +166,7 @@ def _scan(i, fill, pos, key, a, b, thr, r, pg, with_los, buried_a, buried_b, gri
                     vis, last = _bare_los(x, y, z, bx[j], by[j], bz[j], last, grid)
                 key[pos + n] = 2 * j + vis
             n += 1
-    if fill and n > 1:
+    if fill and sort and n > 1:
         _shell_sort(key, pos, pos + n)
     return n
 
@@ -191,11 +192,12 @@ def _shell_sort(a, lo, hi):
 
 
 @njit(**_JIT)
-def _scan_range(lo, hi, fill, offsets, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid):
-    """Count pass (``fill`` False: ``offsets[i]`` = accepted b of point i) or fill pass (the sorted keys of
-    point i from ``key[offsets[i]]``) for the points [lo, hi).  One kernel for both passes: one compile."""
+def _scan_range(lo, hi, fill, offsets, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid, sort):
+    """Count pass (``fill`` False: ``offsets[i]`` = accepted b of point i) or fill pass (the keys of point i
+    from ``key[offsets[i]]``, sorted when ``sort``) for the points [lo, hi).  One kernel for both passes."""
     for i in range(lo, hi):
-        n = _scan(i, fill, offsets[i] if fill else 0, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid)
+        n = _scan(i, fill, offsets[i] if fill else 0, key, a, b, thr, r, pg, with_los, buried_a, buried_b, grid,
+                  sort)  # fmt: skip
         if not fill:
             offsets[i] = n
 
@@ -203,22 +205,20 @@ def _scan_range(lo, hi, fill, offsets, key, a, b, thr, r, pg, with_los, buried_a
 @njit(**_JIT)
 def _clear_range(lo, hi, offsets, key, a, b, buried_a, inside_a, inside_b, kl, grid, bld):
     """Clearance rule on the rays of the points [lo, hi) that the bare test left clear (the LOS bit is cleared
-    where the tube is obstructed; keys stay sorted)."""
+    where the tube is obstructed), in scan order (neighbouring rays share blockers); then the keys are sorted."""
     ax, ay, az = a[0], a[1], a[2]
     bx, by, bz = b[0], b[1], b[2]
     cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax = grid
     for i in range(lo, hi):
-        if buried_a[i]:
-            continue
         ks = key[offsets[i] : offsets[i + 1]]
         qs = np.flatnonzero(ks & 1)
-        if qs.size == 0:
-            continue
-        vis = clear_rays(ax, ay, az, np.full(qs.size, i, np.int64), bx, by, bz, ks[qs] >> 1, inside_a, inside_b, kl,
-                         cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
-        for q in range(qs.size):
-            if not vis[q]:
-                ks[qs[q]] -= 1
+        if qs.size > 0 and not buried_a[i]:
+            vis = clear_rays(ax, ay, az, np.full(qs.size, i, np.int64), bx, by, bz, ks[qs] >> 1, inside_a, inside_b,
+                             kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
+            for q in range(qs.size):
+                if not vis[q]:
+                    ks[qs[q]] -= 1
+        _shell_sort(key, offsets[i], offsets[i + 1])
 
 
 def pairs_in_range(
@@ -243,14 +243,15 @@ def pairs_in_range(
     grid = _grid(cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
     na = a[0].shape[0]
     counts = np.zeros(na, np.int64)
+    clear = bool(with_los) and kl > 0.0
     for_chunks(_scan_range, na, False, counts, np.empty(0, np.int64), a, b, thr, float(r), pg, bool(with_los),
-               buried_a, buried_b, grid)  # fmt: skip
+               buried_a, buried_b, grid, True)  # fmt: skip
     offsets = np.zeros(na + 1, np.int64)
     np.cumsum(counts, out=offsets[1:])
     key = np.empty(offsets[-1], np.int64)
     for_chunks(_scan_range, na, True, offsets, key, a, b, thr, float(r), pg, bool(with_los), buried_a, buried_b,
-               grid)  # fmt: skip
-    if with_los and kl > 0.0:
+               grid, not clear)  # fmt: skip
+    if clear:
         for_chunks(_clear_range, na, offsets, key, a, b, buried_a, inside_a, inside_b, float(kl), grid, _bld(bld))
     return offsets, key
 
@@ -372,7 +373,7 @@ def compile_kernels(clearance: bool) -> None:
         return
     _kw.build_edge_grid(e, e, e, e, e, 1.0, 1, 1, 0.0)
     pg = (0.0, 0.0, 1.0, 1, 1, np.zeros(2, np.int64), i)
-    _scan_range(0, 0, False, i, i, a, a, (0.0, 0.0), 1.0, pg, False, f, f, grid)
+    _scan_range(0, 0, False, i, i, a, a, (0.0, 0.0), 1.0, pg, False, f, f, grid, True)
     _write_range(0, 0, i, i, i, False, i, i, a, a, (i, i, e, e, f, e, e, e))
 
 
