@@ -64,15 +64,28 @@ def start(clearance: bool) -> list[str]:
         return []
     log.info("first run: compiling the line-of-sight and surface kernels (%s) once, in the background; later "
              "runs load them from numba's cache", ", ".join(groups))  # fmt: skip
-    root = str(Path(__file__).resolve().parent.parent)
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([root, os.environ.get("PYTHONPATH", "")]).rstrip(os.pathsep))
     with _lock:
         for g in groups:
-            code = f"import siting._warmup as w; w.compile_group({g!r})"
-            proc = subprocess.Popen([sys.executable, "-c", code], env=env, stdout=subprocess.DEVNULL,
-                                    stderr=subprocess.DEVNULL)  # fmt: skip
+            proc = subprocess.Popen([sys.executable, "-c", _CHILD, str(Path(__file__).resolve().parent), g],
+                                    stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)  # fmt: skip
             _pending.append((g, proc, time.perf_counter()))
     return groups
+
+
+# The child imports the kernel modules without running ``siting/__init__.py`` (which imports the whole
+# pipeline: geopandas, pandas, the optimiser): empty package modules with the right ``__path__`` stand in for
+# ``siting`` and ``siting.radio``, so a child costs numba's import and the compile, nothing else.  The kernels'
+# module and file names are the real ones, so numba's cache entries are the ones the job looks up.
+_CHILD = """
+import sys, types
+root, group = sys.argv[1], sys.argv[2]
+for name, path in (("siting", root), ("siting.radio", root + "/radio")):
+    mod = types.ModuleType(name)
+    mod.__path__ = [path]
+    sys.modules[name] = mod
+import siting._warmup as w
+w.compile_group(group)
+"""
 
 
 def compile_group(group: str) -> None:
