@@ -72,7 +72,7 @@ def for_chunks(kernel, n: int, *args) -> None:
 def build_edge_grid(ex0, ey0, ex1, ey1, eh, cs, nx, ny, pad):
     """Bin edges into the grid cells their bounding boxes, padded by ``pad`` [m], touch; returns the CSR arrays
     ``(start, cx0, cy0, cx1, cy1, ch, hmax)`` (see :mod:`siting._kernels_walk`)."""
-    _wait_compile()
+    _wait_compile("rays")
     return _kw.build_edge_grid(*_f64(ex0, ey0, ex1, ey1, eh), float(cs), int(nx), int(ny), float(pad))
 
 
@@ -210,15 +210,29 @@ def _clear_range(lo, hi, offsets, key, a, b, buried_a, inside_a, inside_b, kl, g
     bx, by, bz = b[0], b[1], b[2]
     cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax = grid
     for i in range(lo, hi):
-        ks = key[offsets[i] : offsets[i + 1]]
-        qs = np.flatnonzero(ks & 1)
-        if qs.size > 0 and not buried_a[i]:
-            vis = clear_rays(ax, ay, az, np.full(qs.size, i, np.int64), bx, by, bz, ks[qs] >> 1, inside_a, inside_b,
-                             kl, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax, bld)  # fmt: skip
-            for q in range(qs.size):
-                if not vis[q]:
-                    ks[qs[q]] -= 1
-        _shell_sort(key, offsets[i], offsets[i + 1])
+        o = offsets[i]
+        n = offsets[i + 1] - o
+        m = 0
+        for q in range(n):
+            m += key[o + q] & 1
+        if m > 0 and not buried_a[i]:
+            # plain loops rather than np.flatnonzero / fancy indexing: the same work, less to compile
+            ia = np.empty(m, np.int64)
+            jb = np.empty(m, np.int64)
+            qs = np.empty(m, np.int64)
+            t = 0
+            for q in range(n):
+                if key[o + q] & 1:
+                    ia[t] = i
+                    jb[t] = key[o + q] >> 1
+                    qs[t] = q
+                    t += 1
+            vis = clear_rays(ax, ay, az, ia, bx, by, bz, jb, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0, cx1,
+                             cy1, ch, hmax, bld)  # fmt: skip
+            for t in range(m):
+                if not vis[t]:
+                    key[o + qs[t]] -= 1
+        _shell_sort(key, o, o + n)
 
 
 def pairs_in_range(
@@ -233,7 +247,7 @@ def pairs_in_range(
     Returns ``offsets`` (int64, na + 1: the CSR offsets per a) and ``key`` (int64, 2*b + LOS, sorted
     ascending within each a).  LOS follows the bare-ray rule when ``kl`` = 0, the clearance rule otherwise.
     """
-    _wait_compile()
+    _wait_compile("rays")
     a = (*_f64(ax, ay, az), *_flags(a_has), *_f64(anx, any_))
     b = (*_f64(bx, by, bz), *_flags(b_has), *_f64(bnx, bny))
     thr = (float(thr_a), float(thr_b))
@@ -252,6 +266,7 @@ def pairs_in_range(
     for_chunks(_scan_range, na, True, offsets, key, a, b, thr, float(r), pg, bool(with_los), buried_a, buried_b,
                grid, not clear)  # fmt: skip
     if clear:
+        _wait_compile("clearance")
         for_chunks(_clear_range, na, offsets, key, a, b, buried_a, inside_a, inside_b, float(kl), grid, _bld(bld))
     return offsets, key
 
@@ -270,7 +285,9 @@ def _los_bare_range(lo, hi, out, a, b, buried_a, buried_b, grid):
 def _los_clear_range(lo, hi, out, a, b, buried_a, buried_b, inside_a, inside_b, kl, grid, bld):
     """Element-wise clearance-rule LOS for the pairs [lo, hi) (one batch of rays)."""
     cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax = grid
-    idx = np.arange(lo, hi)
+    idx = np.empty(hi - lo, np.int64)
+    for q in range(hi - lo):
+        idx[q] = lo + q
     vis = clear_rays(a[0], a[1], a[2], idx, b[0], b[1], b[2], idx, inside_a, inside_b, kl, cs, nx, ny, start, cx0, cy0,
                      cx1, cy1, ch, hmax, bld)  # fmt: skip
     for q in range(hi - lo):
@@ -282,7 +299,7 @@ def los_elementwise(
     bld,
 ):  # fmt: skip
     """Element-wise LOS flags for pairs (a[i], b[i]) (bare-ray rule when ``kl`` = 0, clearance rule otherwise)."""
-    _wait_compile()
+    _wait_compile("clearance" if kl > 0.0 else "rays")
     a = _f64(ax, ay, az)
     b = _f64(bx, by, bz)
     buried_a, buried_b = _flags(buried_a, buried_b)
@@ -348,7 +365,7 @@ def write_pairs(
     float32 or float64 (the caller allocates them).  Metrics: 3-D and horizontal distance, 3-D angle between
     a facade end's horizontal outward normal and the direction to the other end, elevation of b from a.
     """
-    _wait_compile()
+    _wait_compile("rays")
     i64 = lambda v: np.require(v, np.int64, ["C", "W"])  # noqa: E731
     a = (*_f64(ax, ay, az), *_flags(a_has), *_f64(anx, any_))
     b = (*_f64(bx, by, bz), *_flags(b_has), *_f64(bnx, bny))

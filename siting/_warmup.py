@@ -95,13 +95,16 @@ def compile_group(group: str) -> None:
     fn() if arg is None else fn(arg)
 
 
-def wait() -> None:
-    """Wait for the background compiles started by :func:`start` (no-op when none is running)."""
+def wait(group: str | None = None) -> None:
+    """Wait for the background compile of ``group`` (all groups when None) started by :func:`start`; no-op
+    when none is running.  Waiting per group lets the job use the kernels compiled first while the others
+    are still compiling."""
     if not _pending:
         return
     with _lock:
-        while _pending:
-            g, proc, t0 = _pending.pop()
+        for item in [p for p in _pending if group is None or p[0] == group]:
+            g, proc, t0 = item
             rc = proc.wait()
+            _pending.remove(item)
             log.debug("kernel group %s compiled in the background in %.1f s (exit %s)", g, time.perf_counter() - t0,
                       rc)  # fmt: skip

@@ -73,6 +73,9 @@ def tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, p
     summing to 1, symmetric about 0 as Gauss-Legendre nodes are); ``nt_max`` the largest nx * ny.  Focus
     (``beams`` False) has no phase error at f0.
     """
+    from .._warmup import wait
+
+    wait("surface")  # a first run compiles this kernel in the background (siting._warmup)
     args = (lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, pv, bool(beams), float(q), nx, ny,
             node_start, node_count, x_nodes, w_nodes, int(nt_max), out)  # fmt: skip
     n_items = -(-lu_i.shape[0] // _CHUNK)
