@@ -33,7 +33,6 @@ Disk: ``write=True`` writes the outputs, ``siting.log`` and the cache (``<output
 
 from __future__ import annotations
 
-import importlib
 import json
 import logging
 import logging.handlers
@@ -50,7 +49,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import __version__, checks, preflight
+from . import __version__, _warmup, checks, preflight
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District
@@ -306,46 +305,15 @@ def _optimise(ctx: _Context, gains: GainResult, sites, users, gains_key: str, si
     return plan, ranking, backups, sweep
 
 
-#: Modules of the compiled kernels (numba, ``cache=True``): their first use compiles them, about 1-2 minutes.
-KERNEL_MODULES = ("siting._kernels_visibility", "siting.radio._surface_kernel")
-#: The line shown before the first compile (numba's cache cold).
-COMPILE_NOTICE = "compiling the line-of-sight kernels (first run only, about 1-2 minutes)"
+#: The line shown before the first compile of the kernels (numba's cache cold; siting._warmup).
+COMPILE_NOTICE = ("compiling the line-of-sight kernels in the background (first run only, about 10-30 s more on "
+                  "a 2-core machine)")
 
 
-def kernels_cold() -> bool:
-    """Whether the next run compiles the kernels: numba's on-disk cache holds no valid entry for some kernel module.
-
-    Reads only numba's cache index of each compiled (not inlined) kernel, the file numba itself checks against the
-    source file's time stamp, so this takes milliseconds once numba is imported.  False when numba is missing.
-    """
-    try:
-        from numba.core.caching import FunctionCache
-        from numba.core.dispatcher import Dispatcher
-    except ImportError:
-        return False
-
-    def cached(d: Dispatcher) -> bool:
-        try:
-            return bool(d._cache._cache_file._load_index())  # type: ignore[attr-defined]
-        except (AttributeError, OSError, EOFError, ValueError):
-            return False
-
-    for name in KERNEL_MODULES:
-        module = importlib.import_module(name)
-        kernels = [d for d in vars(module).values() if isinstance(d, Dispatcher)
-                   and isinstance(getattr(d, "_cache", None), FunctionCache)
-                   and d.targetoptions.get("inline") != "always"]
-        if kernels and not any(cached(d) for d in kernels):
-            return True
-    return False
-
-
-def _compile_notice(ctx: _Context, show: bool) -> None:
-    """Log (and with ``show`` print on stderr) :data:`COMPILE_NOTICE` when the kernels are not compiled yet."""
-    if kernels_cold():
-        log.info(COMPILE_NOTICE)
-        if show:
-            ctx.bar.write(f"siting: {COMPILE_NOTICE}", file=sys.stderr)
+def kernels_cold(clearance: bool = False) -> bool:
+    """Whether the next run compiles kernels: numba's on-disk cache lacks some kernel group the job uses
+    (:func:`siting._warmup.cached`; ``clearance``: the job uses the first-Fresnel-zone clearance rule)."""
+    return bool(_warmup.needed(clearance))
 
 
 def coverage_row_counts(gains: GainResult, snr_target_db: float) -> tuple[int, int]:
@@ -426,10 +394,16 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
                    progress, _bar(progress, total=5 if write else 4, desc="load"))
     try:
         log.info("siting %s: job started, output folder %s", __version__, out_dir)
+        clearance = ctx.params.radio.fresnel_clearance > 0
+        cold = kernels_cold(clearance)
+        _warmup.start(clearance=clearance)  # first run: compile the kernels in background processes
         district, sizes = _load(ctx)
         sites, users, cand_key = _candidates(ctx, district, sizes)
         handler = _open_log(buffer, out_dir) or handler
-        _compile_notice(ctx, progress if notices is None else notices)
+        if cold:  # after the checks, so a refused job prints only its error
+            log.info(COMPILE_NOTICE)
+            if progress if notices is None else notices:
+                ctx.bar.write(f"siting: {COMPILE_NOTICE}", file=sys.stderr)
         field_ctx = None
         if job.inputs.survey_results:  # field verdicts: moved spots join the candidates (siting.replan)
             sites, field_ctx = prepare_field(job.inputs.survey_results, district, sites, sizes, job.candidates)

@@ -340,10 +340,13 @@ def _sweep(cover, weight, cost, option_site, plan, q: OptimiseParams, solver_kw:
         budgets = [round(budget * f, 2) for f in q.sweep_budget_factors]
     if not budgets:
         return None
-    # The curve is for the report: each point gets a short limit and a 1 % gap (its bound is shown beside it);
-    # the plan's own budget is not solved again.
-    sweep_kw = dict(solver_kw, time_limit_s=max(2.0, min(10.0, q.time_limit_s / 6)), mip_rel_gap=max(q.mip_gap, 0.01))
+    # The whole curve gets the plan's own solve time (at least 2 s), split evenly over its points, on one model
+    # kept for all; each point reports its own proven gap and is 'optimal' only when proven within the plan's
+    # gap.  The plan's own budget is not solved again.
     others = sorted(x for x in set(budgets) if not (budget and q.target_share is None and x == budget))
+    own_s = max(2.0, float(plan.timings_s.get("total", q.time_limit_s)))
+    sweep_kw = dict(solver_kw, time_limit_s=max(0.05, min(q.time_limit_s, own_s) / max(1, len(others))),
+                    mip_rel_gap=q.mip_gap)  # fmt: skip
     sweep = opt.budget_sweep(cover, weight, cost, option_site, others, max_count=q.max_panels, **sweep_kw)
     if len(others) < len(set(budgets)):
         own = pd.DataFrame([{"budget": budget, "covered_weight": plan.objective, "bound": plan.bound,

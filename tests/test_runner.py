@@ -342,7 +342,7 @@ def test_unreachable_target_exits_3_with_the_reachable_weight(demo_result, tmp_p
         return real(cover, weight, cost, option_site, 2.0 * float(np.sum(weight)), **kw)
 
     monkeypatch.setattr(opt, "min_cost_cover", too_much)
-    monkeypatch.setattr(runner, "kernels_cold", lambda: True)
+    monkeypatch.setattr(runner, "kernels_cold", lambda *_: True)
     code = cli.main(["plan", str(DEMO_JOB), "--set", f"output.folder={json.dumps(str(tmp_path / 'out'))}",
                      "--set", "budget.max_panels=1", "--set", "budget.target_share=0.99"])
     err = capsys.readouterr().err

@@ -16,6 +16,7 @@ import numpy as np
 from ..errors import SolverError
 from .assemble import Assembly, Plan, covered_weight, plan_from_result, settled_plan
 from .backends import Backend, Session, SolveResult, objectives_agree, stale_start_note
+from .decompose import solve_split
 from .heuristics import _greedy_plan, _min_cost_greedy, _prune
 from .model import _build, _Milp, _satisfies, _start_vector
 from .problem import _INF, TargetUnreachable, _Instance
@@ -86,6 +87,10 @@ def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Bac
     plan = settled_plan(asm)
     if plan is not None:
         return plan
+    if mode == "max" and reduce and tie_break:  # independent parts under a shared limit: exact split
+        split = solve_split(inst, red, None, settings, backend, t0, deadline)
+        if split is not None:
+            return split[0]
     model_target = _model_target(inst, mode, target)
 
     t1 = time.perf_counter()
@@ -258,7 +263,12 @@ def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backe
     solved afresh on the shared reduced instance.  Each budget has its own ``time_limit_s``, greedy and
     tie-break solve included.
     """
+    t0 = time.perf_counter()
     red = _reduce(inst, reduce)
+    if reduce and inst.max_count is None and red.C.shape[0] and red.C.shape[1]:  # independent parts: exact split
+        split = solve_split(inst, red, budgets.tolist(), settings, backend, t0, t0 + float(settings.time_limit_s))
+        if split is not None:
+            return split
     milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
     session = backend.open(milp, settings) if milp is not None and budgets.max() > 0 else None
     order = np.argsort(budgets, kind="stable")
@@ -273,11 +283,26 @@ def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backe
                          settings.time_limit_s)
     prev = _NONE
     for k in order:
-        plan = plans[k] = _sweep_step(asm.for_budget(budgets[k]), cast(_Milp, milp), session, prev, settings, backend,
-                                      reduce, warm_start)  # a session is only opened on a model
-        if len(plan.chosen):
-            prev = np.sort(np.searchsorted(red.opt, plan.chosen))
-    return cast("list[Plan]", plans)  # every budget filled
+        plans[k] = _sweep_step(asm.for_budget(budgets[k]), cast(_Milp, milp), session, prev, settings, backend, reduce,
+                               warm_start)
+        if len(plans[k].chosen):
+            prev = np.sort(np.searchsorted(red.opt, plans[k].chosen))
+    return _monotone_bounds(cast("list[Plan]", plans), budgets, settings.mip_gap)  # every budget filled
+
+
+def _monotone_bounds(plans: list[Plan], budgets: np.ndarray, mip_gap: float) -> list[Plan]:
+    """Tighten each point's bound by the bounds of larger budgets (the most weight a plan covers never falls
+    as the budget grows, so a bound at a larger budget holds at a smaller one); gap and status follow."""
+    ub = _INF
+    for k in np.argsort(budgets, kind="stable")[::-1]:
+        p = plans[k]
+        ub = min(ub, p.bound)
+        if ub < p.bound:
+            p.bound = max(ub, p.objective)
+            p.gap = (p.bound - p.objective) / max(p.bound, 1e-12) if p.bound > 0 else 0.0
+            if p.status != "empty" and p.gap <= max(mip_gap, 1e-9) * 1.0001 + 1e-12:
+                p.status = "optimal"
+    return plans
 
 
 def _sweep_step(asm: Assembly, milp: _Milp, session: Session, prev, settings: SolverSettings, backend: Backend,

@@ -1,6 +1,8 @@
 """Compiled near-field tile sum of :func:`siting.radio.surface_gain` (beams and beam squint).
 
-One kernel (numba, ``cache=True``, ``parallel=True``, one float64 specialisation) evaluates, for every
+One kernel (numba, ``cache=True``, ``nogil=True``, one float64 specialisation, run on threads over chunks of
+triples by :func:`tile_power_sum`; serial rather than ``parallel=True``, whose compile costs about twice as
+much on the first run for no gain here) evaluates, for every
 near-field triple at once, the band-averaged power of the complex tile sum
 
 .. math:: \\bar P = \\sum_j w_j \\left|\\sum_t A_t\\,e^{-j(e_t + x_j \\kappa_{max} \\Delta_t)}
@@ -18,10 +20,13 @@ computation is :func:`siting.radio.surface_beams._tile_power_sum` (kept for the 
 
 from __future__ import annotations
 
+import itertools
 import math
+from concurrent.futures import ThreadPoolExecutor
 
+import numba
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 from ..constants import SPEED_OF_LIGHT_M_S
 
@@ -59,7 +64,6 @@ def _sinc(x):
     return 1.0 - x * x * (1.0 / 6.0) if abs(x) < 1e-4 else sx / x
 
 
-@njit(cache=True, parallel=True, fastmath=_FAST, error_model="numpy")
 def tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, pv, beams, q, nx, ny, node_start,
                    node_count, x_nodes, w_nodes, nt_max, out):  # fmt: skip
     """Band-averaged |tile sum|^2 per triple, written to ``out`` (see the module docstring).
@@ -70,9 +74,38 @@ def tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, p
     summing to 1, symmetric about 0 as Gauss-Legendre nodes are); ``nt_max`` the largest nx * ny.  Focus
     (``beams`` False) has no phase error at f0.
     """
+    from .._warmup import wait
+
+    wait("surface")  # a first run compiles this kernel in the background (siting._warmup)
+    args = (lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, pv, bool(beams), float(q), nx, ny,
+            node_start, node_count, x_nodes, w_nodes, int(nt_max), out)  # fmt: skip
+    n_items = -(-lu_i.shape[0] // _CHUNK)
+    n_threads = min(max(1, numba.get_num_threads()), n_items)
+    if n_threads <= 1:
+        _tile_power_range(0, n_items, *args)
+        return
+    counter = itertools.count()
+
+    def work() -> None:
+        for c in iter(counter.__next__, None):  # dynamic scheduling: the next work item when done
+            if c >= n_items:
+                return
+            _tile_power_range(c, c + 1, *args)
+
+    with ThreadPoolExecutor(n_threads - 1) as pool:
+        futures = [pool.submit(work) for _ in range(n_threads - 1)]
+        work()
+        for f in futures:
+            f.result()
+
+
+@njit(cache=True, nogil=True, fastmath=_FAST, error_model="numpy")
+def _tile_power_range(c_lo, c_hi, lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, pv, beams, q, nx, ny,
+                      node_start, node_count, x_nodes, w_nodes, nt_max, out):  # fmt: skip
+    """Work items [c_lo, c_hi) (``_CHUNK`` triples each) of :func:`tile_power_sum`."""
     m = lu_i.shape[0]
     kq = 0.5 * q
-    for c in prange((m + _CHUNK - 1) // _CHUNK):
+    for c in range(c_lo, c_hi):
         amp = np.empty(nt_max)   # A_t
         ce = np.empty(nt_max)    # cos, sin of the phase error e_t at f0
         se = np.empty(nt_max)
@@ -188,3 +221,14 @@ def tile_power_sum(lu_i, lv_i, ln_i, lu_o, lv_o, ln_o, dsum, w, h, k0, bw, pu, p
                 acc += w_nodes[n0 + nn - 1 - k] * (rp * rp + ip * ip) + w_nodes[n0 + k] * (rm * rm + im_ * im_)
             # |sum| <= sum |A_t| (the co-phased value) holds exactly; the clip only removes rounding
             out[r] = min(acc, total * total)
+
+
+def compile_kernels() -> None:
+    """Compile the kernel (or load it from numba's cache) with one triple of dummy data (first-run warm-up)."""
+    one = np.ones(1)
+    i1 = np.ones(1, np.int64)
+    tile_power_sum(*([one] * 13), True, 1.0, i1, i1, np.zeros(1, np.int64), i1, np.zeros(1), np.ones(1), 1,  # type: ignore[call-arg]
+                   np.empty(1))  # fmt: skip
+
+
+KERNELS = (_tile_power_range,)
