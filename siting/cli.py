@@ -132,7 +132,8 @@ def _dispatch(args) -> int:
         plan = result.plan
         covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())
         total = float(result.users["weight"].sum())
-        print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}, weight newly covered "
+        currency = f" {job.budget.currency}" if job.budget.currency else ""
+        print(f"plan: {len(plan.chosen)} surface(s), cost {plan.cost:,.0f}{currency}, weight newly covered "
               f"{plan.objective:,.1f} (before {covered_before:,.1f} of {total:,.1f}); solver {plan.status}, "
               f"gap {plan.gap:.2%}")
         from .plandiff import cli_lines
