@@ -139,19 +139,36 @@ def place_labels(ax, renderer, items, offsets=None, avoid=()) -> list[bool]:
 
     offsets = offsets or [(5, 5), (5, -12), (-12, 5), (-12, -12), (9, -3), (-16, -3), (-3, 9), (-3, -16),
                           (14, 14), (14, -20), (-20, 14), (-20, -20)]
-    placed: list = [Bbox(b) if not isinstance(b, Bbox) else b for b in avoid]
+    # boxes taken so far as rows (x0, y0, x1, y1), normalised; one vectorised overlap test per try (the same
+    # closed-interval rule as matplotlib's Bbox.overlaps), so a city map with thousands of labels stays fast
+    boxes = np.zeros((max(16, len(avoid) + len(items)), 4))
+    n = 0
+    for b in avoid:
+        e = (b if isinstance(b, Bbox) else Bbox(b)).extents
+        boxes[n] = (min(e[0], e[2]), min(e[1], e[3]), max(e[0], e[2]), max(e[1], e[3]))
+        n += 1
     axbox = ax.get_window_extent(renderer)
     shown = []
+    px_per_pt = renderer.points_to_pixels(1.0)
     for x, y, text, kw in items:
+        # measured once at the first offset: an offset in points only translates the box
+        t = ax.annotate(text, (x, y), xytext=offsets[0], textcoords="offset points", **kw)
+        bb = t.get_window_extent(renderer).expanded(1.05, 1.1)
+        bx0, by0, bx1, by1 = min(bb.x0, bb.x1), min(bb.y0, bb.y1), max(bb.x0, bb.x1), max(bb.y0, bb.y1)
         ok = False
         for dx, dy in offsets:
-            t = ax.annotate(text, (x, y), xytext=(dx, dy), textcoords="offset points", **kw)
-            bb = t.get_window_extent(renderer).expanded(1.05, 1.1)
-            inside = axbox.contains(bb.x0, bb.y0) and axbox.contains(bb.x1, bb.y1)
-            if inside and not any(bb.overlaps(o) for o in placed):
-                placed.append(bb)
+            sx, sy = (dx - offsets[0][0]) * px_per_pt, (dy - offsets[0][1]) * px_per_pt
+            x0, y0, x1, y1 = bx0 + sx, by0 + sy, bx1 + sx, by1 + sy
+            if not (axbox.contains(x0, y0) and axbox.contains(x1, y1)):
+                continue
+            o = boxes[:n]
+            if not np.any((o[:, 0] <= x1) & (x0 <= o[:, 2]) & (o[:, 1] <= y1) & (y0 <= o[:, 3])):
+                boxes[n] = (x0, y0, x1, y1)
+                n += 1
+                t.xyann = (dx, dy)
                 ok = True
                 break
+        if not ok:
             t.remove()
         shown.append(ok)
     return shown

@@ -142,25 +142,42 @@ def _jsonable(v):
     return str(v)
 
 
-def _records(df: pd.DataFrame) -> list[dict]:
+def _column_values(col: pd.Series, null_negative: bool = False) -> list:
+    """One column as JSON-safe Python values (as :func:`_jsonable` gives them), whole-column for numpy dtypes;
+    ``null_negative``: negative numbers become None (ids where -1 means "none")."""
+    dtype = col.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind in "biuf":
+        arr = col.to_numpy()
+        bad = ~np.isfinite(arr) if dtype.kind == "f" else np.zeros(len(arr), bool)
+        if null_negative and dtype.kind in "iuf":
+            bad |= arr < 0
+        if not bad.any():
+            return arr.tolist()
+        out = arr.astype(object)
+        out[bad] = None
+        return [v if v is None else (float(v) if dtype.kind == "f" else int(v)) for v in out.tolist()]
+    values = [_jsonable(v) for v in col.to_numpy(object)]
+    if null_negative:
+        values = [None if isinstance(v, (int, float)) and not isinstance(v, bool) and v < 0 else v for v in values]
+    return values
+
+
+def _records(df: pd.DataFrame, null_keys: tuple[str, ...] = ()) -> list[dict]:
     cols = list(df.columns)
-    arrays = [df[c].to_numpy(object) for c in cols]
-    return [{c: _jsonable(a[i]) for c, a in zip(cols, arrays)} for i in range(len(df))]
+    columns = [_column_values(df[c], c in null_keys) for c in cols]
+    return [dict(zip(cols, row)) for row in zip(*columns)] if cols else [{} for _ in range(len(df))]
 
 
 def feature_collection(layer: Layer, null_site_ids: bool = True) -> dict:
     """The layer as an RFC 7946 FeatureCollection dict (no 'crs' member: WGS84 is implied)."""
-    props = _records(layer.properties)
-    feats = []
-    for coords, p in zip(layer.coords, props):
-        if null_site_ids:
-            for key in ("serving_site_id", "elements"):
-                if key in p and p[key] is not None and p[key] < 0:
-                    p[key] = None
-        c = np.round(coords, LONLAT_DECIMALS).tolist()
-        geom = {"type": "Point", "coordinates": c[0]} if layer.geometry_type == "Point" else {
-            "type": layer.geometry_type, "coordinates": c}
-        feats.append({"type": "Feature", "geometry": geom, "properties": p})
+    props = _records(layer.properties, ("serving_site_id", "elements") if null_site_ids else ())
+    if layer.geometry_type == "Point":  # one (1, 2) array per feature: rounded all at once
+        xy = np.round(np.concatenate(layer.coords), LONLAT_DECIMALS).tolist() if layer.coords else []
+        geoms = [{"type": "Point", "coordinates": c} for c in xy]
+    else:
+        geoms = [{"type": layer.geometry_type, "coordinates": np.round(c, LONLAT_DECIMALS).tolist()}
+                 for c in layer.coords]
+    feats = [{"type": "Feature", "geometry": g, "properties": p} for g, p in zip(geoms, props)]
     out = {"type": "FeatureCollection", "features": feats}
     if layer.coords:
         xy = np.concatenate(layer.coords)
