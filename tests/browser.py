@@ -2,11 +2,12 @@
 
 The page is copied beside itself with two small scripts added: one at the top of <head> that records every
 error event (script errors, and resources such as images that fail to load or decode: their 'error' events
-are caught in the capture phase), and one that, on 'load', asks the browser to decode every <img> (``HTMLImageElement.decode()``), draws it on a
+are caught in the capture phase), and one that, on 'load' (which waits for every image), checks that each <img> loaded, draws it on a
 canvas and looks at its bottom row of pixels (a PNG cut short still "decodes" in Chromium, shown partly, but
 its missing rows stay transparent, while every figure of ours has an opaque background), and writes the
-results and natural sizes into a <pre id="__check"> element (first with ``final: false`` as soon as the page
-loads, so a page whose image decoding never settles still reports its errors; such a run is retried).  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
+results and natural sizes into a <pre id="__check"> element, all synchronously in the load handler (an
+asynchronous ``HTMLImageElement.decode()`` sometimes never settled before Chromium dumped the page on a busy
+machine).  Chromium's ``--dump-dom`` prints the DOM after ``--virtual-time-budget``, and
 ``--enable-logging=stderr`` prints the console messages, which are scanned for errors.
 """
 
@@ -26,16 +27,13 @@ _HEAD = """<script>window.__errors=[];window.addEventListener('error',function(e
 window.__errors.push(t&&t.tagName?('failed to load '+t.tagName+' '+String(t.src||t.href||'').slice(0,60)):
 String(e.message));},true);</script>"""
 _TAIL = """<script>window.addEventListener('load',function(){var imgs=Array.prototype.slice.call(document.images);
-var p=document.createElement('pre');p.id='__check';document.body.appendChild(p);
-p.textContent=JSON.stringify({final:false,images:imgs.map(function(i){return {w:i.naturalWidth,h:i.naturalHeight,
-complete:i.complete,decoded:null,bottom_painted:null,alt:i.alt};}),errors:window.__errors});
 function painted(i){try{var c=document.createElement('canvas');c.width=i.naturalWidth;c.height=i.naturalHeight;
 var x=c.getContext('2d');x.drawImage(i,0,0);var d=x.getImageData(0,c.height-1,c.width,1).data;
 for(var k=3;k<d.length;k+=4){if(d[k]>0)return true;}return false;}catch(e){return 'error: '+e;}}
-Promise.all(imgs.map(function(i){return i.decode().then(function(){return true;},function(){return false;});}))
-.then(function(ok){var out=imgs.map(function(i,k){return {w:i.naturalWidth,h:i.naturalHeight,complete:i.complete,
-decoded:ok[k],bottom_painted:ok[k]&&i.naturalWidth>0?painted(i):false,alt:i.alt};});
-p.textContent=JSON.stringify({final:true,images:out,errors:window.__errors});});});</script>"""
+var out=imgs.map(function(i){var ok=i.complete&&i.naturalWidth>0;return {w:i.naturalWidth,h:i.naturalHeight,
+complete:i.complete,decoded:ok,bottom_painted:ok?painted(i):false,alt:i.alt};});
+var p=document.createElement('pre');p.id='__check';document.body.appendChild(p);
+p.textContent=JSON.stringify({final:true,images:out,errors:window.__errors});});</script>"""
 
 
 def find_chromium() -> str | None:
