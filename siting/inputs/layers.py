@@ -388,6 +388,17 @@ def _check_bs_not_indoors(bs: pd.DataFrame, buildings: gpd.GeoDataFrame, path: P
     )
 
 
+def _optional_z(gdf: gpd.GeoDataFrame, path: Path, role: str, labels: np.ndarray) -> np.ndarray:
+    """The optional ``z_m`` column of a point layer [m] (NaN where not given), refused when negative or absurd."""
+    z = _numeric(gdf, "z_m", path, role, labels, required=False, default=np.nan, kind="z_m")
+    neg = z < 0
+    if neg.any():
+        raise InputDataError(f"{role} file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
+    given = ~np.isnan(z)
+    _check_range(z[given], labels[given], path, role, "z_m", "z_m")
+    return z
+
+
 def _given_sites(gdf: gpd.GeoDataFrame, path: Path) -> pd.DataFrame:
     refs = _refs(gdf, ("site_id", "id"))
     labels = np.array([f"site '{r}'" for r in refs], dtype=object)
@@ -397,11 +408,7 @@ def _given_sites(gdf: gpd.GeoDataFrame, path: Path) -> pd.DataFrame:
             f"sites file '{path}': site ids {_listing(sorted(set(refs[dup])))} occur more than once; make them unique"
         )
     x, y = _points_xy(gdf, path, "sites", labels)
-    z = _numeric(gdf, "z_m", path, "sites", labels, required=False, default=np.nan, kind="z_m")
-    neg = z < 0
-    if neg.any():
-        raise InputDataError(f"sites file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
-    _check_range(z[~np.isnan(z)], labels[~np.isnan(z)], path, "sites", "z_m", "z_m")
+    z = _optional_z(gdf, path, "sites", labels)
     return pd.DataFrame({"site_ref": pd.Series(refs, dtype=object), "x": x, "y": y, "z_m": z})
 
 
@@ -409,11 +416,7 @@ def _given_users(gdf: gpd.GeoDataFrame, path: Path, weight_column: str, notes: l
     refs = _refs(gdf, ("user_id", "id"))
     labels = np.array([f"user '{r}'" for r in refs], dtype=object)
     x, y = _points_xy(gdf, path, "users", labels)
-    z = _numeric(gdf, "z_m", path, "users", labels, required=False, default=np.nan, kind="z_m")
-    neg = z < 0
-    if neg.any():
-        raise InputDataError(f"users file '{path}': z_m is negative for {_listing(labels[neg])}; give heights above ground")
-    _check_range(z[~np.isnan(z)], labels[~np.isnan(z)], path, "users", "z_m", "z_m")
+    z = _optional_z(gdf, path, "users", labels)
     if weight_column not in gdf.columns:
         notes.append(f"users file '{path.name}' has no weight column '{weight_column}'; every user weighs 1.")
         w = np.ones(len(gdf))
