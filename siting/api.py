@@ -11,7 +11,6 @@ from pathlib import Path
 from typing import Any
 
 from .job import Job
-from .preflight import check_job
 from .runner import RunResult, run
 
 
@@ -68,9 +67,10 @@ def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: li
         the_job = Job.from_dict(job, base_dir=Path.cwd(), source="job").replace(**sections)
     else:
         the_job = Job.from_toml(Path(job), overrides, **sections)
-        check_job(the_job, job_file=Path(job), write=write, overwrite=overwrite)  # the job file is an input too
+    job_file = None if isinstance(job, (Job, Mapping)) else Path(job)  # the job file is an input too
     return run(the_job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress, tile_m=tile_m,
-               write=write, cache_dir=None if cache_dir is None else Path(cache_dir), overwrite=overwrite)
+               write=write, cache_dir=None if cache_dir is None else Path(cache_dir), overwrite=overwrite,
+               job_file=job_file)
 
 
 __all__ = ["plan"]

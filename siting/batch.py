@@ -97,7 +97,7 @@ def _run_single(path: Path, overrides, *, fresh, workers, scheduler, progress) -
 
     t0 = time.perf_counter()
     result = run(Job.from_toml(path, overrides), fresh=fresh, workers=workers, scheduler=scheduler,
-                 progress=progress)
+                 progress=progress, job_file=path)
     row = _row(result, time.perf_counter() - t0)
     return {"status": "ok", "surfaces": row["surfaces"], "cost": row["cost"], "covered_weight": row["covered_weight"],
             "covered_share": row["covered_share"], "optimality": row["proven"], "time_s": row["time_s"],

@@ -106,8 +106,8 @@ def _dispatch(args) -> int:
     from .preflight import check_district, check_job
 
     job = Job.from_toml(args.job, args.overrides)
-    check_job(job, job_file=args.job, overwrite=args.overwrite)  # before any layer is read
     if args.command == "validate":
+        check_job(job, job_file=args.job, overwrite=args.overwrite)  # before any layer is read
         from .district import summary
         from .runner import capture_notes
         from .stages import load_stage
@@ -127,7 +127,7 @@ def _dispatch(args) -> int:
 
     result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
                  progress=show_progress(args.progress, args.quiet, sys.stderr.isatty()), notices=not args.quiet,
-                 overwrite=args.overwrite)
+                 overwrite=args.overwrite, job_file=args.job)  # run() checks the job before any layer is read
     if not args.quiet:
         plan = result.plan
         covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())

@@ -347,7 +347,7 @@ def _open_log(buffer: logging.handlers.BufferingHandler | None, out_dir: Path) -
 def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, scheduler: str | None = None,
         progress: bool = False, tile_m: float | None = None, write: bool = True,
         cache_dir: str | Path | None = None, notices: bool | None = None, overwrite: bool = False,
-        checks: bool = True, cache: StageCache | None = None) -> RunResult:
+        checks: bool = True, cache: StageCache | None = None, job_file: str | Path | None = None) -> RunResult:
     """Run a job end to end and return every stage's tables.
 
     Parameters
@@ -379,9 +379,11 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
     cache : StageCache, optional
         The stage cache object to use instead of one at ``cache_dir`` (the scenarios of a job share one that also
         keeps its entries in memory).
+    job_file : str or Path, optional
+        The job file the job came from: the output folder may not hold it either (:func:`siting.preflight.check_job`).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
-    preflight.check_job(job, write=write, overwrite=overwrite)
+    preflight.check_job(job, job_file=job_file, write=write, overwrite=overwrite)
     out_dir = Path(job.output.folder)
     cache_root = Path(cache_dir) if cache_dir is not None else (out_dir / ".cache" if write else None)
     buffer = logging.handlers.BufferingHandler(1 << 20) if write else None  # siting.log opens after the checks
@@ -507,4 +509,4 @@ def write_los_graph(path: Path, gains: GainResult) -> Path:
 
 def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs: Any) -> RunResult:
     """Load, validate and run a job file (what ``siting plan`` does); ``kwargs`` go to :func:`run`."""
-    return run(Job.from_toml(path, overrides), **kwargs)
+    return run(Job.from_toml(path, overrides), job_file=path, **kwargs)
