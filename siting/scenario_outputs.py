@@ -13,7 +13,6 @@ import json
 from pathlib import Path
 
 from .cache import StageCache
-from .errors import SitingError
 
 
 class MemoryStageCache(StageCache):
@@ -47,7 +46,7 @@ def write_light(result) -> dict[str, Path]:
 
     Refuses (:class:`~siting.errors.SitingError`) a folder holding files of those names that no siting run made.
     """
-    from .outputs import atomic, derive, folder, survey
+    from .outputs import atomic, commit_set, derive, survey
     from .outputs import record as record_mod
     from .plandiff import field_survey_frame
     from .runner import output_bundle
@@ -57,19 +56,15 @@ def write_light(result) -> dict[str, Path]:
     out = Path(result.job.output.folder)
     out.mkdir(parents=True, exist_ok=True)
     names = ["survey.csv", "run.json"]
-    with atomic.folder_lock(out):
-        atomic.recover(out, folder.siting_name)
-        clash = folder.foreign_files(out, names)
-        if clash:
-            raise SitingError(f"output folder '{out}' holds files that no siting run created there: "
-                              f"{', '.join(clash)}; move them away or choose another output.folder")
-        with atomic.OutputSet(out, folder.siting_name) as st:
-            frame = field_survey_frame(survey.survey_frame(bundle, fig), bundle.run_info)
-            survey.write_survey_csv(st.path("survey.csv"), frame)
-            record = record_mod.run_record(bundle, fig, {"survey_csv": "survey.csv", "run_json": "run.json"}, {})
-            record["manifest"] = {"complete": True, "created_by": "siting", "files": sorted(names),
-                                  "note": "the light output set of a scenario: run.json and survey.csv"}
-            atomic.write_text(st.path("run.json"), json.dumps(record, indent=1, allow_nan=False,
-                                                              ensure_ascii=False) + "\n")
-            st.commit(names)
+
+    def write(st) -> dict[str, str]:
+        frame = field_survey_frame(survey.survey_frame(bundle, fig), bundle.run_info)
+        survey.write_survey_csv(st.path("survey.csv"), frame)
+        record = record_mod.run_record(bundle, fig, {"survey_csv": "survey.csv", "run_json": "run.json"}, {})
+        record["manifest"] = {"complete": True, "created_by": "siting", "files": sorted(names),
+                              "note": "the light output set of a scenario: run.json and survey.csv"}
+        atomic.write_text(st.path("run.json"), json.dumps(record, indent=1, allow_nan=False, ensure_ascii=False) + "\n")
+        return {"survey_csv": "survey.csv", "run_json": "run.json"}
+
+    commit_set(out, names, write)
     return {"survey_csv": out / "survey.csv", "run_json": out / "run.json"}

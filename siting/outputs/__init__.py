@@ -158,33 +158,40 @@ def write_outputs(out_dir, bundle: OutputBundle, *, extra_files: dict | None = N
     except OSError as exc:
         raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
                           "choose another output.folder or fix its permissions") from exc
-    with atomic.folder_lock(out):
-        rel = _write_locked(out, bundle, fig, formats, extra, overwrite, t, t_start)
+    extra_names = [rel for rel, _ in extra.values()]
+    rel = commit_set(out, folder.planned_files(formats, bundle.include_candidates, extra_names),
+                     lambda st: _write_set(st, bundle, fig, formats, extra, t, t_start),
+                     extra_names=extra_names, overwrite=overwrite)
     return {k: out / v for k, v in rel.items()}
 
 
-def _write_locked(out: Path, bundle, fig, formats, extra, overwrite, t, t_start) -> dict:
-    """Recover an interrupted commit, refuse foreign files, then stage and commit the set (folder locked)."""
-    extra_names = [rel for rel, _ in extra.values()]
-    allowed = lambda rel: folder.siting_name(rel, extra_names)  # noqa: E731
-    try:
-        atomic.recover(out, allowed)
-    except OSError as exc:
-        raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
-                          "choose another output.folder or fix its permissions") from exc
-    names = folder.planned_files(formats, bundle.include_candidates, extra_names)
-    clash = [] if overwrite else folder.foreign_files(out, names)
-    if clash:
-        raise SitingError(f"output folder '{out}' holds files that no siting run created there: {', '.join(clash)}; "
-                          "move them away, choose another output.folder, or allow it with --overwrite")
-    try:
-        with atomic.OutputSet(out, allowed) as st:
-            rel = _write_set(st, bundle, fig, formats, extra, t, t_start)
-            st.commit(list(rel.values()))
-    except OSError as exc:
-        raise SitingError(f"output folder '{out}': writing the output set failed ({exc.strerror or exc}); the "
-                          "previous set is left as it was; free disk space or fix the folder's permissions and "
-                          "run again") from exc
+def commit_set(out: Path, names: list[str], write, *, extra_names=(), overwrite: bool = False) -> dict:
+    """Write one output set into ``out`` (an existing folder) and commit it: under the folder lock, recover an
+    interrupted commit, refuse files among ``names`` that no siting run created (unless ``overwrite``), let
+    ``write(staging)`` write the set and return ``{name: relative path}``, then move it into place.
+
+    Used by :func:`write_outputs` and by the light set of a scenario (:mod:`siting.scenario_outputs`).
+    """
+    allowed = lambda rel: folder.siting_name(rel, list(extra_names))  # noqa: E731
+    with atomic.folder_lock(out):
+        try:
+            atomic.recover(out, allowed)
+        except OSError as exc:
+            raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
+                              "choose another output.folder or fix its permissions") from exc
+        clash = [] if overwrite else folder.foreign_files(out, names)
+        if clash:
+            raise SitingError(f"output folder '{out}' holds files that no siting run created there: "
+                              f"{', '.join(clash)}; move them away, choose another output.folder, or allow it with "
+                              "--overwrite")
+        try:
+            with atomic.OutputSet(out, allowed) as st:
+                rel = write(st)
+                st.commit(list(rel.values()))
+        except OSError as exc:
+            raise SitingError(f"output folder '{out}': writing the output set failed ({exc.strerror or exc}); the "
+                              "previous set is left as it was; free disk space or fix the folder's permissions and "
+                              "run again") from exc
     return rel
 
 
