@@ -521,7 +521,7 @@ def test_a_solver_point_that_breaks_the_model_is_never_a_plan(back_end, method):
 def test_large_models_solved_with_interior_point_lps_keep_the_optimum():
     # large models switch HiGHS's LP solver to its interior point method; force it on small instances and
     # compare with brute force
-    ipm = opt.HighsBackend(ipm_nonzeros=0)
+    ipm = opt.HighsBackend(ipm_nonzeros=0, ipm_row_nonzeros=0.0)
     for seed in range(4):
         C, w, c, site = make_instance(seed, n_sites=6, n_users=14)
         vals, _, ok = brute_force(C, w, c, site, budget=7)

@@ -401,3 +401,25 @@ def test_backups_prefer_another_wall_and_another_building():
     # without walls: ranked by kept weight only, one per site
     g = opt.backups_for([0, 5], C, w, c, site, k=3).query("option == 0")
     assert g["backup_option"].tolist() == [1, 2, 3] and (g["placement"] == "").all()
+
+
+def test_lp_duality_proves_the_cheapest_plan_only_when_brute_force_agrees():
+    # The tie-break solve is skipped when the first solve's LP duals (budget and count rows) prove that no
+    # plan covering the plan's weight is cheaper (LP sensitivity analysis: Bertsimas and Tsitsiklis,
+    # "Introduction to Linear Optimization", 1997, section 5.2).  Reference: exhaustive enumeration.
+    fired = 0
+    for seed in range(150):
+        rng = np.random.default_rng(seed)
+        n_sites = 10
+        site = np.repeat(np.arange(n_sites), rng.integers(1, 2 + (seed % 2), n_sites))[:12]
+        C = rng.random((len(site), 40)) < 0.12
+        w = rng.integers(1, 4, 40).astype(float)
+        equal = seed % 3 != 2
+        c = np.full(len(site), 5500.0) if equal else rng.choice([1500.0, 3000.0, 4500.0], len(site))
+        budget, count = (None, int(rng.integers(2, 5))) if equal else (float(rng.integers(3, 9)) * 1500.0, None)
+        p = opt.solve_coverage(sp.csr_array(C), w, c, site, budget=budget, max_count=count)
+        val, cost = enumerate_plans(C, w, c, site, np.zeros((0, 2), np.int64), budget, count)
+        wrong, miss, false, _ = judge_max(val, cost, p.objective, p.cost, p.bound, p.status)
+        assert not (wrong or miss or false), (seed, p.message)
+        fired += "LP duality" in p.message
+    assert fired >= 20, fired

@@ -35,6 +35,7 @@ class SolveResult:
     detail: str = ""
     n_fixed: int = 0  # options set to 0 by reduced-cost fixing (staged HiGHS path)
     notes: tuple = ()  # plain sentences for the plan's message (a re-solve, a recovered fault)
+    lp: tuple | None = None  # (objective, row duals) of the LP relaxation (staged HiGHS path), minimising form
 
 
 def objectives_agree(reported: float, recomputed: float) -> bool:
@@ -172,11 +173,15 @@ class HighsBackend:
 
     Attributes
     ----------
-    ipm_nonzeros : from this many nonzeros on, HiGHS solves the model's LPs with its interior point method
-        instead of the dual simplex.  Measured (docs/MODELS.md): on a 21,631-row, 483,114-nonzero coverage
-        model the dual simplex had not finished the root LP after 300 s, the interior point method took
-        13 s; at 192,000 nonzeros (synthetic city of 5,000 buildings) the simplex was faster (19 s against
-        27 s to the proven optimum).
+    ipm_nonzeros, ipm_row_nonzeros : from ``ipm_nonzeros`` nonzeros on, HiGHS solves the LPs of a model
+        with a covered-weight target row (minimum cost, and the tie-break solve), or of one with at least
+        ``ipm_row_nonzeros`` nonzeros per row on average, with its interior point method instead of the dual
+        simplex.  Measured (docs/MODELS.md): on the dense geometric coverage models (483,114 and 1,078,353
+        nonzeros, 22 and 48 per row) the dual simplex had not finished the root LP after 60 s, the interior
+        point method took 9 and 22 s; on the synthetic cities' maximum-coverage models (7.4 per row) the
+        dual simplex is faster (100,000 buildings, 743,808 nonzeros: 5.2 s against 30.7 s; 5,000 buildings:
+        19 s against 27 s to the proven optimum), but not on the same city's tie-break model, whose target
+        row holds a nonzero per user class (interior point 30.6 s; dual simplex unfinished after 90 s).
     first_pass_nodes : the staged path first runs without root restarts and stops after this many
         branch-and-bound nodes; only a model still open then is solved again with HiGHS's defaults.
         Measured (docs/MODELS.md): after the fixing, the real district closes in 3 nodes without restarts
@@ -190,6 +195,7 @@ class HighsBackend:
 
     name: ClassVar[str] = "highs"
     ipm_nonzeros: int = 300_000
+    ipm_row_nonzeros: float = 15.0
     first_pass_nodes: int = 16
     first_pass_min_free: int = 100
     first_pass_max_free: int = 2000
@@ -213,7 +219,8 @@ class HighsBackend:
         h.setOptionValue("output_flag", False)
         h.setOptionValue("random_seed", int(settings.seed))
         h.setOptionValue("mip_rel_gap", float(settings.mip_gap))
-        if milp.A.nnz >= self.ipm_nonzeros:
+        if milp.A.nnz >= self.ipm_nonzeros and (milp.target_row >= 0
+                                                 or milp.A.nnz >= self.ipm_row_nonzeros * milp.A.shape[0]):
             h.setOptionValue("solver" if relax else "mip_lp_solver", "ipm")
         if settings.threads is not None:
             h.setOptionValue("threads", int(settings.threads))
@@ -350,16 +357,18 @@ class _StagedSolve:
         return h
 
     def run(self) -> SolveResult:
+        self.lp: tuple | None = None
         res = self.stages()
         notes = tuple(dict.fromkeys((*self.notes, *res.notes)))
-        return replace(res, notes=notes)
+        return replace(res, notes=notes, lp=self.lp)
 
     def stages(self) -> SolveResult:
         milp, n, nv = self.milp, self.n, self.nv
         lp = self.lp_relaxation()
         if lp is None:  # no LP certificate to work from: the plain solve decides
             return self.brun(self.new(milp, None), self.start, self.left())
-        x_lp, d, z_lp = lp
+        x_lp, d, z_lp, row_dual = lp
+        self.lp = (z_lp, row_dual)
         start_pt = self.feasible_start()
         if start_pt is not None:
             z_start = float(milp.obj @ start_pt)
@@ -379,7 +388,7 @@ class _StagedSolve:
                                 lambda res: self.merged(res, inc, z_inc, z_lp, from_solver, n_fixed))
 
     def lp_relaxation(self):
-        """(x, reduced costs, objective) of the LP relaxation's options, or None without an optimal LP."""
+        """(x, reduced costs, objective, row duals) of the LP relaxation, or None without an optimal LP."""
         import highspy
 
         lp = self.backend.new_model(self.milp, self.settings, relax=True)
@@ -388,7 +397,8 @@ class _StagedSolve:
             return None
         sol = lp.getSolution()
         n = self.n
-        return np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n], float(lp.getInfo().objective_function_value)
+        return (np.asarray(sol.col_value)[:n], np.asarray(sol.col_dual)[:n], float(lp.getInfo().objective_function_value),
+                np.asarray(sol.row_dual))
 
     def feasible_start(self):
         """The warm start as a full point when it is complete and meets the model, else None."""

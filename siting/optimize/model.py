@@ -30,6 +30,7 @@ class _Milp:
     delta: float = 0.0  # kept for callers of older versions: no tie-break term is in the objective any more
     obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective
     eps: float = 0.0  # kept for callers of older versions (ties are broken by a second, lexicographic solve)
+    count_row: int = -1
 
     @property
     def size(self):
@@ -77,16 +78,16 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
     if SR.shape[0]:
         rows.add(sp.hstack([SR, sp.csr_array((SR.shape[0], nv - n))], format="csr"), np.full(SR.shape[0], -_INF),
                  np.ones(SR.shape[0]))
-    budget_row = target_row = -1
+    budget_row = target_row = count_row = -1
     if budget is not None:
         budget_row = rows.add(sp.csr_array(np.r_[c, np.zeros(nv - n)][None, :]), [-_INF], [budget])
     if max_count is not None:
-        rows.add(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]), [-_INF], [float(max_count)])
+        count_row = rows.add(sp.csr_array(np.r_[np.ones(n), np.zeros(nv - n)][None, :]), [-_INF], [float(max_count)])
     if target is not None:
         target_row = rows.add(sp.csr_array(val_row[None, :]), [target], [_INF])
     A, row_lo, row_hi = rows.stacked(nv)
     return _Milp(obj, A, row_lo, row_hi, np.zeros(nv), col_hi, integer, n, budget_row, target_row, eps * cost_cap,
-                 -1.0 if mode == "max" else 1.0, eps)
+                 -1.0 if mode == "max" else 1.0, eps, count_row)
 
 
 class _Rows:

@@ -110,7 +110,7 @@ def _solve(inst: _Instance, mode, target, settings: SolverSettings, backend: Bac
     if tie_break:
         t4 = time.perf_counter()
         plan = _tie_break_solve(asm, plan, milp, bound_of(res, asm, milp), settings, backend, reduce, deadline,
-                                res.notes)
+                                res.notes, res.lp)
         timings["tie_break"] = time.perf_counter() - t4
     timings["total"] = time.perf_counter() - t0
     return plan
@@ -164,14 +164,16 @@ def bound_of(res: SolveResult, asm: Assembly, milp: _Milp) -> float:
 
 
 def _tie_break_solve(asm: Assembly, plan: Plan, milp: _Milp, bound_raw: float, settings: SolverSettings,
-                     backend: Backend, reduce, deadline: float, first_notes=()) -> Plan:
+                     backend: Backend, reduce, deadline: float, first_notes=(), lp=None) -> Plan:
     """The second, lexicographic solve: among plans as good as ``plan``, the cheapest (or the heaviest).
 
     Maximum coverage: minimise cost subject to covered weight >= the plan's weight (and the same rows).
     Minimum cost: maximise covered weight subject to cost <= the plan's cost and weight >= the target.
     Run only when the first plan is proven within the asked gap and time is left; started from the first
     plan, and its result is kept only when it is exactly better, so the plan never gets worse.  The first
-    solve's bound stays the plan's bound.  ``plan.tie_break`` says how it went.
+    solve's bound stays the plan's bound.  ``plan.tie_break`` says how it went.  ``lp``: the first solve's
+    LP relaxation (objective, row duals), which can prove the plan the cheapest without a second solve
+    (:func:`_cheapest_by_lp_duals`).
     """
     if len(plan.chosen) == 0:
         return plan
@@ -182,6 +184,9 @@ def _tie_break_solve(asm: Assembly, plan: Plan, milp: _Milp, bound_raw: float, s
     chosen_red = np.sort(np.searchsorted(red.opt, plan.chosen))
     tol_w = 1e-9 * max(1.0, abs(plan.objective))
     tol_c = 1e-9 * max(1.0, abs(plan.cost))
+    if asm.mode == "max" and lp is not None and _cheapest_by_lp_duals(red, milp, lp, chosen_red, plan.cost, tol_c):
+        return _with_tie_break(plan, "proven", "Ties broken by LP duality: the first solve's LP relaxation proves "
+                                               "that no plan covering at least as much weight is cheaper.")
     if asm.mode == "max":
         m2 = _build(red, inst.budget, inst.max_count, mode="min", target=plan.objective - tol_w)
     else:
@@ -221,6 +226,40 @@ def _tie_break_solve(asm: Assembly, plan: Plan, milp: _Milp, bound_raw: float, s
         better.timings_s = plan.timings_s
         return _with_tie_break(better, state, text)
     return _with_tie_break(plan, state, " ".join((*res.notes, text)))
+
+
+def _cheapest_by_lp_duals(red: _Reduced, milp: _Milp, lp, chosen_red, plan_cost: float, tol_c: float) -> bool:
+    """True when the LP relaxation of the maximum-coverage model proves that no plan covering the weight of
+    ``chosen_red`` is cheaper than ``plan_cost``.
+
+    The optimal value v(B, K) of the LP relaxation is concave in the right-hand sides of the budget and count
+    rows, and their optimal duals mu, lam >= 0 are a supergradient (LP sensitivity analysis: D. Bertsimas and
+    J. N. Tsitsiklis, "Introduction to Linear Optimization", Athena Scientific, 1997, section 5.2; from
+    memory).  A plan of cost C' and count K' is a point of the relaxation with right-hand sides (C', K'), so
+    it covers at most z + mu (C' - B) + lam (K' - K), where z is the LP optimum.  A plan covering at least
+    the weight W of this plan therefore has mu (B - C') + lam (K - K') <= s = z - W (plus a tolerance), so
+    C' >= B - s / mu and K' >= K - s / lam: its cost is at least the larger of B - s / mu and the sum of the
+    ceil(K - s / lam) cheapest options.  When that bound reaches ``plan_cost``, the plan is the cheapest.
+    """
+    z_min, row_dual = lp
+    start_idx, start_val = _start_vector(red, milp, chosen_red)
+    x = np.zeros(len(milp.obj))
+    x[start_idx] = start_val
+    if not _satisfies(milp, x):
+        return False
+    W = -float(milp.obj @ x)  # weight of the plan in the model's terms (maximising form)
+    s = max(0.0, -z_min - W) + 1e-9 * max(1.0, abs(W))
+    bound = -_INF
+    if milp.budget_row >= 0:
+        mu = max(0.0, -float(row_dual[milp.budget_row]))
+        if mu > 0:
+            bound = float(milp.row_hi[milp.budget_row]) - s / mu
+    if milp.count_row >= 0:
+        lam = max(0.0, -float(row_dual[milp.count_row]))
+        if lam > 0:
+            k_min = int(np.ceil(float(milp.row_hi[milp.count_row]) - s / lam - 1e-9))
+            bound = max(bound, float(np.sort(red.c)[: max(0, k_min)].sum()))
+    return bound >= plan_cost - tol_c
 
 
 def _with_tie_break(plan: Plan, state: str, text: str) -> Plan:
