@@ -39,6 +39,8 @@ __all__ = ["EDGE_PAD_M", "HMAX_MARGIN_M", "build_edge_grid", "pairs_in_range", "
            "write_pairs"]
 
 _JIT: dict[str, Any] = {"cache": True, "nogil": True}
+# the helpers called per edge or per pair are inlined at the numba IR level: a call per edge costs ~30 %
+_JIT_INLINE: dict[str, Any] = {**_JIT, "inline": "always"}
 _MAX_CHUNKS = 4096  # the chunk size grows beyond the configured one so that no call makes more chunks
 
 
@@ -96,7 +98,7 @@ def _bld(bld):
     return (i64(gstart), *_f64(gx0, gy0, gx1, gy1, gid), i64(bstart), *_f64(bh, ex0, ey0, ex1, ey1))
 
 
-@njit(**_JIT)
+@njit(**_JIT_INLINE)
 def _accept(ax, ay, az, bx, by, bz, r2, ha, nax, nay, thr_a, hb, nbx, nby, thr_b):
     """Range (3-D distance <= R, > 0) and facade filters (front half-space / steering limit)."""
     dx = bx - ax
@@ -111,7 +113,7 @@ def _accept(ax, ay, az, bx, by, bz, r2, ha, nax, nay, thr_a, hb, nbx, nby, thr_b
     return not ((ha and (nax * dx + nay * dy) <= thr_a * d) or (hb and -(nbx * dx + nby * dy) <= thr_b * d))
 
 
-@njit(**_JIT)
+@njit(**_JIT_INLINE)
 def _row_span(iy, x, y, r2, pg):
     """Sorted ``b`` positions [s0, s1) in the cells of row iy of the point grid that meet the disc of range r."""
     px0, py0, pcs, pnx, pny, pstart, porder = pg
@@ -128,7 +130,7 @@ def _row_span(iy, x, y, r2, pg):
     return pstart[iy * pnx + ix0], pstart[iy * pnx + ix1 + 1]
 
 
-@njit(**_JIT)
+@njit(**_JIT_INLINE)
 def _bare_los(x, y, z, bx, by, bz, last, grid):
     """(LOS bit under the bare-ray rule, grid entry to try first for the next ray from the same point)."""
     cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax = grid
