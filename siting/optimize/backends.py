@@ -219,13 +219,17 @@ class HighsBackend:
         h.setOptionValue("output_flag", False)
         h.setOptionValue("random_seed", int(settings.seed))
         h.setOptionValue("mip_rel_gap", float(settings.mip_gap))
-        if milp.A.nnz >= self.ipm_nonzeros and (milp.target_row >= 0
-                                                 or milp.A.nnz >= self.ipm_row_nonzeros * milp.A.shape[0]):
+        if self.uses_ipm(milp):
             h.setOptionValue("solver" if relax else "mip_lp_solver", "ipm")
         if settings.threads is not None:
             h.setOptionValue("threads", int(settings.threads))
         h.passModel(_highs_lp(milp, relax))
         return h
+
+    def uses_ipm(self, milp: _Milp) -> bool:
+        """True when the model's LPs go to the interior point method (see ``ipm_nonzeros``)."""
+        return milp.A.nnz >= self.ipm_nonzeros and (milp.target_row >= 0
+                                                    or milp.A.nnz >= self.ipm_row_nonzeros * milp.A.shape[0])
 
     def run(self, h, start, time_limit_s) -> SolveResult:
         """One run of a prepared model from an optional start, its point checked against its objective.
@@ -393,6 +397,11 @@ class _StagedSolve:
 
         lp = self.backend.new_model(self.milp, self.settings, relax=True)
         lp.setOptionValue("time_limit", self.left())
+        if not self.backend.uses_ipm(self.milp):
+            # the reductions have done what presolve would: the synthetic cities' LPs take the same number of
+            # simplex iterations without it and 30 % less time (100,000 buildings 5.8 -> 4.2 s, 30,000 buildings
+            # 0.79-0.90 -> 0.57-0.58 s; real district 0.08 s either way)
+            lp.setOptionValue("presolve", "off")
         if lp.run() == highspy.HighsStatus.kError or lp.getModelStatus() != highspy.HighsModelStatus.kOptimal:
             return None
         sol = lp.getSolution()
