@@ -35,7 +35,9 @@ out = {"wall_s": time.perf_counter() - t0, "timings_s": r.timings_s, "buildings"
        "sites": len(r.sites), "users": len(r.users), "options": len(r.gains.options),
        "site_user_pairs": len(r.gains.site_user), "coverage_rows": len(r.gains.coverage),
        "chosen": len(r.plan.chosen), "objective": r.plan.objective, "status": r.plan.status, "gap": r.plan.gap,
-       "peak_rss_gb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e6}
+       "chosen_ids": sorted(int(x) for x in r.plan.chosen), "plan_timings_s": r.plan.timings_s,
+       "tie_break": r.plan.tie_break, "peak_rss_gb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e6,
+       "worker_peak_rss_gb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1e6}
 print("RESULT " + json.dumps(out))
 """
 
