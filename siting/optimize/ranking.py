@@ -137,10 +137,9 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
         special = [M.indices[M.indptr[r_i]:M.indptr[r_i + 1]]]
         if adj is not None:
             neighbours = adj.indices[adj.indptr[site[r]]:adj.indptr[site[r] + 1]]
-            special.append(at_site.members(np.searchsorted(at_site.keys, neighbours)[
-                np.isin(neighbours, at_site.keys)]))
+            special.append(at_site.members(at_site.codes(neighbours)))
         if home is not None:
-            special.append(home.members_of(r))
+            special.append(home.members(home.code[[r]]))
         special_groups = np.unique(group.code[np.concatenate(special)])
         a = np.concatenate([group.members(special_groups),
                             _leading_plain(limits[lim], special_groups, k, group, plain, c, lim, W)])
@@ -174,10 +173,10 @@ class _Index:
             return np.zeros(0, np.int64)
         return np.concatenate([self.order[self.start[g]:self.start[g + 1]] for g in codes])
 
-    def members_of(self, option: int) -> np.ndarray:
-        """All options in the group of ``option``."""
-        g = self.code[option]
-        return self.order[self.start[g]:self.start[g + 1]]
+    def codes(self, keys) -> np.ndarray:
+        """The codes of those ``keys`` that some option has."""
+        keys = np.asarray(keys)
+        return np.searchsorted(self.keys, keys)[np.isin(keys, self.keys)]
 
 
 def _group_order(opts, G0, c, group: _Index):
@@ -237,8 +236,8 @@ def _best_backups(r, a, rec, W, E_r, c, site, wall, bldg, k) -> dict:
         if key is not None:
             _, first = np.unique(key[a[s]], return_index=True)
             s = s[np.sort(first)]
-    weak = share[s] < WEAK_SHARE
-    s = s[np.lexsort((a[s], c[a[s]], -kept[s], tier[s], weak))][:k]
+    weak = share < WEAK_SHARE
+    s = s[np.lexsort((a[s], c[a[s]], -kept[s], tier[s], weak[s]))][:k]
     return {"option": np.full(len(s), r, np.int64), "backup_option": a[s], "recovered_weight": rec[s],
-            "recovered_share": share[s], "kept_weight": kept[s], "weak": share[s] < WEAK_SHARE,
+            "recovered_share": share[s], "kept_weight": kept[s], "weak": weak[s],
             "placement": placement[s]}
