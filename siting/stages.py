@@ -34,6 +34,7 @@ log = logging.getLogger("siting")
 #: Budgets of the coverage-versus-budget curve when the job gives none: these multiples of budget.max_cost (the
 #: plan's own budget among them, so the report shows what a quarter, half, ... twice the money would cover).
 SWEEP_BUDGET_FACTORS: tuple[float, ...] = (0.25, 0.5, 0.75, 1.0, 1.5, 2.0)
+SWEEP_MIN_S = 5.0  # least solver time of the whole coverage-versus-budget curve [s]
 
 
 @dataclass(frozen=True)
@@ -340,13 +341,15 @@ def _sweep(cover, weight, cost, option_site, plan, q: OptimiseParams, solver_kw:
         budgets = [round(budget * f, 2) for f in q.sweep_budget_factors]
     if not budgets:
         return None
-    # The whole curve gets the plan's own solve time (at least 2 s), split evenly over its points, on one model
-    # kept for all; each point reports its own proven gap and is 'optimal' only when proven within the plan's
-    # gap.  The plan's own budget is not solved again.
+    # The whole curve gets the plan's own solve time, at least SWEEP_MIN_S, as one pool shared by its points
+    # (time an easy point leaves goes to the later ones), on one model kept for all; each point reports its own
+    # proven gap and is 'optimal' only when proven within the plan's gap.  The plan's own budget is not solved
+    # again.  The floor: on a small district the points take ~0.1 s each and the plan less, and a limit near
+    # that would let the machine's load decide whether a point is proven, so two runs of one job could report
+    # different curves.
     others = sorted(x for x in set(budgets) if not (budget and q.target_share is None and x == budget))
-    own_s = max(2.0, float(plan.timings_s.get("total", q.time_limit_s)))
-    sweep_kw = dict(solver_kw, time_limit_s=max(0.05, min(q.time_limit_s, own_s) / max(1, len(others))),
-                    mip_rel_gap=q.mip_gap)  # fmt: skip
+    own_s = float(plan.timings_s.get("total", q.time_limit_s))
+    sweep_kw = dict(solver_kw, mip_rel_gap=q.mip_gap, total_time_s=min(q.time_limit_s, max(SWEEP_MIN_S, own_s)))
     sweep = opt.budget_sweep(cover, weight, cost, option_site, others, max_count=q.max_panels, **sweep_kw)
     if len(others) < len(set(budgets)):
         own = pd.DataFrame([{"budget": budget, "covered_weight": plan.objective, "bound": plan.bound,

@@ -106,13 +106,16 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight=None, *, targ
 def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, conflicts=None, load_cap=None,
                  option_wall=None, solver="highs", time_limit_s=60.0, mip_rel_gap=1e-4, reduce=True,
                  warm_start=True, threads=None, solver_seed=0, settings: SolverSettings | None = None,
-                 backend: Backend | None = None) -> pd.DataFrame:
+                 backend: Backend | None = None, total_time_s: float | None = None) -> pd.DataFrame:
     """Covered weight against budget, for the report's curve.
 
     Budgets are solved in increasing order on one model where the back end keeps models (HiGHS: only the
     budget row changes), each warm-started from the better of the previous plan (still feasible under a
     larger budget) and greedy; with other back ends each budget is solved afresh.  ``time_limit_s`` applies
-    to each budget (its greedy and both lexicographic solves); ties are broken toward the cheaper plan as in
+    to each budget (its greedy and both lexicographic solves).  ``total_time_s`` (None: no such limit) is a
+    time pool for the whole curve: each budget gets the time left in the pool divided by the budgets left
+    (at most ``time_limit_s``), so the time an easy budget does not use goes to the harder ones after it.
+    Ties are broken toward the cheaper plan as in
     :func:`solve_coverage`.  Every point is assembled exactly as :func:`solve_coverage` assembles its plan, so the
     statuses agree (a budget below the cheapest useful option: 'optimal' with nothing chosen).
 
@@ -128,7 +131,9 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
         raise SitingError(f"optimiser argument 'budgets': expected finite numbers >= 0, got {b.tolist()}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
     inst = _validate(cover, weight, cost, option_site, float(b.max()), max_count, conflicts, load_cap, option_wall)
-    plans = _sweep(inst, b, settings, backend or backend_for(settings.name), reduce, warm_start)
+    if total_time_s is not None and not (np.isfinite(total_time_s) and total_time_s > 0):
+        raise SitingError(f"optimiser argument 'total_time_s': expected a positive number, got {total_time_s!r}")
+    plans = _sweep(inst, b, settings, backend or backend_for(settings.name), reduce, warm_start, total_time_s)
     rows = [(x, p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status) for x, p in zip(b, plans)]
     return pd.DataFrame(rows, columns=_SWEEP_COLUMNS)
 

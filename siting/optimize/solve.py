@@ -293,19 +293,28 @@ def _warm_start(inst: _Instance, red: _Reduced, mode, model_target, deadline: fl
 
 
 def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backend: Backend, reduce,
-           warm_start) -> list[Plan]:
+           warm_start, total_time_s: float | None = None) -> list[Plan]:
     """Plans for each budget (``inst`` holds the largest); one plan per budget, in the order given.
 
     Where the back end keeps a model (:meth:`Backend.open`), it is built once with the largest budget and
     only the budget row changes; budgets are solved in increasing order, each warm-started from the better
     of the previous plan (still feasible under a larger budget) and greedy.  Otherwise each budget is
     solved afresh on the shared reduced instance.  Each budget has its own ``time_limit_s``, greedy and
-    tie-break solve included.
+    tie-break solve included; with ``total_time_s`` it is at most the pool's time left over the budgets left.
     """
     t0 = time.perf_counter()
+    pool_end = None if total_time_s is None else t0 + float(total_time_s)
+
+    def point_settings(left: int) -> SolverSettings:
+        if pool_end is None:
+            return settings
+        share = max(_MIN_SOLVE_S, (pool_end - time.perf_counter()) / max(1, left))
+        return replace(settings, time_limit_s=min(float(settings.time_limit_s), share))
+
     red = _reduce(inst, reduce)
     if reduce and inst.max_count is None and red.C.shape[0] and red.C.shape[1]:  # independent parts: exact split
-        split = solve_split(inst, red, budgets.tolist(), settings, backend, t0, t0 + float(settings.time_limit_s))
+        end = t0 + float(settings.time_limit_s) if pool_end is None else min(pool_end, t0 + settings.time_limit_s)
+        split = solve_split(inst, red, budgets.tolist(), settings, backend, t0, end)
         if split is not None:
             return split
     milp = _build(red, inst.budget, inst.max_count) if red.C.shape[0] and red.C.shape[1] else None
@@ -313,17 +322,18 @@ def _sweep(inst: _Instance, budgets: np.ndarray, settings: SolverSettings, backe
     order = np.argsort(budgets, kind="stable")
     plans: list[Plan | None] = [None] * len(budgets)
     if session is None:
-        for k in order:
+        for i, k in enumerate(order):
             inst_k = _Instance(inst.C, inst.w, inst.c, inst.site, float(budgets[k]), inst.max_count, inst.conflicts,
                                inst.load_cap)
-            plans[k] = _solve(inst_k, "max", None, settings, backend, reduce, warm_start, red=red)
+            plans[k] = _solve(inst_k, "max", None, point_settings(len(order) - i), backend, reduce, warm_start,
+                              red=red)  # fmt: skip
         return cast("list[Plan]", plans)  # every budget filled
     asm = Assembly.start(inst, red, "max", None, settings.mip_gap, backend.name, reduce, {}, time.perf_counter(),
                          settings.time_limit_s)
     prev = _NONE
-    for k in order:
-        plans[k] = _sweep_step(asm.for_budget(budgets[k]), cast(_Milp, milp), session, prev, settings, backend, reduce,
-                               warm_start)
+    for i, k in enumerate(order):
+        plans[k] = _sweep_step(asm.for_budget(budgets[k]), cast(_Milp, milp), session, prev,
+                               point_settings(len(order) - i), backend, reduce, warm_start)  # fmt: skip
         if len(plans[k].chosen):
             prev = np.sort(np.searchsorted(red.opt, plans[k].chosen))
     return _monotone_bounds(cast("list[Plan]", plans), budgets, settings.mip_gap)  # every budget filled
