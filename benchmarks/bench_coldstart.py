@@ -1,6 +1,7 @@
 """First-run (cold) against later-run (warm) wall time of the demo, for each compile strategy, in one run.
 
-    python benchmarks/bench_coldstart.py [--baseline-rev 3c350db] [--repeat 1] [--variants baseline,lazy,warmup]
+    python benchmarks/bench_coldstart.py [--baseline-rev 3c350db] [--repeat 1]
+        [--variants baseline,lazy,warmup,prepare]
 
 Each measurement is the command a new user types, ``siting plan demo_district/job.toml`` (with ``--fresh`` so
 the stage cache never answers, and a temporary output folder), in a child process.  Cold: numba's cache is
@@ -12,7 +13,9 @@ of a fresh install); warm: the same command again with that cache filled.  Varia
 - ``lazy``: this tree with ``SITING_NO_WARMUP=1``: serial ``nogil`` kernels run on threads, one signature
   each, compiled on first use in the job's process (clearance kernels only when the job uses the rule);
 - ``warmup``: this tree as shipped: the same kernels, the missing ones compiled in background processes
-  (one per kernel group) while the job loads its inputs.
+  (one per kernel group) while the job loads its inputs;
+- ``prepare``: this tree with the README's setup step: ``siting prepare`` on the empty cache (timed and
+  printed), then the first demo run ("cold": the first run after installing) and a later one.
 
 Target (issue 19): cold <= 2 x warm.  The machine's load average is printed with the figures: on a shared
 2-core machine compare the ratios, which are measured in the same run.
@@ -31,10 +34,12 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def _run(tree: Path, cache: Path, out: Path, env_extra: dict[str, str]) -> float:
+def _run(tree: Path, cache: Path, out: Path, env_extra: dict[str, str], prepare: bool = False) -> float:
     env = dict(os.environ, PYTHONPATH=str(tree), NUMBA_CACHE_DIR=str(cache), **env_extra)
     cmd = [sys.executable, "-m", "siting.cli", "plan", "--fresh", "--quiet", "--set", f"output.folder={out}",
            str(ROOT / "demo_district" / "job.toml")]
+    if prepare:
+        cmd = [sys.executable, "-m", "siting.cli", "prepare"]
     t0 = time.perf_counter()
     subprocess.run(cmd, env=env, check=True, cwd=tree)
     return time.perf_counter() - t0
@@ -52,11 +57,11 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--baseline-rev", default="3c350db", help="git revision of the baseline source tree")
     ap.add_argument("--repeat", type=int, default=1, help="cold/warm pairs per variant")
-    ap.add_argument("--variants", default="baseline,lazy,warmup")
+    ap.add_argument("--variants", default="baseline,lazy,warmup,prepare")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp_name:
         tmp = Path(tmp_name)
-        trees = {"lazy": (ROOT, {"SITING_NO_WARMUP": "1"}), "warmup": (ROOT, {})}
+        trees = {"lazy": (ROOT, {"SITING_NO_WARMUP": "1"}), "warmup": (ROOT, {}), "prepare": (ROOT, {})}
         if "baseline" in args.variants:
             trees["baseline"] = (_baseline_tree(args.baseline_rev, tmp), {})
         print(f"load average at start: {os.getloadavg()}")
@@ -65,6 +70,9 @@ def main() -> None:
             for name in args.variants.split(","):
                 tree, extra = trees[name]
                 cache = tmp / f"numba-{name}-{rep}"
+                if name == "prepare":
+                    print(f"prepare   siting prepare {_run(tree, cache, tmp / 'out', extra, prepare=True):6.1f} s "
+                          "(the setup step, before the first run)", flush=True)  # fmt: skip
                 cold = _run(tree, cache, tmp / "out", extra)
                 warm = _run(tree, cache, tmp / "out", extra)
                 rows.append((name, cold, warm))

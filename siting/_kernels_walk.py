@@ -198,6 +198,9 @@ def segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy
             return -1
 
 
+_segment_blocked_call = njit(**_JIT)(segment_blocked.py_func)  # the same walk, called (not inlined)
+
+
 @njit(**_JIT)
 def _tube_gprime(t, ax, ay, az, dx, dy, dz, c, ex0, ey0, evx, evy, h, u0, u1):
     """Derivative in t of g(t) = d_e(t)^2 + max(0, z(t) - h)^2 - c t (1 - t) (see ``edge_blocks_clear``)."""
@@ -388,7 +391,7 @@ def segment_blocked_clear(ax, ay, az, bx, by, bz, inside, kl, cs, nx, ny, start,
     dz = bz - az
     c = kl * math.sqrt(dx * dx + dy * dy + dz * dz)
     if c <= 0.0:
-        return segment_blocked(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
+        return _segment_blocked_call(ax, ay, az, bx, by, bz, cs, nx, ny, start, cx0, cy0, cx1, cy1, ch, hmax)
     sc = math.sqrt(c)
     rad = 0.5 * sc
     dd = dx * dx + dy * dy

@@ -10,6 +10,9 @@ kernels then compile lazily in the job's process, as before).
 
 Groups: ``rays`` (edge grid, pair search, pair table), ``clearance`` (first-Fresnel-zone walk, only for
 jobs with ``radio.fresnel_clearance`` > 0), ``surface`` (near-field tile sum).
+
+:func:`prepare` (the ``siting prepare`` command, run once after installing) compiles every group that is not
+cached the same way and waits for them, so that even the first job starts with the compiled kernels.
 """
 
 from __future__ import annotations
@@ -71,9 +74,36 @@ def start(clearance: bool) -> list[str]:
              "runs load them from numba's cache", ", ".join(groups))  # fmt: skip
     with _lock:
         for g in groups:
-            proc = subprocess.Popen([sys.executable, "-c", _CHILD, str(Path(__file__).resolve().parent), g],
-                                    stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)  # fmt: skip
-            _pending.append((g, proc, time.perf_counter()))
+            _pending.append((g, _spawn(g, subprocess.DEVNULL), time.perf_counter()))
+    return groups
+
+
+def _spawn(group: str, stderr) -> subprocess.Popen:
+    """A child process compiling one kernel group into numba's cache."""
+    return subprocess.Popen([sys.executable, "-c", _CHILD, str(Path(__file__).resolve().parent), group],
+                            stdout=subprocess.DEVNULL, stderr=stderr)  # fmt: skip
+
+
+def prepare() -> list[str]:
+    """Compile every kernel group that is not cached yet, one child process per group, and wait; returns the
+    groups compiled (empty when all were cached).
+
+    Raises
+    ------
+    SitingError
+        A group is still not cached afterwards (the child's error output is quoted): numba's cache folder is
+        not writable, or the compile failed.
+    """
+    from .errors import SitingError
+
+    groups = needed(clearance=True)
+    procs = [(g, _spawn(g, subprocess.PIPE)) for g in groups]
+    errors = {g: proc.communicate()[1].decode(errors="replace").strip() for g, proc in procs}
+    missing = needed(clearance=True)
+    if missing:
+        detail = "; ".join(f"{g}: {errors.get(g, '')[-400:] or 'no error output'}" for g in missing)
+        raise SitingError(f"the kernels {', '.join(missing)} could not be compiled into numba's cache ({detail}); "
+                          "check that the package folder's __pycache__ or NUMBA_CACHE_DIR is writable")  # fmt: skip
     return groups
 
 

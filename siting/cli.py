@@ -57,6 +57,10 @@ def _parser() -> argparse.ArgumentParser:
 
     keys = sub.add_parser("keys", help="print the job-file reference (every key, unit, default, range)")
     keys.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    prepare = sub.add_parser("prepare", help="compile the line-of-sight and surface kernels once, after installing "
+                             "(else the first plan compiles them)")  # fmt: skip
+    prepare.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
     return parser
 
 
@@ -93,6 +97,8 @@ def _dispatch(args) -> int:
     if args.command == "keys":
         print(reference_markdown())
         return 0
+    if args.command == "prepare":
+        return _prepare()
     if args.command == "plan":
         from .batch import expand_jobs
         from .scenarios import has_scenarios
@@ -141,6 +147,22 @@ def _dispatch(args) -> int:
         for line in cli_lines(result.outputs.get("run_json")):  # field verdicts and changes (siting.plandiff)
             print(line)
         print(f"outputs in {job.output.folder}")
+    return 0
+
+
+def _prepare() -> int:
+    """Compile the kernels into numba's cache (:func:`siting._warmup.prepare`) and say what was done."""
+    import time
+
+    from ._warmup import prepare
+
+    t0 = time.perf_counter()
+    groups = prepare()
+    if groups:
+        print(f"compiled the kernels ({', '.join(groups)}) in {time.perf_counter() - t0:.1f} s; jobs now load "
+              "them from numba's cache")  # fmt: skip
+    else:
+        print("the kernels are compiled already; nothing to do")
     return 0
 
 

@@ -374,6 +374,35 @@ def test_cold_kernel_cache_is_detected(tmp_path):
     assert cold.stdout.strip() == "True", cold.stderr
 
 
+def test_prepare_compiles_every_kernel_group_once(tmp_path):
+    """`siting prepare` (README setup step) fills an empty numba cache with every kernel group, so that a job with
+    or without the clearance rule finds its kernels cached; a second call has nothing to do."""
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "numba"), "PYTHONPATH": str(ROOT)}
+    first = subprocess.run([sys.executable, "-m", "siting.cli", "prepare"], env=env, capture_output=True, text=True,
+                           timeout=600)  # fmt: skip
+    assert first.returncode == 0, first.stderr
+    assert "compiled the kernels (rays, clearance, surface)" in first.stdout
+    code = "from siting.runner import kernels_cold; print(kernels_cold(True), kernels_cold(False))"
+    state = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120)
+    assert state.stdout.split() == ["False", "False"], state.stderr
+    again = subprocess.run([sys.executable, "-m", "siting.cli", "prepare"], env=env, capture_output=True, text=True,
+                           timeout=120)  # fmt: skip
+    assert again.returncode == 0 and "nothing to do" in again.stdout
+
+
+def test_prepare_names_the_groups_it_could_not_compile(monkeypatch, capsys):
+    """A compile that leaves a group uncached (here a child that fails) ends `siting prepare` with exit 1 and the
+    child's own error, not a silent success."""
+    from siting import _warmup, cli
+
+    monkeypatch.setattr(_warmup, "needed", lambda clearance: ["surface"])
+    monkeypatch.setattr(_warmup, "_spawn", lambda group, stderr: subprocess.Popen(
+        [sys.executable, "-c", "import sys; sys.exit('no space left on device')"], stderr=stderr))
+    assert cli.main(["prepare"]) == 1
+    err = capsys.readouterr().err
+    assert "surface" in err and "no space left on device" in err and "NUMBA_CACHE_DIR" in err
+
+
 def test_repeated_notes_are_listed_once_with_a_count():
     import warnings
 
