@@ -33,6 +33,7 @@ _EXPORTS = {
     "RunResult": "siting.runner",
     "run": "siting.runner",
     "run_file": "siting.runner",
+    "run_scenarios": "siting.scenarios",
     "capture_notes": "siting.runner",
     "Plan": "siting.optimize",
     "StageParams": "siting.stages",
@@ -80,6 +81,7 @@ __all__ = [
     "plan_checks",
     "run",
     "run_file",
+    "run_scenarios",
     "sizes_table",
 ]
 
@@ -105,6 +107,7 @@ if TYPE_CHECKING:  # for type checkers and IDEs: the same names, imported eagerl
     from .job import Job, load_job
     from .optimize import Plan
     from .runner import RunResult, capture_notes, run, run_file
+    from .scenarios import run_scenarios
     from .stages import (
         SWEEP_BUDGET_FACTORS,
         OptimiseParams,

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from .job import Job
-from .runner import RunResult, run
+from .runner import RunResult, refuse_scenarios, run
 
 
 def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: list[str] | None = None,
@@ -55,7 +55,8 @@ def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: li
     Raises
     ------
     siting.JobError
-        A key is unknown, of the wrong type or out of range (every problem listed, with the fix).
+        A key is unknown, of the wrong type or out of range (every problem listed, with the fix); or the job file
+        holds scenarios, which :func:`siting.run_scenarios` runs.
     siting.InputDataError
         An input layer cannot be used.
     """
@@ -66,6 +67,7 @@ def plan(job: str | os.PathLike[str] | Job | Mapping[str, Any], *, overrides: li
     elif isinstance(job, Mapping):
         the_job = Job.from_dict(job, base_dir=Path.cwd(), source="job").replace(**sections)
     else:
+        refuse_scenarios(Path(job))
         the_job = Job.from_toml(Path(job), overrides, **sections)
     job_file = None if isinstance(job, (Job, Mapping)) else Path(job)  # the job file is an input too
     return run(the_job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress, tile_m=tile_m,

@@ -53,7 +53,7 @@ from . import __version__, _warmup, checks, preflight
 from . import optimize as opt
 from .cache import StageCache, digest, json_default
 from .district import District
-from .errors import SitingWarning
+from .errors import JobError, SitingWarning
 from .executor import _advance, _bar, _Executor
 from .gains import GainResult, RadioParams
 from .job import Job, load_job
@@ -508,5 +508,17 @@ def write_los_graph(path: Path, gains: GainResult) -> Path:
 
 
 def run_file(path: str | Path, overrides: list[str] | None = None, **kwargs: Any) -> RunResult:
-    """Load, validate and run a job file (what ``siting plan`` does); ``kwargs`` go to :func:`run`."""
+    """Load, validate and run a job file (what ``siting plan`` does for a file without scenarios); ``kwargs``
+    go to :func:`run`.  A file with ``[[scenarios]]`` raises :class:`JobError` (see :func:`refuse_scenarios`)."""
+    refuse_scenarios(path)
     return run(Job.from_toml(path, overrides), job_file=path, **kwargs)
+
+
+def refuse_scenarios(path: str | Path) -> None:
+    """Raise :class:`JobError` when the job file holds scenarios: one run would silently plan the base job only."""
+    from .scenarios import has_scenarios
+
+    if has_scenarios(path):
+        raise JobError(f"job file '{path}' holds scenarios ([[scenarios]] or inputs.scenarios), and this call runs "
+                       "one job: run every scenario and their comparison with siting.run_scenarios(path) (what "
+                       "`siting plan` does with this file), or remove the scenarios to plan the base job alone")  # fmt: skip

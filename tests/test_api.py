@@ -34,6 +34,21 @@ def test_plan_write_false_creates_no_file(tmp_path, monkeypatch):
     assert result.notes == list(dict.fromkeys(result.notes))  # each note once
 
 
+def test_plan_refuses_a_job_file_with_scenarios(tmp_path):
+    """A job file with [[scenarios]] is what siting.run_scenarios runs: siting.plan() and siting.run_file() stop
+    with a JobError naming the file and the call to use, before any input is read or any file written, instead of
+    silently planning the base job only."""
+    text = DEMO_JOB.read_text(encoding="utf-8").replace('"buildings.geojson"', f'"{ROOT}/demo_district/buildings.geojson"')
+    text = text.replace('"base_stations.geojson"', f'"{ROOT}/demo_district/base_stations.geojson"')
+    job = tmp_path / "with_scenarios.toml"
+    job.write_text(text + '\n[[scenarios]]\nname = "half"\nbudget.max_cost = 15000.0\n', encoding="utf-8")
+    for call in (siting.plan, siting.run_file):
+        with pytest.raises(JobError, match=r"with_scenarios\.toml.*siting\.run_scenarios"):
+            call(job)
+    assert _listing(tmp_path) == ["with_scenarios.toml"]
+    assert siting.run_scenarios.__module__ == "siting.scenarios"  # the named call exists
+
+
 def test_job_is_frozen_and_none_means_no_limit(tmp_path):
     job = Job.from_toml(DEMO_JOB)
     with pytest.raises(dataclasses.FrozenInstanceError):
