@@ -242,6 +242,30 @@ def test_geojson_with_projected_coordinates_refused(tmp_path):
         _load(tmp_path, b)
 
 
+@pytest.mark.parametrize("crs,far", [(4326, None), (32631, 1e15), (3857, 1e12)])
+def test_coordinates_a_crs_cannot_place_are_refused_in_any_format(tmp_path, crs, far):
+    """A GeoPackage whose features the layer's CRS cannot place on Earth is refused, naming the features: metres
+    labelled EPSG:4326 (beyond |lon| <= 180, |lat| <= 90), and a corrupt feature at 1e15 m in UTM 31N or 1e12 m
+    in Web Mercator (where pyproj's inverse gives infinity, or wraps the longitude so the point loaded at a
+    wrong place before).  Valid features in the same CRS still load (the last case)."""
+    good = box(E0, N0, E0 + 20, N0 + 10)
+    geoms = [good] if far is None else [good, box(far, far, far + 20, far + 10)]
+    gdf = gpd.GeoDataFrame({"id": [f"b{i}" for i in range(len(geoms))], "height": 12.0}, geometry=geoms, crs=UTM)
+    if far is None:
+        gdf = gdf.set_crs(4326, allow_override=True)  # metres, mislabelled as degrees
+    else:
+        gdf = gdf.set_crs(crs, allow_override=True)
+    path = tmp_path / "b.gpkg"
+    pyogrio.write_dataframe(gdf, path, driver="GPKG")
+    bad = "'0'" if far is None else "'1'"
+    with pytest.raises(InputDataError, match=rf"b\.gpkg': features {bad} have coordinates EPSG:{crs} .*cannot place"):
+        _load(tmp_path, path)
+    ok = tmp_path / "ok.gpkg"
+    pyogrio.write_dataframe(gpd.GeoDataFrame({"id": ["a"], "height": [12.0]}, geometry=[good], crs=UTM).to_crs(
+        crs), ok, driver="GPKG")
+    np.testing.assert_allclose(_load(tmp_path, ok).buildings.area, [200.0], rtol=1e-6)
+
+
 def test_to_lonlat_roundtrip():
     x, y = _TO_UTM.transform(np.array([2.3, 2.4]), np.array([46.4, 46.6]))  # pyproj reference
     lon, lat = to_lonlat(x, y, UTM)

@@ -49,8 +49,49 @@ def _fits_lonlat(gdf: gpd.GeoDataFrame) -> bool:
     return bool(np.nanmax(np.abs(b[:, [0, 2]])) <= 180.0 and np.nanmax(np.abs(b[:, [1, 3]])) <= 90.0)
 
 
+def _check_places(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
+    """Refuse features whose coordinates the layer's CRS cannot place on Earth, naming them.
+
+    A geographic CRS needs |lon| <= 180 and |lat| <= 90 on each feature's bounding box.  A projected CRS must map
+    both corners of each bounding box to finite longitude/latitude and back to within 1 cm (pyproj): outside
+    the projection's domain the inverse gives infinity, or wraps the longitude so that the forward projection
+    lands elsewhere (Web Mercator at 1e12 m).  Without this a mislabelled file fails later with an unrelated
+    message, or loads at a wrong place.
+    """
+    geoms = gdf.geometry.values
+    ok = np.flatnonzero(~(shapely.is_missing(geoms) | shapely.is_empty(geoms)))
+    if not len(ok):
+        return
+    crs = pyproj.CRS.from_user_input(gdf.crs)
+    b = shapely.bounds(geoms[ok])
+    x, y = b[:, [0, 2]].ravel(), b[:, [1, 3]].ravel()
+    if crs.is_geographic:
+        bad_pt = ~((np.abs(x) <= 180.0) & (np.abs(y) <= 90.0))
+        need = "a geographic CRS needs |longitude| <= 180 and |latitude| <= 90"
+    else:
+        with np.errstate(invalid="ignore", over="ignore"):
+            lon, lat = pyproj.Transformer.from_crs(crs, 4326, always_xy=True).transform(x, y)
+            x2, y2 = pyproj.Transformer.from_crs(4326, crs, always_xy=True).transform(lon, lat)
+            bad_pt = ~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(x2 - x) <= 0.01) & (np.abs(y2 - y) <= 0.01))
+        need = "they are outside the area this projection maps"
+    if bad_pt.any():
+        bad = ok[bad_pt.reshape(-1, 2).any(axis=1)]
+        raise InputDataError(
+            f"{role} file '{path}': features {_listing(bad.tolist())} have coordinates {_crs_name(crs)} cannot "
+            f"place on Earth (|x| up to {np.nanmax(np.abs(x)):.6g}, |y| up to {np.nanmax(np.abs(y)):.6g}; {need}): "
+            "the file's CRS is wrong or those coordinates are corrupt. Set the right CRS (e.g. 'ogr2ogr -a_srs "
+            "EPSG:xxxx out.gpkg in.gpkg') or correct those features"
+        )
+
+
 def _assign_crs(gdf, path: Path, role: str, named_crs, notes: list[str]) -> gpd.GeoDataFrame:
-    """Give a layer its source CRS (GeoJSON rule, missing CRS rule)."""
+    """Give a layer its source CRS (GeoJSON rule, missing CRS rule); refuse coordinates it cannot place."""
+    gdf = _source_crs(gdf, path, role, named_crs, notes)
+    _check_places(gdf, path, role)
+    return gdf
+
+
+def _source_crs(gdf, path: Path, role: str, named_crs, notes: list[str]) -> gpd.GeoDataFrame:
     if _is_geojson(path):
         _check_geojson_lonlat(gdf, path, role)
         if gdf.crs is None:
