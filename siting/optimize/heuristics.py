@@ -120,45 +120,97 @@ class _Greedy:
 
     def local_search(self, chosen, max_rounds=50, time_limit_s=10.0):
         """Best-improvement swaps (one chosen option out, one unchosen in) while the covered weight grows."""
-        C, w, c = self.C, self.w, self.c
         chosen = list(chosen)
         if not chosen or self.n == 0:
             return chosen
-        Cf = C.astype(np.float64)
+        Cf = self.C.astype(np.float64)
         t0 = time.perf_counter()
-        total_w = max(float(w.sum()), _TINY)
+        total_w = max(float(self.w.sum()), _TINY)
         for _ in range(max_rounds):
             if time.perf_counter() - t0 > time_limit_s:
                 break
-            ch = np.asarray(chosen)
-            cnt = np.asarray(Cf[ch].sum(axis=0)).ravel()
-            w0 = np.where(cnt == 0, w, 0.0)
-            w1 = np.where(cnt == 1, w, 0.0)
-            G0 = Cf @ w0  # gain of adding a to the plan as it is
-            Csub = Cf[ch]
-            E = Csub @ w1  # exclusive weight of each chosen option
-            M = (Cf @ sp.diags_array(w1) @ Csub.T).toarray()  # weight a re-covers of r's exclusive users
-            gain = G0[:, None] + M - E[None, :]
-            # feasibility of swapping r (column) out for a (row) in
-            su = np.zeros(self.ns, bool)
-            su[self.sidx[ch]] = True
-            sa = self.sidx
-            feas = (~su[sa])[:, None] | (sa[:, None] == self.sidx[ch][None, :])
-            feas[ch, :] = False
-            if self.adj is not None:
-                nconf = self.adj @ su.astype(float)
-                pair = self.adj[sa][:, self.sidx[ch]].toarray().astype(float)
-                feas &= (nconf[sa][:, None] - pair) <= 0
-            if self.budget is not None:
-                spent = c[ch].sum()
-                feas &= (spent - c[ch][None, :] + c[:, None]) <= self.budget * (1 + 1e-12) + 1e-12
-            gain = np.where(feas, gain, -_INF)
-            a, r = np.unravel_index(np.argmax(gain), gain.shape)
-            if gain[a, r] <= 1e-9 * total_w:
+            gain, a, r = self.best_swap(Cf, np.asarray(chosen))
+            if gain <= 1e-9 * total_w:
                 break
             chosen[r] = int(a)
             chosen = self.run(chosen)  # fill any slack the swap left
         return chosen
+
+    def best_swap(self, Cf, ch):
+        """(gain, a, r) of the best feasible swap of chosen ``ch[r]`` for unchosen option ``a``, or (-inf, 0, 0).
+
+        The gain of a swap is G0[a] + M[a, r] - E[r]: the weight ``a`` adds to the plan, plus the exclusive weight
+        of ``ch[r]`` that ``a`` covers again, minus that exclusive weight.  Feasible: ``a``'s site is free or
+        ``ch[r]``'s, no other chosen site conflicts with it, and the budget holds.  Ties go to the smallest ``a``,
+        then ``r`` (the first maximum of the n x k gain table in row order), without building that table: the
+        pairs with M > 0 and the pairs special to one ``r`` (``a`` on its site, or conflicting only with it) are
+        evaluated one by one, and for the other options the swap's gain is G0[a] - E[r], whose best ``a`` under
+        the budget left by ``r`` comes from a running maximum of G0 over the options sorted by cost.
+        """
+        c, w, sidx = self.c, self.w, self.sidx
+        k = len(ch)
+        cnt = np.bincount(Cf[ch].indices, minlength=Cf.shape[1])
+        G0 = Cf @ np.where(cnt == 0, w, 0.0)
+        w1 = np.where(cnt == 1, w, 0.0)
+        Csub = Cf[ch]
+        E = Csub @ w1
+        M = sp.csc_array(Cf @ sp.diags_array(w1) @ Csub.T)  # weight a re-covers of ch[r]'s exclusive users
+        su = np.zeros(self.ns, bool)
+        su[sidx[ch]] = True
+        is_chosen = np.zeros(self.n, bool)
+        is_chosen[ch] = True
+        nconf = self.adj @ su.astype(float) if self.adj is not None else np.zeros(self.ns)
+        room = np.inf
+        if self.budget is not None:
+            room = self.budget * (1 + 1e-12) + 1e-12 - c[ch].sum()
+        limit = room + c[ch]  # most an incoming option may cost, per r
+        # explicit pairs: M > 0, a on r's site, a conflicting with r's site only
+        pa, pr = [M.indices], [np.repeat(np.arange(k), np.diff(M.indptr))]
+        order = np.argsort(sidx, kind="stable")
+        bounds = np.searchsorted(sidx[order], np.arange(self.ns + 1))
+        lo, size = bounds[sidx[ch]], bounds[sidx[ch] + 1] - bounds[sidx[ch]]
+        pa.append(order[np.repeat(lo - np.cumsum(size) + size, size) + np.arange(size.sum())])
+        pr.append(np.repeat(np.arange(k), size))
+        if self.adj is not None:
+            one = np.flatnonzero((nconf[sidx] == 1) & ~su[sidx])
+            code = np.full(self.ns, -1.0)
+            code[sidx[ch]] = np.arange(k)
+            r_of = np.rint(self.adj @ np.where(su, code + 1.0, 0.0))[sidx[one]].astype(np.int64) - 1
+            pa.append(one[r_of >= 0])
+            pr.append(r_of[r_of >= 0])
+        a_, r_ = np.concatenate(pa).astype(np.int64), np.concatenate(pr).astype(np.int64)
+        if self.adj is not None:
+            conflict_left = nconf[sidx[a_]] - self.adj[sidx[a_], sidx[ch[r_]]].astype(float)
+        else:
+            conflict_left = np.zeros(len(a_))
+        ok = (~is_chosen[a_] & (~su[sidx[a_]] | (sidx[a_] == sidx[ch[r_]])) & (conflict_left <= 0)
+              & (c[a_] <= limit[r_]))  # fmt: skip
+        a_, r_ = a_[ok], r_[ok]
+        g_pair = G0[a_] + np.asarray(M[a_, r_]).ravel() - E[r_]
+        # the other options: free site, no conflict with any chosen site; best G0 within each r's budget
+        base = np.flatnonzero(~is_chosen & ~su[sidx] & (nconf[sidx] == 0))
+        base = base[np.lexsort((base, c[base]))]
+        best_g = np.full(k, -_INF)
+        best_a = np.zeros(k, np.int64)
+        if len(base):
+            g_sorted = G0[base]
+            run_max = np.maximum.accumulate(g_sorted)
+            seg = np.r_[0, np.cumsum(run_max[1:] > run_max[:-1])]  # a new running maximum starts a segment
+            big = self.n + 1
+            key = np.where(g_sorted == run_max, base, big) + (seg.max() - seg) * big
+            run_a = np.minimum.accumulate(key) - (seg.max() - seg) * big  # smallest option at the running max
+            last = np.searchsorted(c[base], limit, side="right") - 1
+            has = last >= 0
+            best_g[has] = run_max[last[has]]
+            best_a[has] = run_a[last[has]]
+        g_base = best_g - E
+        top = max(g_pair.max(initial=-_INF), g_base.max(initial=-_INF))
+        if top == -_INF:
+            return -_INF, 0, 0
+        cand_a = np.r_[a_[g_pair == top], best_a[g_base == top]]
+        cand_r = np.r_[r_[g_pair == top], np.flatnonzero(g_base == top)]
+        i = np.lexsort((cand_r, cand_a))[0]
+        return float(top), int(cand_a[i]), int(cand_r[i])
 
 
 def _greedy_plan(red: _Reduced, budget, max_count, local=True, ls_time_s=10.0):
