@@ -149,10 +149,10 @@ class _Greedy:
         """
         c, w, sidx = self.c, self.w, self.sidx
         k = len(ch)
-        cnt = np.bincount(Cf[ch].indices, minlength=Cf.shape[1])
+        Csub = Cf[ch]
+        cnt = np.bincount(Csub.indices, minlength=Cf.shape[1])
         G0 = Cf @ np.where(cnt == 0, w, 0.0)
         w1 = np.where(cnt == 1, w, 0.0)
-        Csub = Cf[ch]
         E = Csub @ w1
         M = sp.csc_array(Cf @ sp.diags_array(w1) @ Csub.T)  # weight a re-covers of ch[r]'s exclusive users
         su = np.zeros(self.ns, bool)
