@@ -22,16 +22,40 @@ def _conflict_adj(site, conflicts, n_sites):
     return sp.csr_array((np.ones(2 * len(a), bool), (np.r_[a, b], np.r_[b, a])), shape=(n_sites, n_sites))
 
 
+class _Index:
+    """Options grouped by a key (site, wall or building): dense codes and each code's members."""
+
+    def __init__(self, key):
+        self.keys, code = np.unique(np.asarray(key), return_inverse=True)
+        self.code = code.ravel().astype(np.int64)
+        self.order = np.argsort(self.code, kind="stable")
+        self.start = np.searchsorted(self.code[self.order], np.arange(len(self.keys) + 1))
+
+    def sizes(self, codes) -> np.ndarray:
+        """Members of each group of ``codes``."""
+        codes = np.asarray(codes, np.int64)
+        return self.start[codes + 1] - self.start[codes]
+
+    def members(self, codes) -> np.ndarray:
+        """All options of the groups ``codes``, group after group (each in option order)."""
+        codes = np.asarray(codes, np.int64)
+        size = self.sizes(codes)
+        return self.order[np.repeat(self.start[codes] - np.cumsum(size) + size, size) + np.arange(size.sum())]
+
+    def codes(self, keys) -> np.ndarray:
+        """The codes of those ``keys`` that some option has."""
+        keys = np.asarray(keys)
+        return np.searchsorted(self.keys, keys)[np.isin(keys, self.keys)]
+
+
 class _Greedy:
     """Lazy greedy (Minoux's accelerated evaluation) and swap local search on a reduced instance."""
 
     def __init__(self, C, w, c, site, budget, max_count, conflicts):
         self.C, self.w, self.c = C, w, c
         self.n = C.shape[0]
-        if len(site):
-            self.lookup, self.sidx = np.unique(site, return_inverse=True)
-        else:
-            self.lookup, self.sidx = np.zeros(0, int), np.zeros(0, int)
+        self.at_site = _Index(site)
+        self.lookup, self.sidx = self.at_site.keys, self.at_site.code
         ns = len(self.lookup)
         cf = np.zeros((0, 2), np.int64)
         if len(conflicts) and ns:
@@ -166,11 +190,8 @@ class _Greedy:
         limit = room + c[ch]  # most an incoming option may cost, per r
         # explicit pairs: M > 0, a on r's site, a conflicting with r's site only
         pa, pr = [M.indices], [np.repeat(np.arange(k), np.diff(M.indptr))]
-        order = np.argsort(sidx, kind="stable")
-        bounds = np.searchsorted(sidx[order], np.arange(self.ns + 1))
-        lo, size = bounds[sidx[ch]], bounds[sidx[ch] + 1] - bounds[sidx[ch]]
-        pa.append(order[np.repeat(lo - np.cumsum(size) + size, size) + np.arange(size.sum())])
-        pr.append(np.repeat(np.arange(k), size))
+        pa.append(self.at_site.members(sidx[ch]))
+        pr.append(np.repeat(np.arange(k), self.at_site.sizes(sidx[ch])))
         if self.adj is not None:
             one = np.flatnonzero((nconf[sidx] == 1) & ~su[sidx])
             code = np.full(self.ns, -1.0)

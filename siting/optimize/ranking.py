@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from .heuristics import _conflict_adj
+from .heuristics import _conflict_adj, _Index
 from .problem import _INF
 
 
@@ -156,27 +156,6 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     out = pd.DataFrame({col: np.concatenate([f[col] for f in frames]) for col in frames[0]})
     out["backup_rank"] = out.groupby("option").cumcount() + 1
     return out[_BACKUP_COLUMNS].reset_index(drop=True).astype(_BACKUP_DTYPES)
-
-
-class _Index:
-    """Options grouped by a key (wall, site or building): dense codes and each code's members."""
-
-    def __init__(self, key):
-        self.keys, code = np.unique(np.asarray(key), return_inverse=True)
-        self.code = code.ravel()
-        self.order = np.argsort(self.code, kind="stable")
-        self.start = np.searchsorted(self.code[self.order], np.arange(self.code.max() + 2))
-
-    def members(self, codes) -> np.ndarray:
-        """All options of the groups ``codes``."""
-        if len(codes) == 0:
-            return np.zeros(0, np.int64)
-        return np.concatenate([self.order[self.start[g]:self.start[g + 1]] for g in codes])
-
-    def codes(self, keys) -> np.ndarray:
-        """The codes of those ``keys`` that some option has."""
-        keys = np.asarray(keys)
-        return np.searchsorted(self.keys, keys)[np.isin(keys, self.keys)]
 
 
 def _group_order(opts, G0, c, group: _Index):
