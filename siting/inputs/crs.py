@@ -22,16 +22,25 @@ from .common import _listing
 from .vector import _is_geojson
 
 
-def _check_geojson_lonlat(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
+def _feature_bounds(gdf: gpd.GeoDataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(rows with a geometry, their bounding boxes [xmin, ymin, xmax, ymax])."""
     geoms = gdf.geometry.values
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    if not ok.any():
-        return
-    b = shapely.bounds(geoms[ok])
-    xmax = np.nanmax(np.abs(b[:, [0, 2]]))
-    ymax = np.nanmax(np.abs(b[:, [1, 3]]))
-    if xmax > 180.0 or ymax > 90.0:
-        bad = np.flatnonzero(ok)[(np.abs(b[:, [0, 2]]).max(1) > 180.0) | (np.abs(b[:, [1, 3]]).max(1) > 90.0)]
+    ok = np.flatnonzero(~(shapely.is_missing(geoms) | shapely.is_empty(geoms)))
+    return ok, shapely.bounds(geoms[ok])
+
+
+def _beyond_lonlat(b: np.ndarray) -> np.ndarray:
+    """Per bounding box: True when it reaches beyond |lon| <= 180 or |lat| <= 90 (NaN is not beyond)."""
+    return (np.abs(b[:, [0, 2]]) > 180.0).any(1) | (np.abs(b[:, [1, 3]]) > 90.0).any(1)
+
+
+def _check_geojson_lonlat(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
+    ok, b = _feature_bounds(gdf)
+    beyond = _beyond_lonlat(b)
+    if beyond.any():
+        bad = ok[beyond]
+        xmax = np.nanmax(np.abs(b[:, [0, 2]]))
+        ymax = np.nanmax(np.abs(b[:, [1, 3]]))
         raise InputDataError(
             f"{role} file '{path}' is GeoJSON, whose coordinates must be longitude/latitude in degrees "
             f"(RFC 7946), but features {_listing(bad.tolist())} reach |x| = {xmax:.6g}, |y| = {ymax:.6g}: "
@@ -41,12 +50,7 @@ def _check_geojson_lonlat(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
 
 
 def _fits_lonlat(gdf: gpd.GeoDataFrame) -> bool:
-    geoms = gdf.geometry.values
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    if not ok.any():
-        return True
-    b = shapely.bounds(geoms[ok])
-    return bool(np.nanmax(np.abs(b[:, [0, 2]])) <= 180.0 and np.nanmax(np.abs(b[:, [1, 3]])) <= 90.0)
+    return not _beyond_lonlat(_feature_bounds(gdf)[1]).any()
 
 
 def _check_places(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
@@ -58,24 +62,23 @@ def _check_places(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
     lands elsewhere (Web Mercator at 1e12 m).  Without this a mislabelled file fails later with an unrelated
     message, or loads at a wrong place.
     """
-    geoms = gdf.geometry.values
-    ok = np.flatnonzero(~(shapely.is_missing(geoms) | shapely.is_empty(geoms)))
+    ok, b = _feature_bounds(gdf)
     if not len(ok):
         return
     crs = pyproj.CRS.from_user_input(gdf.crs)
-    b = shapely.bounds(geoms[ok])
     x, y = b[:, [0, 2]].ravel(), b[:, [1, 3]].ravel()
     if crs.is_geographic:
-        bad_pt = ~((np.abs(x) <= 180.0) & (np.abs(y) <= 90.0))
+        beyond = _beyond_lonlat(b) | ~np.isfinite(b).all(1)
         need = "a geographic CRS needs |longitude| <= 180 and |latitude| <= 90"
     else:
         with np.errstate(invalid="ignore", over="ignore"):
             lon, lat = pyproj.Transformer.from_crs(crs, 4326, always_xy=True).transform(x, y)
             x2, y2 = pyproj.Transformer.from_crs(4326, crs, always_xy=True).transform(lon, lat)
             bad_pt = ~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(x2 - x) <= 0.01) & (np.abs(y2 - y) <= 0.01))
+        beyond = bad_pt.reshape(-1, 2).any(axis=1)
         need = "they are outside the area this projection maps"
-    if bad_pt.any():
-        bad = ok[bad_pt.reshape(-1, 2).any(axis=1)]
+    if beyond.any():
+        bad = ok[beyond]
         raise InputDataError(
             f"{role} file '{path}': features {_listing(bad.tolist())} have coordinates {_crs_name(crs)} cannot "
             f"place on Earth (|x| up to {np.nanmax(np.abs(x)):.6g}, |y| up to {np.nanmax(np.abs(y)):.6g}; {need}): "
