@@ -20,8 +20,13 @@ def value(D, w, plan):
     return float(w[D[list(plan)].any(0)].sum()) if len(plan) else 0.0
 
 
+def conflict_set(conflicts):
+    """Site pairs in conflict, both orders."""
+    return {(int(a), int(b)) for a, b in conflicts} | {(int(b), int(a)) for a, b in conflicts}
+
+
 def reference_best_swap(D, w, c, site, budget, conflicts, chosen):
-    conf = {(int(a), int(b)) for a, b in conflicts} | {(int(b), int(a)) for a, b in conflicts}
+    conf = conflict_set(conflicts)
     base = value(D, w, chosen)
     best = (-np.inf, 0, 0)
     for a in range(len(c)):
@@ -60,7 +65,7 @@ def feasible_plans(D, w, c, site, budget, conflicts, rng):
     """The greedy plan, and a plan of random feasible insertions."""
     g = _Greedy(sp.csr_array(D), w, c, site, budget, None, conflicts)
     yield g, list(g.run())
-    conf = {(int(a), int(b)) for a, b in conflicts} | {(int(b), int(a)) for a, b in conflicts}
+    conf = conflict_set(conflicts)
     plan: list[int] = []
     for j in rng.permutation(len(c)):
         sites = {int(site[i]) for i in plan}
@@ -92,5 +97,5 @@ def test_local_search_never_loses_weight_and_stays_feasible(seed):
         assert len({int(site[j]) for j in out}) == len(out)
         if budget is not None:
             assert c[out].sum() <= budget * (1 + 1e-12) + 1e-12
-        conf = {(int(a), int(b)) for a, b in conflicts}
+        conf = conflict_set(conflicts)
         assert not any((int(site[a]), int(site[b])) in conf for a in out for b in out)
