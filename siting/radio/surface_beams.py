@@ -37,8 +37,12 @@ _SINC_SQUINT_MAX = 0.1
 _FAR_OMEGA_MIN = 0.3
 _TWO_PI = 2.0 * np.pi
 _TINY32 = np.float32(1e-18)
-# Beams: tile side divided by this factor relative to tile_counts (in-tile quadratic phase error / factor^2).
-_BEAM_TILE_REFINE = 1.0
+# Beams: tile side divided by this factor relative to tile_counts (in-tile quadratic phase error / factor^2);
+# focusing keeps the tiles of tile_counts (its phases follow the geometry), with or without squint.
+# 2: within 0.03 dB of the exact element sum on 219 random near-field geometries (28 GHz, 0.5-1 m panels, users
+# 2-20 m); 1 (the tiles of focusing) was off by up to 0.16 dB within 10 dB of focus and 0.43 dB within 20 dB.
+# Cost: near-field rows only; the gains stage of the real district 2.0-2.2 s either way.
+_BEAM_TILE_REFINE = 2.0
 _NODE_LADDER = np.array([1, 2, 3, 4, 5, 6, 8, 10, 12, 16, 20, 24, 32, 40, 48, 64, 80, 96, 128], dtype=np.int64)
 # The complex (beam / squint) tile kernel keeps some 20 work arrays: chunks this small stay in cache.
 _TILE_CHUNK_ENTRIES = 1 << 13
@@ -192,7 +196,7 @@ def _general_gain(loc, d1, d2, w, h, f, q, bw, beams, os_):
         w_n, h_n, k_n, bw_n = (np.broadcast_to(x, (m,))[ni] for x in (w, h, k0, bw))
         lam_n = 2.0 * np.pi / k_n
         r_min = _min_distance_either_end(Ln, w_n, h_n)
-        nx, ny = tile_counts(w_n, h_n, lam_n, r_min / _BEAM_TILE_REFINE ** 2)
+        nx, ny = tile_counts(w_n, h_n, lam_n, r_min / _BEAM_TILE_REFINE ** 2 if beams else r_min)
         nf = _node_counts(Ln, w_n, h_n, bw_n) if squint else np.ones(ni.size, np.int64)
         pu = (ui + us)[ni] if beams else None
         pv = (vi + vs)[ni] if beams else None
