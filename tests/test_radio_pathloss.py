@@ -318,3 +318,47 @@ def test_fresnel_radius_properties():
     assert np.argmax(r) == 50 and r[0] == 0.0
     with pytest.raises(RadioInputError):
         fresnel_radius_m(0.0, 0.0, 28e9)
+
+
+# ------------------------------------------------------------------------------ heights and short range
+
+@pytest.mark.parametrize("h_ut", [1.49, 1.2, 1.05, 1.01, 1.0, 0.5, 0.0])
+def test_low_terminals_are_evaluated_at_the_lowest_fitted_height(h_ut):
+    # 3GPP TR 38.901 Table 7.4.1-1 is fitted for 1.5 m <= hUT <= 22.5 m; taken literally below it, NOTE 1's
+    # breakpoint d'BP = 4 (hBS - 1)(hUT - 1) fc / c collapses at hUT = 1 m and the LOS law jumps ~20 dB.  Below
+    # 1.5 m the package evaluates the table at 1.5 m and warns.  Reference: UMi LOS PL1 at hUT = 1.5 m from the
+    # table (28 GHz, hBS = 10 m, d2D = 100 m; d'BP = 1680 m, so PL1 applies).
+    fc, d2d, h_bs = 28.0, 100.0, 10.0
+    pl1_at_1_5 = 32.4 + 21.0 * np.log10(np.hypot(d2d, h_bs - 1.5)) + 20.0 * np.log10(fc)
+    with pytest.warns(RadioValidityWarning, match="h_ut_m"):
+        got = umi_street_canyon_los_db(d2d, h_bs, h_ut, fc * 1e9)
+    assert got == pytest.approx(pl1_at_1_5, abs=1e-9)
+    # and a surface hop between two low ends (both below 1.5 m) has a finite, free-space-like excess
+    with pytest.warns(RadioValidityWarning):
+        excess = los_excess_db("umi", 20.0, 1.0, h_ut, fc * 1e9)
+    assert 0.0 <= excess < 3.0
+
+
+def test_in_range_heights_do_not_warn():
+    # the height rule is silent inside the table's range (1.5 m terminals, the default street height)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RadioValidityWarning)
+        umi_street_canyon_los_db(100.0, 10.0, 1.5, 28e9)
+        uma_nlos_db(200.0, 25.0, 22.5, 3.5e9)
+
+
+@pytest.mark.parametrize("model", ["free_space", "umi", "uma"])
+def test_no_path_has_a_gain_at_centimetre_range(model):
+    # Conservation of energy (a passive path delivers at most the power sent): the loss is >= 0 dB even where
+    # the far-field formulas (ITU-R P.525; TR 38.901's free-space slope below 10 m) fall below 0 dB, within
+    # lambda / (4 pi) of an antenna (4.8 cm at 0.5 GHz).
+    d2d = np.array([0.0, 0.005, 0.02, 0.05, 1.0])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RadioValidityWarning)
+        loss = direct_path_loss_db(model, np.array([True, True, False, True, False]), d2d, 5.0, 5.0, 0.5e9)
+    assert np.all(loss >= 0.0)
+    assert loss[-1] > 0.0  # at 1 m the formulas hold again (free space 26.4 dB at 0.5 GHz)
+    assert free_space_path_loss_db(0.01, 1e9) == 0.0
+    # just beyond lambda / (4 pi) the exact formula is untouched
+    lam = c / 1e9
+    assert free_space_path_loss_db(2 * lam / (4 * np.pi), 1e9) == pytest.approx(20 * np.log10(2.0), abs=1e-12)

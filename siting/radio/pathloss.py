@@ -13,6 +13,15 @@ Decisions for the 3GPP models (documented once here, repeated in each docstring)
 * **Beyond 5 km** the formulas are evaluated as published (the LOS PL2 branch has a 40 dB/decade slope,
   already steeper than any physical mmWave path) and a :class:`RadioValidityWarning` is issued.
 * Outside 0.5-100 GHz the formulas are evaluated as published with a :class:`RadioValidityWarning`.
+* **Heights below 1.5 m** (the lowest terminal height of the table) are evaluated at 1.5 m, with a
+  :class:`RadioValidityWarning`; the distance d3D keeps the true heights where it is a distance (the
+  free-space slope below 10 m, the free-space loss of :func:`los_excess_db`).  As published, a height at or
+  below the 1 m effective environment height collapses the breakpoint distance to 0 and the LOS law jumps
+  20-40 dB (28 GHz, 100 m: 123.3 dB at hUT = 1.0 m against 103.4 dB at 1.05 m) -- a degenerate limit, not
+  a propagation effect.  Surface hops (a panel mounted low, a user below it) pass through the same rule.
+* **No path has a gain**: every loss here is floored at 0 dB.  The far-field formulas fall below 0 dB within
+  lambda / (4 pi) of an antenna (2.4 cm at 1 GHz), where they do not apply; a passive path cannot deliver
+  more power than was sent (conservation of energy).
 * The LOS/NLOS choice is deterministic (from the building geometry, :mod:`siting.visibility`), not drawn with the
   LOS probability; :func:`los_probability_umi` and :func:`los_probability_uma` are for information.
 * Shadow fading is not drawn; margins and coverage quantiles are in :mod:`siting.radio.fading`.
@@ -54,6 +63,7 @@ MODELS = ("umi", "uma", "free_space")
 _MIN_D2D_M = 10.0     # [1], Table 7.4.1-1: 10 m <= d2D
 _MAX_D2D_M = 5000.0   # [1], Table 7.4.1-1: d2D <= 5 km
 _H_E_M = 1.0          # [1], NOTE 1: effective environment height 1 m (UMi; UMa with hUT < 13 m)
+_MIN_H_M = 1.5        # [1], Table 7.4.1-1: 1.5 m <= hUT (the lowest fitted terminal height)
 _C_BREAKPOINT = 3.0e8  # [1], NOTE 1 uses c = 3.0e8 m/s in d'BP
 
 
@@ -70,13 +80,15 @@ def free_space_path_loss_db(distance_m, freq_hz):
     Returns
     -------
     float or ndarray
-        Loss [dB], positive.
+        Loss [dB], >= 0.
 
     Notes
     -----
     Exact form with c = 299 792 458 m/s ([2], section 2.2):
 
     .. math:: L_{bf} = 20 \log_{10}(4 \pi d f / c)
+
+    floored at 0 dB: below d = lambda / (4 pi) the far-field formula would promise a gain (module notes).
 
     The practical-unit form 32.4 + 20 log10 f[MHz] + 20 log10 d[km] differs from it by 0.048 dB.
 
@@ -86,7 +98,9 @@ def free_space_path_loss_db(distance_m, freq_hz):
     """
     d = as_float("distance_m", distance_m, min_value=0.0, strict=True)
     f = as_float("freq_hz", freq_hz, min_value=0.0, strict=True)
-    return scalar_or_array(20.0 * np.log10(4.0 * np.pi * d * f / SPEED_OF_LIGHT_M_S))  # [2]
+    with np.errstate(divide="ignore"):
+        loss = 20.0 * np.log10(4.0 * np.pi * d * f / SPEED_OF_LIGHT_M_S)  # [2]
+    return scalar_or_array(np.maximum(loss, 0.0))  # no gain within lambda / (4 pi): module notes
 
 
 def breakpoint_distance_m(h_bs_m, h_ut_m, freq_hz, h_e_m=_H_E_M):
@@ -133,6 +147,9 @@ def _inputs(d2d_m, h_bs_m, h_ut_m, freq_hz, model: str):
     warn_outside("d2d_m", d2d, _MIN_D2D_M, _MAX_D2D_M, model,
                  "below 10 m the loss follows free space from the 10 m value; beyond 5 km it is extrapolated",
                  stacklevel=5)
+    for name, h in (("h_bs_m", hbs), ("h_ut_m", hut)):
+        warn_outside(name, h, _MIN_H_M, np.inf, model,
+                     f"heights below {_MIN_H_M:g} m are evaluated at {_MIN_H_M:g} m (module notes)", stacklevel=5)
     return np.broadcast_arrays(d2d, hbs, hut, f)
 
 
@@ -140,15 +157,16 @@ def _d3d(d2d, hbs, hut):
     return np.sqrt(d2d**2 + (hbs - hut) ** 2)
 
 
-def _short_range(fit, d2d, hbs, hut, fc_ghz, dbp):
-    """Evaluate ``fit`` at max(d2D, 10 m) and move it with the free-space slope below 10 m (module notes)."""
+def _short_range(fit, d2d, hbs, hut, hb_fit, hu_fit, fc_ghz, dbp):
+    """Evaluate ``fit`` at max(d2D, 10 m) and move it with the free-space slope below 10 m (module notes).
+
+    ``hb_fit``, ``hu_fit``: the heights the fit is evaluated at; the slope uses the true heights.
+    """
     d_eval = np.maximum(d2d, _MIN_D2D_M)
-    d3_eval = _d3d(d_eval, hbs, hut)
-    d3_true = _d3d(d2d, hbs, hut)
-    pl = fit(d_eval, d3_eval, hbs, hut, fc_ghz, dbp)
+    pl = fit(d_eval, _d3d(d_eval, hb_fit, hu_fit), hb_fit, hu_fit, fc_ghz, dbp)
     with np.errstate(divide="ignore"):
         # d3D = 0 (co-located antennas) is degenerate; a 1 cm floor keeps the loss finite.
-        shift = 20.0 * np.log10(np.maximum(d3_true, 0.01) / d3_eval)
+        shift = 20.0 * np.log10(np.maximum(_d3d(d2d, hbs, hut), 0.01) / _d3d(d_eval, hbs, hut))
     return pl + np.where(d2d < _MIN_D2D_M, shift, 0.0)
 
 
@@ -182,11 +200,13 @@ def _los_nlos(model, d2d_m, h_bs_m, h_ut_m, freq_hz):
     name = {"umi": "3GPP TR 38.901 UMi-Street Canyon", "uma": "3GPP TR 38.901 UMa"}[model]
     d2d, hbs, hut, f = _inputs(d2d_m, h_bs_m, h_ut_m, freq_hz, name)
     fc = f / 1e9  # [1], NOTE 2: fc in GHz in the formulas
-    dbp = 4.0 * np.maximum(hbs - _H_E_M, 0.0) * np.maximum(hut - _H_E_M, 0.0) * f / _C_BREAKPOINT  # NOTE 1
+    hb_fit, hu_fit = np.maximum(hbs, _MIN_H_M), np.maximum(hut, _MIN_H_M)  # module notes: heights below 1.5 m
+    dbp = 4.0 * (hb_fit - _H_E_M) * (hu_fit - _H_E_M) * f / _C_BREAKPOINT  # NOTE 1
     los_fit, nlos_fit = _FITS[model]
-    pl_los = _short_range(los_fit, d2d, hbs, hut, fc, dbp)
-    pl_nlos_prime = _short_range(nlos_fit, d2d, hbs, hut, fc, dbp)
-    return pl_los, np.maximum(pl_los, pl_nlos_prime)  # [1], NLOS = max(PL_LOS, PL'_NLOS)
+    pl_los = _short_range(los_fit, d2d, hbs, hut, hb_fit, hu_fit, fc, dbp)
+    pl_nlos_prime = _short_range(nlos_fit, d2d, hbs, hut, hb_fit, hu_fit, fc, dbp)
+    # [1], NLOS = max(PL_LOS, PL'_NLOS); no path has a gain (module notes)
+    return np.maximum(pl_los, 0.0), np.maximum(np.maximum(pl_los, pl_nlos_prime), 0.0)
 
 
 # ----------------------------------------------------------------------------------------------- public
