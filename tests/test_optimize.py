@@ -189,6 +189,31 @@ def test_min_cost_matches_brute_force(seed, share):
     assert p.mode == "min_cost" and p.bound <= p.cost + 1e-9
 
 
+@pytest.mark.parametrize("w_unit, c_unit", [(1e-7, 1.0), (1.0, 1e-6), (1e-6, 1e-6)])
+@pytest.mark.parametrize("seed", range(12))
+def test_units_do_not_change_the_optimum(seed, w_unit, c_unit):
+    # Reference: brute force on the instance as given.  Weights of 1e-7 or costs written in millions are the
+    # same problem in other units; the solvers' absolute tolerances (~1e-6) must not let a plan break the
+    # budget or the target, nor end the LP early (a bound below the optimum).  The budget sits just below
+    # the cost of a subset (by 1e-4 of it), so a tolerance-sized overrun would change the answer.
+    C, w, c, site = make_instance(seed, n_sites=5, max_sizes=2, integer=False)
+    rng = np.random.default_rng(seed)
+    w, c = w * w_unit, (c + rng.random(len(c))) * c_unit
+    val, cost, ok = brute_force(C, w, c, site)
+    costs = np.sort(cost[ok & (cost > 0)])
+    budget = float(costs[len(costs) // 3]) * (1 - 1e-4)
+    val, cost, ok = brute_force(C, w, c, site, budget=budget)
+    best = val[ok & (cost <= budget)].max()
+    p = opt.solve_coverage(C, w, c, site, budget=budget, mip_rel_gap=1e-9)
+    assert p.cost <= budget
+    assert p.objective == pytest.approx(best, rel=1e-9)
+    assert p.bound >= best * (1 - 1e-9)
+    # minimum cost for the best weight: reaches it, at the brute-force cheapest cost
+    q = opt.min_cost_cover(C, w, c, site, best * (1 - 1e-9), budget=budget, mip_rel_gap=1e-9)
+    assert q.objective >= best * (1 - 1e-9)
+    assert q.cost == pytest.approx(cost[ok & (cost <= budget) & (val >= best * (1 - 1e-9))].min(), rel=1e-9)
+
+
 @pytest.mark.parametrize("share", [1e-7, 1e-8, 1e-12])
 def test_min_cost_tiny_target_is_met_by_a_real_plan(share):
     # a target far below one user's weight was once "met" within the solver's feasibility tolerance by a point

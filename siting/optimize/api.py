@@ -167,8 +167,7 @@ def lp_relaxation_bound(cover, weight, cost, option_site, *, budget=None, max_co
     if red.C.shape[0] == 0 or red.C.shape[1] == 0:
         return 0.0
     milp = _build(red, inst.budget, inst.max_count)
-    milp.obj[: milp.n_x] -= milp.eps * red.c  # drop the tie-break term: pure covered weight
-    return -(backend or HighsBackend()).relaxation_value(milp)
+    return -(backend or HighsBackend()).relaxation_value(milp) / milp.w_scale
 
 
 def write_lp(path, cover, weight, cost, option_site, *, budget=None, max_count=None, conflicts=None, load_cap=None,
@@ -180,7 +179,7 @@ def write_lp(path, cover, weight, cost, option_site, *, budget=None, max_count=N
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap)
     red = _reduce(inst, reduce)
     mode = "max" if target_weight is None else "min"
-    milp = _build(red, inst.budget, inst.max_count, mode=mode, target=target_weight)
+    milp = _build(red, inst.budget, inst.max_count, mode=mode, target=target_weight, scaled=False)  # caller's units
     prob, _ = _pulp_problem(milp)
     prob.writeLP(str(path))
     return str(path)

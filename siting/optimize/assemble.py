@@ -300,13 +300,13 @@ def _bound_raw(res: SolveResult, red: _Reduced, milp: _Milp, mode: str) -> float
     """Bound on the plan's objective (covered weight, or cost for min-cost) from the solver's dual bound."""
     if mode == "max":
         # without a solver bound (stopped before the root LP), the weight of every coverable user is one
-        bound_raw = -res.dual + milp.delta if np.isfinite(res.dual) else float((red.w * red.mult).sum())
+        bound_raw = -res.dual / milp.w_scale if np.isfinite(res.dual) else float((red.w * red.mult).sum())
         if red.cap is None:
             bound_raw = min(bound_raw, float(red.w.sum()))
         if np.isfinite(bound_raw) and np.all(np.mod(red.w, 1) == 0):
             bound_raw = math.floor(bound_raw + 1e-6)  # integral weights: the bound is an integer
         return bound_raw
-    bound_raw = res.dual if np.isfinite(res.dual) else 0.0
+    bound_raw = res.dual / milp.c_scale if np.isfinite(res.dual) else 0.0
     if np.all(np.mod(red.c, 1) == 0):
         bound_raw = math.ceil(bound_raw - 1e-6)
     return bound_raw

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import cast
 
 import numpy as np
@@ -31,6 +31,13 @@ class _Milp:
     obj_sign: float = -1.0  # objective of the plan = obj_sign * solver objective
     eps: float = 0.0  # kept for callers of older versions (ties are broken by a second, lexicographic solve)
     count_row: int = -1
+    w_scale: float = 1.0  # weights in the model = weights x w_scale (objective of 'max', target and load rows)
+    c_scale: float = 1.0  # costs in the model = costs x c_scale (objective of 'min', budget row)
+
+    @property
+    def obj_scale(self) -> float:
+        """Model objective units per plan unit (weight for maximum coverage, cost for minimum cost)."""
+        return self.w_scale if self.obj_sign < 0 else self.c_scale
 
     @property
     def size(self):
@@ -57,14 +64,34 @@ def _site_rows(site, conflicts):
     return sp.csr_array(sp.vstack(rows, format="csr"))
 
 
-def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
+def _unit_scale(values: np.ndarray) -> float:
+    """A power of two that brings the largest of ``values`` into [1, 2) when it is below 1, else 1."""
+    top = float(values.max()) if len(values) else 0.0
+    if not 0.0 < top < 1.0:
+        return 1.0
+    return float(np.ldexp(1.0, 1 - int(np.frexp(top)[1])))
+
+
+def _build(red: _Reduced, budget, max_count, mode="max", target=None, scaled=True) -> _Milp:
     """The model of the package docstring: maximum coverage (``mode='max'``) or minimum cost (``'min'``).
 
     ``target``: the row "covered weight >= target" (the minimum-cost target; in maximum coverage the
     floor of the second, lexicographic solve).  The objective is the pure covered weight or the pure cost:
     ties are broken by a second solve (see :func:`siting.optimize.solve._tie_break_solve`), not by a small
     term in the objective, so the solver's bound is a bound on the plan's value itself.
+
+    ``scaled``: weights and costs below 1 enter the model multiplied by a power of two that brings the
+    largest into [1, 2) (``_Milp.w_scale``, ``c_scale``; exact in binary floating point).  The solvers'
+    tolerances are absolute (about 1e-6 on rows, 1e-7 on reduced costs): without it, costs given in millions
+    or weights of 1e-6 let a plan break the budget or the target by less than a tolerance and still count
+    as feasible, and a reduced cost inside the tolerance ends the LP early, giving a bound below the optimum.
     """
+    w_scale = _unit_scale(red.w) if scaled else 1.0
+    c_scale = _unit_scale(red.c) if scaled else 1.0
+    if w_scale != 1.0 or c_scale != 1.0:
+        red = replace(red, w=red.w * w_scale, c=red.c * c_scale, cap=None if red.cap is None else red.cap * w_scale)
+        budget = None if budget is None else budget * c_scale
+        target = None if target is None else target * w_scale
     c = red.c
     n = red.C.shape[0]
     eps, cost_cap = 0.0, 0.0
@@ -87,7 +114,7 @@ def _build(red: _Reduced, budget, max_count, mode="max", target=None) -> _Milp:
         target_row = rows.add(sp.csr_array(val_row[None, :]), [target], [_INF])
     A, row_lo, row_hi = rows.stacked(nv)
     return _Milp(obj, A, row_lo, row_hi, np.zeros(nv), col_hi, integer, n, budget_row, target_row, eps * cost_cap,
-                 -1.0 if mode == "max" else 1.0, eps, count_row)
+                 -1.0 if mode == "max" else 1.0, eps, count_row, w_scale, c_scale)
 
 
 class _Rows:

@@ -253,7 +253,7 @@ def _cheapest_by_lp_duals(red: _Reduced, milp: _Milp, lp, chosen_red, plan_cost:
     if milp.budget_row >= 0:
         mu = max(0.0, -float(row_dual[milp.budget_row]))
         if mu > 0:
-            bound = float(milp.row_hi[milp.budget_row]) - s / mu
+            bound = (float(milp.row_hi[milp.budget_row]) - s / mu) / milp.c_scale  # model -> plan cost units
     if milp.count_row >= 0:
         lam = max(0.0, -float(row_dual[milp.count_row]))
         if lam > 0:
@@ -368,8 +368,9 @@ def _sweep_step(asm: Assembly, milp: _Milp, session: Session, prev, settings: So
     gval = covered_weight(inst, red, g_red)
     start_red = prev if covered_weight(inst, red, prev) >= gval and len(prev) else g_red
     asm.timings["greedy"] = time.perf_counter() - t1
-    session.set_row_upper(milp.budget_row, cast(float, budget))  # a sweep budget is a number
-    milp.row_hi[milp.budget_row] = budget
+    budget_model = cast(float, budget) * milp.c_scale  # a sweep budget is a number; the model's cost units
+    session.set_row_upper(milp.budget_row, budget_model)
+    milp.row_hi[milp.budget_row] = budget_model
     start = _start_vector(red, milp, start_red) if len(start_red) else None
     t3 = time.perf_counter()
     res = _run(backend, milp, start, settings, deadline, staged=reduce, session=session)
