@@ -214,6 +214,34 @@ def test_units_do_not_change_the_optimum(seed, w_unit, c_unit):
     assert q.cost == pytest.approx(cost[ok & (cost <= budget) & (val >= best * (1 - 1e-9))].min(), rel=1e-9)
 
 
+def test_min_cost_target_a_hair_below_the_best_weight():
+    # Reference: brute force.  Found by fuzzing: with the target row 1e-9 below the best reachable weight,
+    # HiGHS 1.x presolve calls this model infeasible (optimal at cost 12 without presolve); an 'infeasible'
+    # verdict is checked by a run without presolve before it is believed.
+    D = np.array([
+        [0, 0, 0, 0, 0, 0, 1, 0, 0, 0, 0, 1, 1, 0, 0, 0, 0, 1, 0, 1],
+        [1, 0, 0, 1, 0, 1, 0, 1, 1, 1, 0, 1, 1, 1, 0, 0, 0, 0, 1, 1],
+        [1, 0, 0, 0, 0, 1, 0, 0, 1, 0, 0, 1, 0, 0, 0, 1, 1, 0, 0, 0],
+        [0, 0, 1, 0, 0, 0, 1, 0, 0, 0, 1, 1, 0, 0, 1, 1, 1, 0, 0, 0],
+        [0, 1, 1, 0, 1, 1, 1, 1, 1, 1, 1, 1, 0, 1, 1, 1, 1, 1, 0, 0],
+        [0, 1, 1, 0, 0, 0, 0, 1, 0, 0, 1, 1, 0, 0, 1, 0, 1, 0, 0, 0],
+        [0, 0, 0, 1, 1, 1, 0, 1, 0, 1, 0, 0, 1, 0, 1, 0, 0, 0, 0, 0],
+        [0, 0, 0, 1, 1, 1, 0, 0, 1, 0, 0, 0, 1, 1, 0, 0, 0, 1, 1, 0],
+        [1, 1, 0, 0, 0, 0, 0, 1, 1, 0, 1, 1, 1, 1, 0, 0, 1, 1, 0, 1]], bool)
+    w = np.array([4.555, 4.152, 2.92, 2.52, 4.789, 2.669, 2.245, 1.24, 1.807, 4.742, 3.417, 0.122, 2.425, 4.063,
+                  0.685, 4.249, 1.783, 4.615, 4.381, 3.847])
+    c = np.array([2.0, 5.0, 9.0, 0.0, 8.0, 0.0, 3.0, 0.0, 4.0])
+    site = np.array([0, 1, 1, 2, 2, 3, 4, 5, 7])
+    conflicts = np.array([[2, 5]])
+    C = sp.csr_array(D)
+    val, cost, ok = brute_force(C, w, c, site, max_count=4, conflicts=conflicts)
+    best = val[ok].max()
+    target = best * (1 - 1e-9)
+    q = opt.min_cost_cover(C, w, c, site, target, max_count=4, conflicts=conflicts)
+    assert q.objective >= target
+    assert q.cost == pytest.approx(cost[ok & (val >= target)].min())
+
+
 @pytest.mark.parametrize("share", [1e-7, 1e-8, 1e-12])
 def test_min_cost_tiny_target_is_met_by_a_real_plan(share):
     # a target far below one user's weight was once "met" within the solver's feasibility tolerance by a point

@@ -242,6 +242,8 @@ class HighsBackend:
         """
         t_end = time.perf_counter() + float(time_limit_s)
         res = self._run_once(h, start, time_limit_s)
+        if res.status == "infeasible":
+            return self._infeasible_checked(h, res, t_end)
         if res.values is None:
             return res
         cost = np.asarray(h.getLp().col_cost_, float)
@@ -265,6 +267,22 @@ class HighsBackend:
                 res, point = res2, point2
         return replace(res, primal=point, dual=-_INF, status="stopped",
                        notes=(note[:-1] + "; that run disagreed too, so no bound is claimed.",))
+
+    def _infeasible_checked(self, h, res: SolveResult, t_end: float) -> SolveResult:
+        """An 'infeasible' verdict checked by a second run without presolve (a fresh copy, same options).
+
+        HiGHS 1.x presolve can call a feasible model infeasible: a target row a hair below a reachable weight
+        was 'infeasible' with presolve and optimal without.  Only the second run's verdict is kept.
+        """
+        h2 = _quiet_highs()
+        h2.passOptions(h.getOptions())
+        h2.setOptionValue("presolve", "off")
+        h2.passModel(h.getLp())
+        res2 = self._run_once(h2, None, max(0.05, t_end - time.perf_counter()))
+        if res2.status == "infeasible":
+            return res
+        return replace(res2, notes=(*res2.notes, "HiGHS presolve reported the model infeasible; solved again "
+                                                 "without presolve, it is not."))
 
     def _run_once(self, h, start, time_limit_s) -> SolveResult:
         import highspy
