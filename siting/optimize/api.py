@@ -13,7 +13,7 @@ from .assemble import Plan
 from .backends import Backend, HighsBackend, backend_for
 from .heuristics import _greedy_plan
 from .model import _build, _pulp_problem
-from .problem import _is_scalar, _validate
+from .problem import _budget_list, _finite_number, _is_scalar, _validate
 from .reductions import _reduce
 from .settings import SolverSettings, settings_from
 from .solve import _min_cost, _solve, _sweep
@@ -93,8 +93,9 @@ def min_cost_cover(cover, weight, cost, option_site, target_weight=None, *, targ
     inst = _validate(cover, weight, cost, option_site, budget, max_count, conflicts, load_cap, option_wall)
     if (target_weight is None) == (target_share is None):
         raise SitingError("optimiser arguments: give exactly one of 'target_weight' and 'target_share'")
-    if target_weight is not None and (not _is_scalar(target_weight) or not np.isfinite(target_weight)):
-        raise SitingError(f"optimiser argument 'target_weight': expected a finite number, got {target_weight!r}")
+    if target_weight is not None:
+        target_weight = _finite_number("target_weight", target_weight, "a finite number",
+                                       "pass the weight to cover as a number, or give target_share")
     if target_share is not None and (not _is_scalar(target_share) or not 0 <= float(target_share) <= 1):
         raise SitingError(f"optimiser argument 'target_share': expected a share in [0, 1], got {target_share!r}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
@@ -124,15 +125,14 @@ def budget_sweep(cover, weight, cost, option_site, budgets, *, max_count=None, c
     DataFrame with columns budget, covered_weight, bound, gap, cost, n_sites, status (in the caller's
     budget order).
     """
-    b = np.asarray(budgets, float).ravel()
+    b = _budget_list(budgets)
     if b.size == 0:
         return pd.DataFrame(columns=_SWEEP_COLUMNS)
-    if not np.all(np.isfinite(b)) or b.min() < 0:
-        raise SitingError(f"optimiser argument 'budgets': expected finite numbers >= 0, got {b.tolist()}")
     settings = settings_from(settings, solver, time_limit_s, mip_rel_gap, threads, solver_seed)
     inst = _validate(cover, weight, cost, option_site, float(b.max()), max_count, conflicts, load_cap, option_wall)
-    if total_time_s is not None and not (np.isfinite(total_time_s) and total_time_s > 0):
-        raise SitingError(f"optimiser argument 'total_time_s': expected a positive number, got {total_time_s!r}")
+    if total_time_s is not None:
+        _finite_number("total_time_s", total_time_s, "a positive number or None", "pass the sweep's whole time in "
+                       "seconds", low=1e-9)
     plans = _sweep(inst, b, settings, backend or backend_for(settings.name), reduce, warm_start, total_time_s)
     rows = [(x, p.objective, p.bound, p.gap, p.cost, len(p.chosen), p.status) for x, p in zip(b, plans)]
     return pd.DataFrame(rows, columns=_SWEEP_COLUMNS)

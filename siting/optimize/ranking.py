@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import numbers
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
+from ..errors import SitingError
 from .heuristics import _conflict_adj, _Index
-from .problem import _INF
+from .problem import _INF, _as_1d, _conflict_pairs, _cover_matrix
 
 
 def rank_chosen(chosen, cover, weight) -> pd.DataFrame:
@@ -17,17 +20,21 @@ def rank_chosen(chosen, cover, weight) -> pd.DataFrame:
     is the weight only that option covers within the plan; ``shared_weight`` the rest of the weight it
     covers.  ``cumulative_weight`` of the last row equals the plan's covered weight.
 
+    ``cover`` is read as :func:`siting.optimize.solve_coverage` reads it (any nonzero entry covers) and the
+    arguments are checked as there; ``chosen`` holds row indices of ``cover`` (duplicates count once).
+    :class:`SitingError` names the argument that is wrong.
+
     Returns
     -------
     DataFrame with columns option, rank (1-based), marginal_weight, cumulative_weight, exclusive_weight,
     shared_weight.
     """
     cols = ["option", "rank", "marginal_weight", "cumulative_weight", "exclusive_weight", "shared_weight"]
-    chosen = np.unique(np.asarray(chosen, np.int64))
+    C = _cover_matrix(cover)
+    w = _as_1d("weight", weight, C.shape[1])
+    chosen = _chosen_options(chosen, C.shape[0])
     if len(chosen) == 0:
         return pd.DataFrame({c: pd.Series(dtype="int64" if c in ("option", "rank") else "float64") for c in cols})
-    C = sp.csr_array(cover)
-    w = np.asarray(weight, float)
     Csub = sp.csr_array(C[chosen], dtype=np.float64)
     cnt = np.asarray(Csub.sum(axis=0)).ravel()
     tot = Csub @ w
@@ -83,6 +90,11 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     (another building before another wall of the same building before the primary's own wall), then by
     ``kept_weight`` (descending), cost, index.  The coverage is evaluated without load caps.
 
+    The arguments are read and checked as :func:`siting.optimize.solve_coverage` reads them (any nonzero
+    ``cover`` entry covers; site ids are labels, so only their equality matters); ``chosen`` holds row indices
+    of ``cover``, ``k`` is a whole number >= 0, ``option_wall`` and ``option_building`` one key per option.
+    :class:`SitingError` names the argument that is wrong.
+
     Cost: for most candidates the swap adds only ``G0_a``, the weight ``a`` adds to the plan as it is; only
     the few options covering one of ``r``'s exclusive users, in spacing conflict with ``r``'s site, or on
     ``r``'s own building (or wall) rank differently for each ``r``.  Those are evaluated per ``r``; of the
@@ -95,15 +107,20 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     kept_weight, weak, placement.
     """
     empty = pd.DataFrame({c: pd.Series(dtype=t) for c, t in _BACKUP_DTYPES.items()})
-    chosen = np.unique(np.asarray(chosen, np.int64))
-    if len(chosen) == 0 or k <= 0:
+    Cb = _cover_matrix(cover)
+    n_opt = Cb.shape[0]
+    w = _as_1d("weight", weight, Cb.shape[1])
+    c = _as_1d("cost", cost, n_opt)
+    at_site = _Index(_as_1d("option_site", option_site, n_opt, "i"))
+    site = at_site.code  # compact site codes: arrays per site stay as small as the number of sites
+    chosen = _chosen_options(chosen, n_opt)
+    k = _backup_count(k)
+    cf = _conflict_pairs(conflicts)
+    wall = _option_key("option_wall", option_wall, n_opt)
+    bldg = _option_key("option_building", option_building, n_opt)
+    if len(chosen) == 0 or k == 0:
         return empty
-    C = sp.csr_array(sp.csr_array(cover), dtype=np.float64)
-    w = np.asarray(weight, float)
-    c = np.asarray(cost, float)
-    site = np.asarray(option_site, np.int64)
-    wall = None if option_wall is None else np.asarray(option_wall)
-    bldg = None if option_building is None else np.asarray(option_building)
+    C = sp.csr_array(Cb, dtype=np.float64)
     Csub = sp.csr_array(C[chosen])
     cnt = np.asarray(Csub.sum(axis=0)).ravel()
     W = float(w[cnt > 0].sum())
@@ -114,15 +131,14 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     M = sp.csc_array(C @ X)
     M.sort_indices()
     free = ~np.isin(site, site[chosen])
-    adj = None
-    nconf = np.zeros(int(site.max()) + 1 if len(site) else 0)  # chosen sites in conflict with each site
-    if conflicts is not None and len(np.asarray(conflicts)):
-        cf = np.asarray(conflicts, np.int64)
-        adj = _conflict_adj(None, cf, int(max(site.max() + 1, cf.max() + 1)))
+    # spacing conflicts between site codes (pairs with a site that carries no option cannot matter)
+    adj = _conflict_adj(None, np.searchsorted(at_site.keys, cf[np.isin(cf, at_site.keys).all(axis=1)]),
+                        len(at_site.keys))
+    nconf = np.zeros(len(at_site.keys))  # chosen sites in conflict with each site
+    if adj is not None:
         cs = np.zeros(adj.shape[0])
         cs[site[chosen]] = 1.0
         nconf = adj @ cs
-    at_site = _Index(site)
     group = at_site if wall is None else _Index(wall)  # one backup per wall (per site without walls)
     home = None if bldg is None and wall is None else _Index(bldg if bldg is not None else wall)
     # options whose swap adds G0 for every r (no exclusive user of any r, no spacing conflict with a chosen
@@ -137,7 +153,7 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
         special = [M.indices[M.indptr[r_i]:M.indptr[r_i + 1]]]
         if adj is not None:
             neighbours = adj.indices[adj.indptr[site[r]]:adj.indptr[site[r] + 1]]
-            special.append(at_site.members(at_site.codes(neighbours)))
+            special.append(at_site.members(neighbours))
         if home is not None:
             special.append(home.members(home.code[[r]]))
         special_groups = np.unique(group.code[np.concatenate(special)])
@@ -156,6 +172,54 @@ def backups_for(chosen, cover, weight, cost, option_site, k=3, *, conflicts=None
     out = pd.DataFrame({col: np.concatenate([f[col] for f in frames]) for col in frames[0]})
     out["backup_rank"] = out.groupby("option").cumcount() + 1
     return out[_BACKUP_COLUMNS].reset_index(drop=True).astype(_BACKUP_DTYPES)
+
+
+def _chosen_options(chosen, n_opt) -> np.ndarray:
+    """The chosen options as sorted unique row indices of the cover matrix; :class:`SitingError` otherwise."""
+    arr = np.asarray(chosen)
+    if arr.ndim != 1:
+        raise SitingError(f"optimiser argument 'chosen': expected a 1-D array of option indices, got shape "
+                          f"{arr.shape}; pass the plan's options, e.g. plan.chosen")
+    if arr.size == 0:
+        return np.zeros(0, np.int64)
+    if arr.dtype == bool:
+        raise SitingError("optimiser argument 'chosen': expected option indices, got a boolean mask; pass "
+                          "numpy.flatnonzero(mask)")
+    if arr.dtype.kind not in "iuf" or not np.all(np.isfinite(arr)) or np.any(np.mod(arr, 1) != 0):
+        raise SitingError(f"optimiser argument 'chosen': expected integer option indices, got dtype {arr.dtype}; "
+                          f"pass row numbers of 'cover', e.g. plan.chosen")
+    arr = arr.astype(np.int64)
+    bad = (arr < 0) | (arr >= n_opt)
+    if bad.any():
+        i = int(arr[bad][0])
+        fix = ("negative indices do not count from the end, pass row numbers of 'cover'" if i < 0 else
+               "pass the plan computed with this cover, or the cover it was computed with")
+        raise SitingError(f"optimiser argument 'chosen': expected option indices >= 0 and < {n_opt} (the rows of "
+                          f"'cover'), found {i}; {fix}")
+    return np.unique(arr)
+
+
+def _backup_count(k) -> int:
+    """``k`` as an int; :class:`SitingError` unless it is a whole number >= 0."""
+    if isinstance(k, bool) or not isinstance(k, numbers.Real) or not float(k).is_integer() or k < 0:
+        raise SitingError(f"optimiser argument 'k': expected a whole number of backups >= 0, got {k!r}; pass e.g. "
+                          f"k=3")
+    return int(float(k))
+
+
+def _option_key(name, key, n_opt) -> np.ndarray | None:
+    """One grouping key (wall, building) per option, none missing; :class:`SitingError` otherwise."""
+    if key is None:
+        return None
+    arr = np.asarray(key)
+    if arr.ndim != 1 or arr.shape[0] != n_opt:
+        raise SitingError(f"optimiser argument '{name}': expected a 1-D array of length {n_opt}, got shape "
+                          f"{arr.shape}; pass one value per option")
+    missing = np.asarray(pd.isna(arr), bool)
+    if missing.any():
+        raise SitingError(f"optimiser argument '{name}': found a missing value at position "
+                          f"{int(np.flatnonzero(missing)[0])}; give every option a key or pass None")
+    return arr
 
 
 def _group_order(opts, G0, c, group: _Index):

@@ -11,6 +11,11 @@ from ..errors import SitingError
 SOLVER_NAMES = ("highs", "cbc")
 
 
+def _is_number(x) -> bool:
+    """One real number: a bool, integer or float, also as a 0-d array (not text, a complex number or a list)."""
+    return np.ndim(x) == 0 and np.asarray(x).dtype.kind in "biuf"
+
+
 @dataclass(frozen=True)
 class SolverSettings:
     """How the integer program is solved.
@@ -21,7 +26,7 @@ class SolverSettings:
         the back end when none is passed in.
     time_limit_s : solver wall-clock limit [s] (per budget in :func:`~siting.optimize.budget_sweep`).
     mip_gap : relative gap at which the solver stops and reports optimal.
-    threads : solver threads (None: solver default).
+    threads : solver threads, a positive integer (None: solver default).
     seed : the solver's random seed; the same seed gives the same plan (solve times can differ a lot
         between seeds, see docs/MODELS.md).
     """
@@ -36,10 +41,14 @@ class SolverSettings:
         if self.name not in SOLVER_NAMES:
             raise SitingError(f"optimiser argument 'solver': expected 'highs' or 'cbc', got {self.name!r}")
         t = self.time_limit_s
-        if not (np.isfinite(t) and t > 0):
+        if not (_is_number(t) and np.isfinite(t) and t > 0):
             raise SitingError(f"optimiser argument 'time_limit_s': expected a positive number, got {t!r}")
-        if not (np.isfinite(self.mip_gap) and self.mip_gap >= 0):
+        if not (_is_number(self.mip_gap) and np.isfinite(self.mip_gap) and self.mip_gap >= 0):
             raise SitingError(f"optimiser argument 'mip_rel_gap': expected a finite number >= 0, got {self.mip_gap!r}")
+        n = self.threads
+        if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
+            raise SitingError(f"optimiser argument 'threads': expected a positive integer or None (solver default), "
+                              f"got {n!r}; pass a whole number of threads such as 4, or None")
         s = self.seed
         if isinstance(s, bool) or not isinstance(s, (int, np.integer)) or not 0 <= s < 2**31:
             raise SitingError(f"optimiser argument 'solver_seed': expected an integer from 0 to 2**31 - 1, got {s!r}")
