@@ -69,6 +69,27 @@ def test_split_count_limit_matches_monolithic():
     mono = opt.solve_coverage(C, w, cost, site, max_count=9, reduce=False, mip_rel_gap=0.0)
     assert split.model_size.get("split_parts", 0) >= decompose.MIN_COMPONENTS
     assert split.objective == pytest.approx(mono.objective) and len(split.chosen) <= 9
+    assert split.cost == pytest.approx(mono.cost)  # ties: the cheapest plan (the monolithic second solve)
+
+
+@pytest.mark.parametrize("count", [1, 3, 5])
+def test_split_count_limit_breaks_ties_on_cost_not_panels(count):
+    """Brute force: 9 spots, each covering its own user (weight 1), costs 9, 8, ..., 1, 2 and a spot of cost
+    2.5 covering the last two users (8 independent parts): within a panel count the most weight, and among
+    such plans the cheapest, which is not always the plan with the fewest panels."""
+    n = 9
+    D = np.eye(n, dtype=bool)
+    D = np.vstack([D, D[7] | D[8]])  # spot 9 covers the users of spots 7 and 8
+    cost = np.array([9.0, 8, 7, 6, 5, 4, 3, 1, 2, 2.5])
+    site = np.arange(n + 1)
+    X = ((np.arange(2 ** (n + 1))[:, None] >> np.arange(n + 1)) & 1).astype(bool)
+    ok = X.sum(1) <= count
+    val = (X.astype(int) @ D.astype(int) > 0).sum(1).astype(float)
+    best = val[ok].max()
+    cheapest = (X @ cost)[ok & (val == best)].min()
+    p = opt.solve_coverage(sp.csr_array(D), np.ones(n), cost, site, max_count=count)
+    assert p.model_size.get("split_parts", 0) >= decompose.MIN_COMPONENTS
+    assert p.objective == best and p.cost == pytest.approx(cheapest) and p.tie_break == "proven"
 
 
 def test_split_by_exact_solves_when_enumeration_is_too_large(monkeypatch):
@@ -87,7 +108,7 @@ def test_enumerated_frontier_against_brute_force():
     C, w, cost, site, conf = clusters(11, n_clusters=1, sites=(4, 5), users=(10, 11))
     red = _reduce(_validate(C, w, cost, site, 1e9, None, conf), True)
     k = decompose.resource_units(_validate(C, w, cost, site, 1e9, None, conf), red)[0]
-    f = decompose._enumerate(red.C.toarray(), red.w, k, red.site, red.conflicts)
+    f = decompose._enumerate(red.C.toarray(), red.w, k, red.c, red.site, red.conflicts)
     Cd = red.C.toarray()
     n = len(k)
     for bits in range(1 << n):

@@ -10,7 +10,9 @@ the only constraint joining them is the budget row (or the panel-count row).  Th
    previous optimum (each solve proven optimal, ties broken toward the cheaper plan);
 2. the components are combined by a multiple-choice knapsack dynamic programme over integer resource units
    (the budget in units of the greatest common divisor of the option costs, or panels), which gives, for
-   every resource level at once, the most weight any plan covers, and the cheapest plan doing so.
+   every resource level at once, the most weight any plan covers, and the cheapest plan doing so (the
+   programme compares (weight, cost) lexicographically, so with a panel count the cheapest plan is found,
+   not the one with the fewest panels).
 
 The result is the exact optimum (bound = objective, gap 0) for the budget and for every budget of a sweep
 from one frontier computation.  The multiple-choice knapsack recursion is the textbook one (Kellerer,
@@ -44,12 +46,21 @@ MAX_TABLE_BYTES = 2_000_000_000  # choice table of the dynamic programme
 
 @dataclass
 class Frontier:
-    """The Pareto frontier of one component: resource units ``k`` (ascending, ``k[0] = 0``), covered weight
-    ``w`` (strictly ascending) and the chosen options (reduced numbering) of each point."""
+    """The frontier of one component: resource units ``k`` (ascending, ``k[0] = 0``), covered weight ``w``
+    (non-decreasing), cost ``c`` and the chosen options (reduced numbering) of each point.  Each point is the
+    best plan within its units in the order (most weight, then least cost); a point of equal weight is kept
+    only when it is cheaper (a panel count: more panels can cost less)."""
 
     k: np.ndarray
     w: np.ndarray
+    c: np.ndarray
     sets: list
+
+
+def _better(w_new, c_new, w_old, c_old):
+    """(w_new, c_new) beats (w_old, c_old): more weight, or the same weight (within 1e-9) at a lower cost."""
+    tol_w = 1e-9 * np.maximum(1.0, np.abs(w_old))
+    return (w_new > w_old + tol_w) | ((w_new >= w_old - tol_w) & (c_new < c_old - 1e-9 * np.maximum(1.0, np.abs(c_old))))
 
 
 def component_labels(red: _Reduced) -> tuple[int, np.ndarray]:
@@ -95,11 +106,11 @@ def _cap_units(inst: _Instance, unit, budget) -> int:
     return int(math.floor(budget / unit + 1e-9))
 
 
-def _enumerate(Cd, w, k, site, conflicts):
+def _enumerate(Cd, w, k, cost, site, conflicts):
     """Frontier of a small component by enumeration of its feasible option sets, or None when too many.
 
-    ``Cd`` dense bool (options x classes), ``w`` class weights, ``k`` units, ``site`` per option, ``conflicts``
-    site pairs of the component.
+    ``Cd`` dense bool (options x classes), ``w`` class weights, ``k`` units and ``cost`` per option, ``site``
+    per option, ``conflicts`` site pairs of the component.
     """
     sites = np.unique(site)
     if np.prod([1 + np.count_nonzero(site == s) for s in sites], dtype=float) > ENUM_MAX:
@@ -107,34 +118,38 @@ def _enumerate(Cd, w, k, site, conflicts):
     n, m = Cd.shape
     mask = np.zeros((1, m), bool)
     kk = np.zeros(1, np.int64)
+    cc = np.zeros(1)
     pick = np.full((1, len(sites)), -1, np.int64)  # option chosen at each site, -1 none
     for si, s in enumerate(sites):
         opts = np.flatnonzero(site == s)
         rep = len(opts) + 1
         mask = np.repeat(mask, rep, axis=0)
         kk = np.repeat(kk, rep)
+        cc = np.repeat(cc, rep)
         pick = np.repeat(pick, rep, axis=0)
         choice = np.tile(np.r_[-1, opts], len(kk) // rep)
         on = choice >= 0
         mask[on] |= Cd[choice[on]]
         kk[on] += k[choice[on]]
+        cc[on] += cost[choice[on]]
         pick[:, si] = choice
     ok = np.ones(len(kk), bool)
     pos = {s: i for i, s in enumerate(sites)}
     for a, b in conflicts:
         ok &= ~((pick[:, pos[a]] >= 0) & (pick[:, pos[b]] >= 0))
     wt = mask[ok].astype(float) @ w
-    kk, pick = kk[ok], pick[ok]
-    order = np.lexsort((-wt, kk))
-    best = -1.0
-    out_k, out_w, sets = [], [], []
+    kk, cc, pick = kk[ok], cc[ok], pick[ok]
+    order = np.lexsort((cc, -wt, kk))
+    best_w, best_c = -1.0, np.inf
+    out_k, out_w, out_c, sets = [], [], [], []
     for i in order:
-        if wt[i] > best + 1e-9 * max(1.0, best):
-            best = wt[i]
+        if _better(wt[i], cc[i], best_w, best_c):
+            best_w, best_c = wt[i], cc[i]
             out_k.append(kk[i])
             out_w.append(wt[i])
+            out_c.append(cc[i])
             sets.append(np.sort(pick[i][pick[i] >= 0]))
-    return Frontier(np.asarray(out_k, np.int64), np.asarray(out_w), sets)
+    return Frontier(np.asarray(out_k, np.int64), np.asarray(out_w), np.asarray(out_c), sets)
 
 
 def _solve_frontier(sub: _Instance, k, unit, cap, settings, backend, deadline):
@@ -162,11 +177,12 @@ def _solve_frontier(sub: _Instance, k, unit, cap, settings, backend, deadline):
             break
         ch = np.sort(plan.chosen)
         used = int(k[ch].sum())
-        pts.append((used, plan.objective, ch))
+        pts.append((used, plan.objective, plan.cost, ch))
         lim = used - 1
-    pts.append((0, 0.0, np.zeros(0, np.int64)))
+    pts.append((0, 0.0, 0.0, np.zeros(0, np.int64)))
     pts.reverse()
-    return Frontier(np.array([p[0] for p in pts], np.int64), np.array([p[1] for p in pts]), [p[2] for p in pts])
+    return Frontier(np.array([p[0] for p in pts], np.int64), np.array([p[1] for p in pts]),
+                    np.array([p[2] for p in pts]), [p[3] for p in pts])
 
 
 def combine(frontiers: list[Frontier], cap: int):
@@ -174,24 +190,26 @@ def combine(frontiers: list[Frontier], cap: int):
 
     Returns (V, choice): ``V[u]`` the most weight within ``u`` units (non-decreasing in u), ``choice[i][u]``
     the point of frontier i in an optimal plan for level u given the frontiers before it (None for a
-    frontier of one point).  Among equal weights the cheaper point is kept.
+    frontier of one point).  Among equal weights the cheaper plan is kept (costs are carried along).
     """
     V = np.zeros(cap + 1)
+    cost = np.zeros(cap + 1)
     choice: list[np.ndarray | None] = []
     for f in frontiers:
         usable = int(np.searchsorted(f.k, cap, side="right"))
         if usable <= 1:
             choice.append(None)
             continue
-        best = V.copy()
+        best, best_c = V.copy(), cost.copy()
         arg = np.zeros(cap + 1, np.int8 if usable < 128 else np.int16 if usable < 32768 else np.int32)
         for p in range(1, usable):
             kp = int(f.k[p])
-            cand = V[: cap + 1 - kp] + f.w[p]
-            better = cand > best[kp:] + 1e-9 * np.maximum(1.0, np.abs(best[kp:]))
+            cand, cand_c = V[: cap + 1 - kp] + f.w[p], cost[: cap + 1 - kp] + f.c[p]
+            better = _better(cand, cand_c, best[kp:], best_c[kp:])
             best[kp:][better] = cand[better]
+            best_c[kp:][better] = cand_c[better]
             arg[kp:][better] = p
-        V = best
+        V, cost = best, best_c
         choice.append(arg)
     return V, choice
 
@@ -231,13 +249,13 @@ def frontiers(inst: _Instance, red: _Reduced, cap_budget: float | None, settings
         Ci = sp.csr_array(Ci[:, cls])
         cf = red.conflicts[np.isin(red.conflicts, red.site[opts]).all(axis=1)] if len(red.conflicts) else \
             np.zeros((0, 2), np.int64)  # fmt: skip
-        f = _enumerate(Ci.toarray(), red.w[cls], k[opts], red.site[opts], cf)
+        f = _enumerate(Ci.toarray(), red.w[cls], k[opts], red.c[opts], red.site[opts], cf)
         if f is None:
             sub = _Instance(Ci, red.w[cls], red.c[opts], red.site[opts], None, None, cf, None)
             f = _solve_frontier(sub, k[opts], unit, cap, settings, backend, deadline)
             if f is None:
                 return None
-        out.append(Frontier(f.k, f.w, [opts[s] for s in f.sets]))
+        out.append(Frontier(f.k, f.w, f.c, [opts[s] for s in f.sets]))
     return out, k, unit, kind
 
 
@@ -265,8 +283,7 @@ def solve_split(inst: _Instance, red: _Reduced, limits, settings, backend, t0: f
     plans = []
     for lim in limits:
         u = min(cap, _cap_units(inst, unit, lim) if kind == "budget" else int(lim))
-        u_min = int(np.searchsorted(V, V[u] - 1e-9 * max(1.0, V[u])))  # cheapest level reaching the optimum
-        chosen = backtrack(fr, choice, u_min)
+        chosen = backtrack(fr, choice, u)  # the most weight within u units, the cheapest such plan
         a = asm.for_budget(lim) if kind == "budget" else replace(asm, inst=replace(inst, max_count=int(lim)))
         g = _greedy_plan(red, a.inst.budget, a.inst.max_count, local=False)[0]
         plan = a.plan(chosen, "optimal", float(V[u]), covered_weight(a.inst, red, g), tie_break="proven",
