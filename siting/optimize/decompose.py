@@ -140,7 +140,7 @@ def _enumerate(Cd, w, k, cost, site, conflicts):
     wt = mask[ok].astype(float) @ w
     kk, cc, pick = kk[ok], cc[ok], pick[ok]
     order = np.lexsort((cc, -wt, kk))
-    best_w, best_c = -1.0, np.inf
+    best_w, best_c = -1.0, 0.0  # the first point (nothing chosen) wins on weight
     out_k, out_w, out_c, sets = [], [], [], []
     for i in order:
         if _better(wt[i], cc[i], best_w, best_c):
