@@ -49,7 +49,8 @@ def _parser() -> argparse.ArgumentParser:
     shown.add_argument("--progress", action="store_true", default=None,
                        help="show progress bars even when stderr is not a terminal (on a terminal they show anyway)")
     shown.add_argument("--quiet", action="store_true",
-                       help="print nothing but errors: no progress bars, no notices, no summary")
+                       help="print nothing but errors and the warning of an empty plan: no progress bars, no notices, "
+                       "no summary")
 
     validate = sub.add_parser("validate", help="check a job and its input layers; print a district summary",
                               epilog=EXIT_CODES)
@@ -134,6 +135,8 @@ def _dispatch(args) -> int:
     result = run(job, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
                  progress=show_progress(args.progress, args.quiet, sys.stderr.isatty()), notices=not args.quiet,
                  overwrite=args.overwrite, job_file=args.job)  # run() checks the job before any layer is read
+    for line in _empty_plan_warnings(result):  # also with --quiet: the plan is not what the user asked for
+        print(f"siting: warning: {line}", file=sys.stderr)
     if not args.quiet:
         plan = result.plan
         covered_before = float((result.users["weight"] * result.gains.direct["covered"]).sum())
@@ -148,6 +151,26 @@ def _dispatch(args) -> int:
             print(line)
         print(f"outputs in {job.output.folder}")
     return 0
+
+
+def _empty_plan_warnings(result) -> list[str]:
+    """What to say on the console about an empty plan: the notes saying the data leaves nothing to plan (far
+    base stations, far users: :func:`siting.preflight.console_warnings`), else the report's empty-plan reason."""
+    import json
+
+    from .preflight import console_warnings
+
+    if len(result.plan.chosen):
+        return []
+    lines = console_warnings(result.notes)
+    if lines:
+        return lines
+    path = result.outputs.get("run_json")
+    try:
+        reason = json.loads(Path(path).read_text(encoding="utf-8"))["summary"]["empty_plan_reason"] if path else ""
+    except (OSError, ValueError, KeyError, TypeError):
+        reason = ""
+    return [f"the plan is empty: {reason}" if reason else "the plan is empty; see the report for why"]
 
 
 def _prepare() -> int:

@@ -18,8 +18,10 @@ from __future__ import annotations
 
 import copy
 import difflib
+import errno
 import json
 import math
+import os
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, fields, make_dataclass
@@ -29,6 +31,9 @@ from typing import TYPE_CHECKING, Any, TypeAlias
 from .errors import JobError
 
 _NEVER = object()  # marker: the key has no "none" value
+#: Smallest tile [m] (``run.tile_m``, 0 aside): each tile also reads a halo of ``radio.bs_range_m`` (at least 10 m,
+#: default 400 m) around it, so tiles below 100 m only multiply the halo work and the cache entries.
+MIN_TILE_M = 100.0
 
 
 @dataclass(frozen=True)
@@ -53,15 +58,33 @@ class Key:
             return ""
         lo = "-inf" if self.lo is None else f"{self.lo:g}"
         hi = "inf" if self.hi is None else f"{self.hi:g}"
-        return f"{lo} .. {hi}"
+        return f"{self.none:g} or {lo} .. {hi}" if self.none_outside_range() else f"{lo} .. {hi}"
 
+    def none_outside_range(self) -> bool:
+        """True when the key's "none" value is a number outside ``lo .. hi`` (allowed as well, e.g. run.tile_m = 0)."""
+        return (isinstance(self.none, (int, float)) and not isinstance(self.none, bool)
+                and ((self.lo is not None and self.none < self.lo) or (self.hi is not None and self.none > self.hi)))
+
+
+#: Largest cost of one panel or one installation [currency]: a catalogue price above a billion currency units is
+#: a typo (an extra zero, a price in cents of a currency with no cents) whatever the currency, and such numbers
+#: break the optimiser's tolerances (a cost of 1e15 leaves the solver without a plan).
+MAX_UNIT_COST = 1e9
+#: Largest budget [currency]: a thousand panels at the largest unit cost; more is a typo.
+MAX_BUDGET = 1e12
+#: Largest weight of one demand point or one surface's load cap [weight]: the same bound as a given user's
+#: weight (README "Inputs"); a weight above a billion households or subscribers is a typo, and such numbers
+#: overflow the coverage sums.
+MAX_WEIGHT = 1e9
 
 PANEL_KEYS: dict[str, Key] = {
     "size_id": Key("str", None, doc="catalogue id, unique", required=True),
     "width_m": Key("float", None, "m", 0.05, 20.0, "panel width along the wall", required=True),
     "height_m": Key("float", None, "m", 0.05, 20.0, "panel height", required=True),
-    "cost": Key("float", None, "currency", 0.0, None, "panel cost", required=True),
-    "install_cost": Key("float", 0.0, "currency", 0.0, None, "installation cost per panel"),
+    "cost": Key("float", None, "currency", 0.0, MAX_UNIT_COST, "panel cost (above 1e9 is a typo: an extra zero "
+                "or a price in cents)", required=True),
+    "install_cost": Key("float", 0.0, "currency", 0.0, MAX_UNIT_COST, "installation cost per panel (above 1e9 is "
+                        "a typo)"),
 }
 
 SCHEMA: dict[str, dict[str, Key]] = {
@@ -81,7 +104,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                              "max_gain_dbi, azimuth_deg, downtilt_deg, pattern)", required=True),
         "sites": Key("path", "", none="", doc="optional point layer of given facade spots, snapped to walls"),
         "users": Key("path", "", none="", doc="optional point layer of given demand points"),
-        "user_weight_column": Key("str", "weight", doc="column of the users layer holding the demand weight"),
+        "user_weight_column": Key("str", "weight", doc="column of the users layer holding the demand weight (a "
+                                  "name other than 'weight' must exist in the layer; without a 'weight' column "
+                                  "every user weighs 1)"),
         "crs": Key("str", "", none="", doc="projected CRS for all metric work, e.g. 'EPSG:25832' ('' = local UTM zone)"),
         "survey_results": Key("path", "", none="", doc="field verdicts: the survey list (CSV) with status, reason, "
                               "measured position, largest panel and rejects_wall filled in; re-plans around them"),
@@ -109,7 +134,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "street_grid": Key("bool", True, doc="outdoor demand on a regular grid over the streets"),
         "grid_m": Key("float", 5.0, "m", 1.0, 200.0, "street grid spacing"),
         "street_height_m": Key("float", 1.5, "m", 0.0, 10.0, "terminal height of street points"),
-        "street_weight": Key("float", 1.0, "weight", 0.0, None, "weight of one street point"),
+        "street_weight": Key("float", 1.0, "weight", 0.0, MAX_WEIGHT, "weight of one street point (above 1e9 is a "
+                             "typo: it overflows the coverage sums)"),
         "homes": Key("bool", False, doc="fixed-wireless terminals at windows on every floor"),
         "home_spacing_m": Key("float", 10.0, "m", 1.0, 200.0, "spacing of home terminals along walls"),
         "area_per_household_m2": Key("float", 80.0, "m2", 10.0, 10000.0, "floor area per household"),
@@ -166,18 +192,22 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                      "efficiency curve ([] = constant reflection_efficiency)"),
         "efficiency_values": Key("floats", [], "linear", 0.0, 1.0, "reflection efficiencies at "
                                  "efficiency_angles_deg"),
-        "load_cap_weight": Key("float", 0.0, "weight", 0.0, None, "most weight one surface may carry (0 = no cap)", none=0.0),
+        "load_cap_weight": Key("float", 0.0, "weight", 0.0, MAX_WEIGHT, "most weight one surface may carry (0 = no "
+                               "cap; above 1e9 is a typo)", none=0.0),
         "panels": Key("panels", None, doc="panel catalogue: [[surfaces.panels]] tables with size_id, width_m, "
                       "height_m, cost, install_cost", required=True),
     },
     "budget": {
-        "max_cost": Key("float", 0.0, "currency", 0.0, None, "spending limit (0 = no cost limit)", none=0.0),
-        "max_panels": Key("int", 0, "panels", 0, None, "panel count limit (0 = no count limit)", none=0),
+        "max_cost": Key("float", 0.0, "currency", 0.0, MAX_BUDGET, "spending limit (0 = no cost limit; above 1e12, a "
+                        "thousand panels at the largest unit cost, is a typo)", none=0.0),
+        "max_panels": Key("int", 0, "panels", 0, 1_000_000, "panel count limit (0 = no count limit; a city-wide plan "
+                          "holds thousands, so above a million is a typo)", none=0),
         "min_spacing_m": Key("float", 0.0, "m", 0.0, 100.0, "least distance between chosen spots on one wall"),
         "target_share": Key("float", 0.0, "share", 0.0, 1.0, "if > 0: find the cheapest plan covering this "
                             "share of the weight the surfaces can reach, instead of maximising coverage", none=0.0),
-        "sweep_budgets": Key("floats", [], "currency", 0.0, None, "budgets for the coverage-versus-budget curve "
-                             "([] = 0.25x to 2x of max_cost, see siting.stages.SWEEP_BUDGET_FACTORS)", none=[]),
+        "sweep_budgets": Key("floats", [], "currency", 0.0, MAX_BUDGET, "budgets for the coverage-versus-budget "
+                             "curve ([] = 0.25x to 2x of max_cost, see siting.stages.SWEEP_BUDGET_FACTORS; above "
+                             "1e12 is a typo)", none=[]),
         "currency": Key("str", "", doc="currency of every cost and budget, printed beside each cost in the outputs "
                         "(e.g. \"EUR\"; \"\" = \"cost units\")"),
     },
@@ -188,8 +218,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "threads": Key("int", 0, "threads", 0, 256, "solver threads (0 = solver default)", none=0),
     },
     "run": {
-        "tile_m": Key("float", 500.0, "m", 0.0, 100000.0, "tile size for checkpoints and parallel work "
-                      "(0 = one tile)", none=0.0),
+        "tile_m": Key("float", 500.0, "m", MIN_TILE_M, 100000.0, "tile size for checkpoints and parallel work (0 = "
+                      "one tile; at least 100 m: each tile also reads the buildings within radio.bs_range_m around "
+                      "it, so smaller tiles only multiply that work and the cache entries)", none=0.0),
     },
     "output": {
         "folder": Key("path", "out", doc="output folder (created)"),
@@ -235,14 +266,29 @@ def _non_finite(value: Any) -> bool:
     return any(isinstance(v, float) and not math.isfinite(v) for v in values)
 
 
+def _must_not_be_empty(key: Key) -> bool:
+    """A path, text or list key with no "none" value and a non-empty default (or required): '' or [] is a mistake
+    (an empty path would resolve to the current folder, an empty id names nothing, no format writes no layer)."""
+    return (key.type in ("str", "path", "list") and key.none is _NEVER
+            and (key.required or key.default not in ("", [])))
+
+
 def _check_value(where: str, key: Key, value: Any, problems: list[str]) -> None:
     if not _type_ok(key, value):
         unit = f" [{key.unit}]" if key.unit else ""
         allowed = "" if key.choices or (key.lo is None and key.hi is None) else (
             f" >= {key.lo:g}" if key.hi is None else f" <= {key.hi:g}" if key.lo is None else
-            f" in {key.lo:g} .. {key.hi:g}")
+            f" in {key.range_text()}")
         problems.append(f"{where}: expected {_TYPE_WORD[key.type]}{unit}{allowed}, got {value!r}"
                         + ("; infinity and nan are not allowed, give a plain number" if _non_finite(value) else ""))
+        return
+    if _must_not_be_empty(key) and not (value.strip() if isinstance(value, str) else value):
+        what = {"path": "path", "list": "list"}.get(key.type, "text")
+        fix = ("give the file's path (relative to the job file's folder)" if key.type == "path" and key.required
+               else f"give one, e.g. {toml_literal(key.default)}" if key.default else "give one")
+        problems.append(f"{where}: expected a non-empty {what} ({key.doc}), got {value!r}; {fix}")
+        return
+    if key.none_outside_range() and value == key.none:
         return
     values = value if key.type in ("floats", "list") else [value]
     for v in values:
@@ -334,6 +380,14 @@ def _check_bbox(bbox: Any, problems: list[str]) -> None:
         problems.append(f"area.bbox: {bbox} is not longitude/latitude in degrees; give WGS84 degrees")
 
 
+def _resolve(path: Path) -> str:
+    """The absolute path with links resolved; a link loop is kept as an absolute path (the file checks name it)."""
+    try:
+        return str(path.resolve())
+    except (RuntimeError, OSError):  # Python 3.11 raises RuntimeError on a symlink loop
+        return os.path.abspath(path)
+
+
 def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
     """Check a raw job dict against :data:`SCHEMA`; return the resolved job (defaults filled, paths absolute).
 
@@ -359,16 +413,31 @@ def validate(raw: Mapping, base_dir: Path, source: str = "job") -> dict:
     for section, keys in SCHEMA.items():
         for name, key in keys.items():
             if key.type == "path" and job[section][name]:
-                job[section][name] = str((base_dir / Path(job[section][name]).expanduser()).resolve())
+                job[section][name] = _resolve(base_dir / Path(job[section][name]).expanduser())
     return job
+
+
+def link_loop_problem(path: str | Path, what: str) -> str | None:
+    """One sentence when ``path`` is a symbolic link that never reaches a file (it points to itself, or links
+    point to each other in a circle); None otherwise.  (``Path.exists`` says False there, as for a missing file.)"""
+    p = Path(path)
+    try:
+        os.stat(p)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            return (f"{what} '{p}' is a symbolic link that points back to itself (a link loop); make the link point "
+                    "to the real file, or replace it with the file")
+    except ValueError:  # e.g. a NUL byte in the path: the other checks report it
+        return None
+    return None
 
 
 def _read_toml(path: str | Path) -> dict:
     from .inputs.files import UTF8_BOM, file_problem, utf8_problem
 
     path = Path(path)
-    problem = file_problem(path, "job file")
-    if problem and not path.exists():
+    problem = link_loop_problem(path, "job file") or file_problem(path, "job file")
+    if problem and not path.exists() and not path.is_symlink():
         problem = f"job file '{path}' not found; check the path (relative to {Path.cwd()})"
     problem = problem or utf8_problem(path, "job file")
     if problem:

@@ -20,7 +20,7 @@ from . import checks, radio
 from . import optimize as opt
 from .cache import digest
 from .district import District, load_district
-from .errors import SitingError, SitingWarning
+from .errors import JobError, SitingError, SitingWarning
 from .executor import NOTES, _collect, _halo, _submit_tiles, _tiles, merge_tile_notes
 from .gains import GainResult, RadioParams, best_direct, coverage_matrix, direct_links, make_options, surface_links
 from .job import Area, Candidates, Demand, Inputs, Job
@@ -171,6 +171,13 @@ def _facade_spots(district: District, c: Candidates, sizes: pd.DataFrame, notes:
             notes.append(f"{len(dropped)} given spot(s) farther than {c.snap_tolerance_m} m from any wall were "
                          f"dropped: {', '.join(map(str, dropped[:20]))}")
     sites = pd.concat(parts, ignore_index=True) if parts else empty("sites")
+    if not len(sites):  # nothing to plan with: refused here, before the gains stage and before anything is stored
+        sources = ((["the walls"] if c.generate else [])
+                   + (["the given spots (inputs.sites)"] if district.given_sites is not None else []))
+        fix = ("lower candidates.front_clear_m or candidates.party_gap_m, check the footprints" if c.generate
+               else "set candidates.generate = true")
+        raise JobError(f"candidates: no candidate facade spot is left from {' and '.join(sources) or 'any source'}; "
+                       f"{fix}, or move the given spots within candidates.snap_tolerance_m of a free wall", "job")
     sites["site_id"] = np.arange(len(sites), dtype=np.int64)
     return sites
 

@@ -145,6 +145,28 @@ def _row_problems(r: dict, line: int, known: set[int], sizes: set[str], fp: str 
     return out
 
 
+def _read_csv(path: Path) -> tuple[pd.DataFrame, str | None]:
+    """The results file as text cells, or a sentence saying why it is no survey list (not CSV, no site_id or
+    status column)."""
+    try:
+        raw = pd.read_csv(path, dtype=str, keep_default_na=False)
+    except (OSError, pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
+        return pd.DataFrame(), (f"inputs.survey_results '{path}': cannot read it as CSV ({exc}); give the survey "
+                                "list with the verdict columns filled in")
+    missing = [c for c in ("site_id", "status") if c not in raw.columns]
+    if missing:
+        return raw, (f"inputs.survey_results '{path}': missing column(s) {', '.join(missing)}; start from the "
+                     "survey list (survey.csv) the plan wrote and fill in its status column")
+    return raw, None
+
+
+def survey_file_problem(path: str | Path) -> str | None:
+    """Why ``path`` is no survey results file (not CSV, no ``site_id`` / ``status`` column), or None; the rows are
+    checked by :func:`read_verdicts` once the candidate spots are known.  Used by the job checks before any
+    layer is read (:func:`siting.preflight.check_job`)."""
+    return _read_csv(Path(path))[1]
+
+
 def read_verdicts(path: str | Path, sites: pd.DataFrame, sizes: pd.DataFrame, *,
                   fingerprint: str | None = None) -> Verdicts:
     """Read and check a survey results CSV (see the module docstring for its columns).
@@ -167,15 +189,9 @@ def read_verdicts(path: str | Path, sites: pd.DataFrame, sizes: pd.DataFrame, *,
         of another job, a bad status, a duplicate or contradictory row, a moved site without a position.
     """
     path = Path(path)
-    try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False)
-    except (OSError, pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
-        raise InputDataError(f"inputs.survey_results '{path}': cannot read it as CSV ({exc}); give the survey list "
-                             "with the verdict columns filled in") from None
-    missing = [c for c in ("site_id", "status") if c not in raw.columns]
-    if missing:
-        raise InputDataError(f"inputs.survey_results '{path}': missing column(s) {', '.join(missing)}; start from "
-                             "the survey list (survey.csv) the plan wrote and fill in its status column")
+    raw, problem = _read_csv(path)
+    if problem:
+        raise InputDataError(problem)
     notes = [] if FINGERPRINT_COLUMN in raw.columns else [
         f"inputs.survey_results '{path.name}' has no {FINGERPRINT_COLUMN} column: rows could not be checked "
         "against this job's candidate set"]
