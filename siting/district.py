@@ -21,17 +21,26 @@ Decisions (documented here and in the README)
   with a note.  Heights <= 0 m or > 1000 m, negative levels, and buildings left without a height when
   ``default_height_m=None`` are errors naming the ids.
 * CRS: the one named by the caller (must be projected, in metres), else the UTM zone of the data centroid
-  (mean of the footprints' bounding-box centres; ``pyproj.database.query_utm_crs_info``).  Every layer is
-  reprojected to it, with a note.
-* GeoJSON is longitude/latitude by RFC 7946; a GeoJSON whose coordinates leave |x| <= 180, |y| <= 90 is refused.
+  (median of the footprints' bounding-box centres, so one misplaced footprint does not move it;
+  ``pyproj.database.query_utm_crs_info``).  Every layer is reprojected to it, with a note.  The CRS must keep
+  lengths at every footprint within 0.1 % (:data:`siting.inputs.crs.MAX_SCALE_ERROR`): a named CRS that
+  distorts the data (Web Mercator, a UTM zone far away) is refused with the local UTM zone as the fix (not
+  replaced: the job named it), and footprints where the CRS distorts (far from the others) are refused by name.
+* GeoJSON is longitude/latitude by RFC 7946; a GeoJSON whose coordinates leave |x| <= 180, |y| <= 90 is refused
+  (longitudes just past 180 as crossing the antimeridian).  Before GDAL reads a GeoJSON file, every feature is
+  checked against RFC 7946 (:mod:`siting.inputs.geojson`): a feature GDAL would skip ("type" missing or not
+  "Feature") or misread (coordinates that are strings, null, NaN, one number, nested wrongly, an unknown
+  geometry type, an unclosed ring) is refused by index and id, and a JSON boolean given for a number is refused
+  (GDAL reads it as 1).
 * Other layers without a CRS: taken to be in the caller's CRS if one is named, else in EPSG:4326 if their
   coordinates fit longitude/latitude (both with a note), else refused.
 * Geometry: invalid polygons are repaired with ``shapely.make_valid`` keeping the polygonal parts (note with
-  the ids); holes are kept (courtyards are real); multipolygons are exploded into parts sharing the building
-  id (``part`` column, 0-based); parts under 1 m2 are dropped with a count.
-* Non-polygon building features (points, lines): if the layer has no polygon at all it is refused (wrong
-  layer); if polygons and non-polygons are mixed (OSM building nodes, stray lines) the non-polygons are
-  dropped with a note naming their ids and types.  Features with no geometry are dropped with a note.
+  the ids), except a polygon with an interior ring outside its exterior ring (RFC 7946 section 3.1.6: holes lie
+  inside), which is refused by building and ring: ``make_valid`` would make that ring a second part of the
+  building wherever it lies; holes are kept (courtyards are real); multipolygons are exploded into parts sharing
+  the building id (``part`` column, 0-based); parts under 1 m2 are dropped with a count.
+* Non-polygon building features (points, lines, collections holding them) and features without geometry are
+  refused by index and id (the README promises exit code 2 for non-polygon buildings): nothing is dropped.
 * Duplicate building ids are an error (the parts of one multipolygon are not duplicates).
 * An area of interest (lon/lat bbox and/or a polygon file; both given: their intersection) keeps the whole
   buildings that intersect it, and the given sites and users inside it.  Base stations are all kept: a
@@ -55,6 +64,7 @@ from .inputs.common import _listing
 from .inputs.crs import (
     _assign_crs,
     _bbox_polygon,
+    _check_scale,
     _crs_name,
     _named_crs,
     _project,
@@ -66,9 +76,11 @@ from .inputs.layers import (
     MIN_PART_AREA_M2,
     _area_from_file,
     _base_stations,
+    _building_ids,
     _buildings,
     _check_bs_not_indoors,
     _clip_points,
+    _footprint_geometries,
     _given_sites,
     _given_users,
     _inside_buildings,
@@ -144,14 +156,16 @@ def load_district(
     buildings_path : str or Path
         Building footprints (polygons), any OGR format, GeoParquet, or an OSM ``.osm.pbf`` extract.
     base_stations_path : str or Path
-        Point layer with ``bs_id``, ``z_m`` [m above ground], ``tx_power_dbm`` (required) and
-        ``max_gain_dbi`` (0), ``azimuth_deg`` (0), ``downtilt_deg`` (0), ``pattern`` ('omni').
+        Point layer with ``bs_id``, ``z_m`` [m above ground], ``tx_power_dbm``, ``max_gain_dbi`` and ``pattern``
+        ('sector' or 'omni'), all required; ``azimuth_deg`` and ``downtilt_deg`` required for sector stations
+        (not used for omni ones).  The README documents no default, so none is taken.
     sites_path, users_path : str or Path, optional
         Given facade spots / demand points (point layers).
     buildings_layer : str, optional
         Layer of a multi-layer buildings file.
     building_id_column : str
-        Id column; when absent, ``id``/``osm_id``/``@id`` or the feature number is used, with a note.
+        Id column; when absent, ``id``/``osm_id``/``@id`` or the feature number is used, with a note.  A null or
+        empty id is refused.
     height_column : str, optional
         Column with the height [m], tried before ``height`` and ``building:levels``.
     storey_height_m : float
@@ -179,19 +193,23 @@ def load_district(
     named = _named_crs(crs) if crs is not None else None
 
     bpath = Path(buildings_path)
-    raw_b = read_layer(bpath, layer=buildings_layer, role="buildings", bbox_lonlat=area_bbox_lonlat)
+    raw_b = read_layer(bpath, layer=buildings_layer, role="buildings", bbox_lonlat=area_bbox_lonlat,
+                       id_keys=tuple(dict.fromkeys((building_id_column, "id", "osm_id", "@id"))))
     _hash_inputs(bpath, hashes)
+    ids = _building_ids(raw_b, bpath, building_id_column, notes)
+    _footprint_geometries(raw_b, bpath, ids)  # no geometry, points, lines: refused before any CRS work
     raw_b = _assign_crs(raw_b, bpath, "buildings", named, notes)
 
     if named is not None:
         target, crs_rule = named, "named in job"
     else:
         target, crs_rule = _utm_from_centroid(raw_b), "local UTM zone from data centroid"
+    _check_scale(raw_b, target, named is not None, bpath, ids)
     if not pyproj.CRS.from_user_input(raw_b.crs).equals(target):
         notes.append(f"buildings file '{bpath.name}' reprojected from {_crs_name(pyproj.CRS.from_user_input(raw_b.crs))} to {_crs_name(target)}.")
 
     buildings = _buildings(
-        raw_b, path=bpath, crs=target, building_id_column=building_id_column, height_column=height_column,
+        raw_b, path=bpath, crs=target, ids=ids, height_column=height_column,
         storey_height_m=storey_height_m, default_height_m=default_height_m, notes=notes,
     )
 
@@ -231,7 +249,8 @@ def load_district(
 
     # base stations
     spath = Path(base_stations_path)
-    raw_s = _assign_crs(read_layer(spath, role="base_stations"), spath, "base_stations", named, notes)
+    raw_s = _assign_crs(read_layer(spath, role="base_stations", id_keys=("bs_id",)), spath, "base_stations", named,
+                        notes)
     _hash_inputs(spath, hashes)
     bs = _base_stations(_project(raw_s, target, spath, "base_stations", notes), spath)
     _check_bs_not_indoors(bs, buildings, spath)
@@ -240,13 +259,13 @@ def load_district(
     given_sites = given_users = None
     if sites_path is not None:
         p = Path(sites_path)
-        raw = _assign_crs(read_layer(p, role="sites"), p, "sites", named, notes)
+        raw = _assign_crs(read_layer(p, role="sites", id_keys=("site_id", "id")), p, "sites", named, notes)
         _hash_inputs(p, hashes)
         given_sites = _given_sites(_project(raw, target, p, "sites", notes), p)
         given_sites = _clip_points(given_sites, area, "given site(s)", notes)
     if users_path is not None:
         p = Path(users_path)
-        raw = _assign_crs(read_layer(p, role="users"), p, "users", named, notes)
+        raw = _assign_crs(read_layer(p, role="users", id_keys=("user_id", "id")), p, "users", named, notes)
         _hash_inputs(p, hashes)
         given_users = _given_users(_project(raw, target, p, "users", notes), p, user_weight_column, notes)
         given_users = _clip_points(given_users, area, "given user(s)", notes)

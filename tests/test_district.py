@@ -65,7 +65,7 @@ def _write_fc(path: Path, features: list[tuple[object, dict]], *, lonlat: bool =
 
 
 def _bs_file(tmp_path: Path, x=-50.0, y=-50.0, z=8.0, name="bs.geojson", **extra) -> Path:
-    props = {"bs_id": "bs1", "z_m": z, "tx_power_dbm": 30.0, **extra}
+    props = {"bs_id": "bs1", "z_m": z, "tx_power_dbm": 30.0, "max_gain_dbi": 0.0, "pattern": "omni", **extra}
     return _write_fc(tmp_path / name, [(Point(x, y), props)])
 
 
@@ -96,7 +96,7 @@ def bubenec(tmp_path_factory):
         free = Point(free.x + 1e-4, free.y)
     bs = tmp / "bs.geojson"
     bs.write_text(json.dumps({"type": "FeatureCollection", "features": [{"type": "Feature", "geometry": mapping(free),
-                              "properties": {"bs_id": "x", "z_m": 10, "tx_power_dbm": 30}}]}))
+                              "properties": {"bs_id": "x", "z_m": 10, "tx_power_dbm": 30, "max_gain_dbi": 0, "pattern": "omni"}}]}))
     with pytest.warns(UserWarning, match="default height"):
         d = load_district(buildings_path=path, buildings_layer="buildings", building_id_column="uID",
                           base_stations_path=bs)
@@ -138,7 +138,7 @@ def osm_pbf(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("osm")
     bs = tmp / "bs.geojson"
     bs.write_text(json.dumps({"type": "FeatureCollection", "features": [{"type": "Feature", "geometry": mapping(
-        Point(26.90, 60.50)), "properties": {"bs_id": "far", "z_m": 20, "tx_power_dbm": 40}}]}))
+        Point(26.90, 60.50)), "properties": {"bs_id": "far", "z_m": 20, "tx_power_dbm": 40, "max_gain_dbi": 0, "pattern": "omni"}}]}))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)
         d = load_district(buildings_path=path, base_stations_path=bs)
@@ -312,16 +312,16 @@ def test_multilayer_file_needs_layer_name(tmp_path):
 
 def test_all_points_layer_refused(tmp_path):
     p = _write_fc(tmp_path / "b.geojson", [(Point(0, 0), {"id": "n1"}), (Point(5, 5), {"id": "n2"})])
-    with pytest.raises(InputDataError, match=r"no polygons.*'n1 \(Point\)'"):
+    with pytest.raises(InputDataError, match=r"no polygons.*id 'n1'\) \(Point\)"):
         _load(tmp_path, p)
 
 
-def test_mixed_non_polygons_dropped_with_note(tmp_path):
+def test_mixed_non_polygons_refused_by_name(tmp_path):
+    """README, Inputs: non-polygon buildings are refused (exit code 2), not dropped."""
     feats = _two_boxes() + [(Point(100, 100), {"id": "node7"}), (shapely.LineString([(0, 50), (9, 50)]), {"id": "l8"})]
-    d = _load(tmp_path, _write_fc(tmp_path / "b.geojson", feats))
-    assert list(d.buildings["building_id"]) == ["a", "b"]
-    note = next(n for n in d.notes if "non-polygon" in n)
-    assert "node7 (Point)" in note and "l8 (LineString)" in note
+    with pytest.raises(InputDataError, match=r"2 feature\(s\) that are not polygons: feature 2 \(id 'node7'\) "
+                                             r"\(Point\); feature 3 \(id 'l8'\) \(LineString\)"):
+        _load(tmp_path, _write_fc(tmp_path / "b.geojson", feats))
 
 
 def test_self_intersecting_polygon_repaired(tmp_path):
@@ -417,22 +417,23 @@ def test_missing_height_column_named(tmp_path):
 # -------------------------------------------------------------------------------------- base stations
 
 
-def test_base_station_contract_and_defaults(tmp_path):
+def test_base_station_contract(tmp_path):
     bs = _write_fc(tmp_path / "bs.geojson", [
         (Point(-20, 0), {"bs_id": 1, "z_m": 6, "tx_power_dbm": 33, "max_gain_dbi": 22, "azimuth_deg": -90,
-                         "pattern": "Sector"}),
-        (Point(-40, 0), {"bs_id": 2, "z_m": 9, "tx_power_dbm": 30}),
+                         "downtilt_deg": 4, "pattern": "Sector"}),
+        (Point(-40, 0), {"bs_id": 2, "z_m": 9, "tx_power_dbm": 30, "max_gain_dbi": 5, "pattern": "omni"}),
     ])
     d = _load(tmp_path, _write_fc(tmp_path / "b.geojson", _two_boxes()), bs)
     s = tables.check(d.base_stations, "base_stations")
     assert list(s.bs_id) == ["1", "2"] and list(s.pattern) == ["sector", "omni"]
     np.testing.assert_allclose(s.azimuth_deg, [270.0, 0.0])  # clockwise from north, wrapped into [0, 360)
-    np.testing.assert_allclose(s.max_gain_dbi, [22.0, 0.0])
+    np.testing.assert_allclose(s.downtilt_deg, [4.0, 0.0])  # an omni antenna has no aim: 0, unused
+    np.testing.assert_allclose(s.max_gain_dbi, [22.0, 5.0])
 
 
 @pytest.mark.parametrize("props,match", [
     ({"bs_id": "x", "tx_power_dbm": 30}, "no property 'z_m'"),
-    ({"bs_id": "x", "z_m": 8, "tx_power_dbm": 30, "pattern": "yagi"}, "'sector' or 'omni'"),
+    ({"bs_id": "x", "z_m": 8, "tx_power_dbm": 30, "max_gain_dbi": 0, "pattern": "yagi"}, "'sector' or 'omni'"),
     ({"bs_id": "x", "z_m": "tall", "tx_power_dbm": 30}, "not a finite number"),
     ({"z_m": 8, "tx_power_dbm": 30}, "no property 'bs_id'"),
 ])
@@ -590,7 +591,7 @@ def test_osm_area_bbox_passed_to_reader(tmp_path):
     raw = pyrosm.OSM(str(path), bounding_box=bbox).get_buildings()  # pyrosm's own clip as the reference
     bs = tmp_path / "bs.geojson"
     bs.write_text(json.dumps({"type": "FeatureCollection", "features": [{"type": "Feature", "geometry": mapping(
-        Point(26.90, 60.50)), "properties": {"bs_id": "far", "z_m": 20, "tx_power_dbm": 40}}]}))
+        Point(26.90, 60.50)), "properties": {"bs_id": "far", "z_m": 20, "tx_power_dbm": 40, "max_gain_dbi": 0, "pattern": "omni"}}]}))
     d = _load(tmp_path, path, bs, area_bbox_lonlat=bbox)
     area_ll = shapely.box(*bbox)
     hits = raw.intersects(area_ll) & raw.is_valid  # whole buildings that touch the box are kept
@@ -618,7 +619,8 @@ def test_layer_without_crs(tmp_path):
     np.testing.assert_allclose(d.buildings.area, [100.0], rtol=1e-3)
 
 
-def test_feature_without_geometry_dropped_with_note(tmp_path):
-    d = _load(tmp_path, _write_fc(tmp_path / "b.geojson", _two_boxes() + [(None, {"id": "ghost"})]))
-    assert sorted(d.buildings.building_id) == ["a", "b"]
-    assert any("without geometry" in n and "ghost" in n for n in d.notes)
+def test_feature_without_geometry_refused(tmp_path):
+    """A building feature with "geometry": null (RFC 7946 section 3.2 allows it for an unlocated feature) has no
+    footprint to plan with: refused by name, not dropped."""
+    with pytest.raises(InputDataError, match=r"have no geometry \(null or empty\): feature 2 \(id 'ghost'\)"):
+        _load(tmp_path, _write_fc(tmp_path / "b.geojson", _two_boxes() + [(None, {"id": "ghost"})]))

@@ -1,8 +1,15 @@
 """Coordinate reference systems: the job's projected CRS, the local UTM zone, reprojection, lon/lat checks.
 
-The CRS is the one named by the job (projected, metres), else the UTM zone of the data centroid (mean of the
-footprints' bounding-box centres, ``pyproj.database.query_utm_crs_info``).  Layers without a CRS are taken to
+The CRS is the one named by the job (projected, metres), else the UTM zone of the data centroid (median of the
+footprints' bounding-box centres, robust to a misplaced footprint; ``pyproj.database.query_utm_crs_info``).  Layers without a CRS are taken to
 be in the named CRS, else in EPSG:4326 when their coordinates fit longitude/latitude, else refused.
+
+Every length of the pipeline (link distances, grid spacing, wall lengths, areas) is measured in that CRS, so it
+must not distort lengths at the data: :func:`_check_scale` measures its scale error at every footprint (a 10 m
+geodesic step east and north, projected) and refuses more than :data:`MAX_SCALE_ERROR` (0.1 %, about the
+largest error of a UTM zone inside its own 6 degrees).  A named CRS that distorts the data (Web Mercator:
+1/cos(latitude), 1.46 at 47 degrees; a UTM zone far away) is a job error with the fix; footprints where the
+local UTM zone distorts lie far from the others (a shifted or mistyped feature) and are named.
 """
 
 from __future__ import annotations
@@ -18,8 +25,13 @@ from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
 
 from ..errors import InputDataError, JobError
-from .common import _listing
+from .common import _feature_names, _listing
 from .vector import _is_geojson
+
+#: Largest relative length error of the job's CRS at a footprint: 0.1 %.  A UTM zone stays within it over its own
+#: 6 degrees of longitude (scale 0.9996 on the central meridian, about 1.0010 at the zone edge on the equator;
+#: Snyder, Map Projections - A Working Manual, USGS PP 1395, 1987, p. 57-58).
+MAX_SCALE_ERROR = 1e-3
 
 
 def _feature_bounds(gdf: gpd.GeoDataFrame) -> tuple[np.ndarray, np.ndarray]:
@@ -41,6 +53,13 @@ def _check_geojson_lonlat(gdf: gpd.GeoDataFrame, path: Path, role: str) -> None:
         bad = ok[beyond]
         xmax = np.nanmax(np.abs(b[:, [0, 2]]))
         ymax = np.nanmax(np.abs(b[:, [1, 3]]))
+        if xmax <= 360.0 and ymax <= 90.0:  # degrees, but longitudes past the antimeridian
+            raise InputDataError(
+                f"{role} file '{path}': features {_listing(bad.tolist())} have longitudes beyond +/-180 degrees "
+                f"(up to {xmax:.6g}): they cross the antimeridian. RFC 7946 (sections 3.1.9 and 4) wants "
+                "longitudes in [-180, 180]: write a longitude L > 180 as L - 360 (and L < -180 as L + 360), or "
+                "give the layer in a projected CRS as GeoPackage"
+            )
         raise InputDataError(
             f"{role} file '{path}' is GeoJSON, whose coordinates must be longitude/latitude in degrees "
             f"(RFC 7946), but features {_listing(bad.tolist())} reach |x| = {xmax:.6g}, |y| = {ymax:.6g}: "
@@ -148,14 +167,25 @@ def _named_crs(crs) -> pyproj.CRS:
     return out
 
 
-def _utm_from_centroid(gdf: gpd.GeoDataFrame) -> pyproj.CRS:
-    geoms = gdf.geometry.values
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-    # centre of each feature's bounding box: robust to invalid rings (a bow-tie's centroid is undefined)
-    b = shapely.bounds(geoms[ok])
+def _centres_lonlat(gdf: gpd.GeoDataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(rows with a geometry, longitude, latitude [deg]) of the centre of each feature's bounding box (robust to
+    invalid rings: a bow-tie's centroid is undefined)."""
+    ok, b = _feature_bounds(gdf)
     to_ll = pyproj.Transformer.from_crs(gdf.crs, 4326, always_xy=True)
-    lon, lat = to_ll.transform((b[:, 0] + b[:, 2]) / 2, (b[:, 1] + b[:, 3]) / 2)
-    lon0, lat0 = float(np.nanmean(lon)), float(np.nanmean(lat))
+    with np.errstate(invalid="ignore"):
+        lon, lat = to_ll.transform((b[:, 0] + b[:, 2]) / 2, (b[:, 1] + b[:, 3]) / 2)
+    return ok, np.asarray(lon, float), np.asarray(lat, float)
+
+
+def _utm_from_centroid(gdf: gpd.GeoDataFrame) -> pyproj.CRS:
+    _, lon, lat = _centres_lonlat(gdf)
+    fin = np.isfinite(lon) & np.isfinite(lat)
+    if not fin.any():
+        raise InputDataError("no feature of the buildings layer has a usable location, so no UTM zone can be "
+                             "chosen; check the layer, or name a projected CRS in the job (inputs.crs)")
+    # the median centre: one misplaced footprint (or a few) does not move the zone, and is then named by
+    # _check_scale; for a compact city it is the mean centre's zone
+    lon0, lat0 = float(np.median(lon[fin])), float(np.median(lat[fin]))
     infos = query_utm_crs_info(datum_name="WGS 84", area_of_interest=AreaOfInterest(lon0, lat0, lon0, lat0))
     if not infos:
         raise InputDataError(
@@ -164,6 +194,71 @@ def _utm_from_centroid(gdf: gpd.GeoDataFrame) -> pyproj.CRS:
     # prefer the plain 'WGS 84 / UTM zone NNx' entries (EPSG 326xx/327xx)
     infos = sorted(infos, key=lambda i: (not i.name.startswith("WGS 84 / UTM zone"), i.code))
     return pyproj.CRS.from_authority(infos[0].auth_name, infos[0].code)
+
+
+def _scale_error(crs: pyproj.CRS, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Relative length error |k - 1| of ``crs`` at each longitude/latitude [deg]: the larger of a 10 m geodesic
+    step east and north, projected (an equivalent of ``pyproj.Proj.get_factors`` for any CRS pyproj can
+    transform to, conformal or not); infinity where the CRS cannot project the point."""
+    step_m = 10.0
+    geod = pyproj.Geod(ellps="WGS84")
+    to = pyproj.Transformer.from_crs(4326, crs, always_xy=True)
+    err = np.zeros(len(lon))
+    with np.errstate(invalid="ignore", over="ignore"):
+        x0, y0 = to.transform(lon, lat)
+        for az in (90.0, 0.0):
+            lon1, lat1, _ = geod.fwd(lon, lat, np.full(len(lon), az), np.full(len(lon), step_m))
+            x1, y1 = to.transform(lon1, lat1)
+            err = np.maximum(err, np.abs(np.hypot(np.subtract(x1, x0), np.subtract(y1, y0)) / step_m - 1.0))
+    return np.where(np.isfinite(err), err, np.inf)
+
+
+def _check_scale(gdf: gpd.GeoDataFrame, crs: pyproj.CRS, named: bool, path: Path, ids: np.ndarray) -> None:
+    """Refuse a job CRS that distorts lengths at the footprints by more than :data:`MAX_SCALE_ERROR`.
+
+    A named CRS that distorts at most footprints is a job error: say by how much and name the local UTM zone.
+    Otherwise the footprints where it distorts lie far from the rest (a shifted or mistyped feature, or a layer
+    wider than one job): they are named with their distance from the others' median centre.
+    """
+    ok, lon, lat = _centres_lonlat(gdf)
+    err = _scale_error(crs, lon, lat)
+    bad = err > MAX_SCALE_ERROR
+    if not bad.any():
+        return
+    if named and bad.mean() > 0.5:
+        fin = np.isfinite(lon) & np.isfinite(lat)
+        lon0, lat0 = float(np.median(lon[fin])), float(np.median(lat[fin]))
+        med = float(np.median(err))
+        by = "cannot project them" if not np.isfinite(med) else f"scales lengths by {1 + med:.4g} ({med:.2%} off)"
+        try:
+            utm = f"the local UTM zone, {_crs_name(_utm_from_centroid(gdf))}"
+        except InputDataError:
+            utm = "the local UTM zone"
+        raise JobError(
+            f"crs: {_crs_name(crs)} {by} at the data (around lon {lon0:.4f}, lat {lat0:.4f}); every distance, "
+            f"area and grid spacing of the plan would be off by as much (more than {MAX_SCALE_ERROR:.1%} is "
+            f"refused). Leave inputs.crs unset to use {utm}, or name a projected CRS made for this area (its "
+            "UTM zone or national grid); the layers themselves may stay in any CRS",
+            "crs",
+        )
+    geod = pyproj.Geod(ellps="WGS84")
+    good = ~bad & np.isfinite(lon) & np.isfinite(lat)
+    ref = good if good.any() else np.isfinite(lon) & np.isfinite(lat)
+    lon0, lat0 = float(np.median(lon[ref])), float(np.median(lat[ref]))
+    rows = np.flatnonzero(bad)
+    with np.errstate(invalid="ignore"):
+        _, _, dist = geod.inv(np.full(len(rows), lon0), np.full(len(rows), lat0), lon[rows], lat[rows])
+    described = [f"{_feature_names([ok[r]], ids)} at lon {lon[r]:.4f}, lat {lat[r]:.4f}, {d / 1000:,.0f} km from "
+                 f"the others ({'cannot be projected' if not np.isfinite(e) else f'{e:.2%} off'})"
+                 for r, d, e in zip(rows, np.asarray(dist), err[rows])]
+    more = f"; and {len(rows) - 5} more" if len(rows) > 5 else ""
+    raise InputDataError(
+        f"buildings file '{path}': {len(rows)} footprint(s) lie where the job's CRS {_crs_name(crs)} "
+        f"({'named in job' if named else 'the local UTM zone of the data'}) distorts lengths by more than "
+        f"{MAX_SCALE_ERROR:.1%}, far from the other footprints: {'; '.join(described[:5])}{more}. Their coordinates are "
+        "probably wrong (a shifted or mistyped feature, longitude and latitude swapped): correct or remove them; "
+        "if the layer really covers that much ground, split it into jobs of one city each"
+    )
 
 
 @lru_cache(maxsize=32)

@@ -8,6 +8,7 @@ leading UTF-8 byte-order mark is accepted and skipped (common practice: some edi
 from __future__ import annotations
 
 import codecs
+import errno
 import os
 from pathlib import Path
 
@@ -29,6 +30,9 @@ def file_problem(path: str | os.PathLike, what: str) -> str | None:
     what : how to name it in the message, e.g. ``"buildings file"`` or ``"job file"``.
     """
     p = Path(path)
+    if p.is_symlink() and _link_loop(p):
+        return (f"{what} '{p}' is a symbolic link that leads back to itself (a link loop); point the link at the "
+                "real file (ls -l shows where it points) or give the file's own path")
     if not p.exists():
         hint = "; the path is a broken link" if p.is_symlink() else ""
         return (f"{what} '{p}' not found{hint}; check the path (relative paths in a job file resolve against the "
@@ -50,6 +54,17 @@ def file_problem(path: str | os.PathLike, what: str) -> str | None:
     if p.stat().st_size == 0:
         return (f"{what} '{p}' is empty (0 bytes); the export or copy did not finish: write the file again")
     return None
+
+
+def _link_loop(p: Path) -> bool:
+    """True when following the links of ``p`` never ends (ELOOP)."""
+    try:
+        p.resolve(strict=True)
+    except RuntimeError:  # Python < 3.13: "Symlink loop from ..."
+        return True
+    except OSError as exc:
+        return exc.errno == errno.ELOOP
+    return False
 
 
 def check_file(path: str | os.PathLike, what: str) -> None:

@@ -15,7 +15,7 @@ import pyproj
 import shapely
 
 from ..errors import InputDataError
-from .common import _MAX_LISTED, _listing
+from .common import _MAX_LISTED, _feature_names, _listing
 from .heights import _resolve_heights
 
 MIN_PART_AREA_M2 = 1.0
@@ -42,7 +42,22 @@ def _ids_to_str(s: pd.Series) -> np.ndarray:
             s = s.astype("Int64")
     out = s.astype(str).to_numpy(dtype=object, copy=True)
     out[isna] = None
+    blank = np.array([v is not None and not v.strip() for v in out], dtype=bool)  # "" or "  " is no id
+    out[blank] = None
     return out
+
+
+def _more(n: int) -> str:
+    return f" and {n - _MAX_LISTED} more" if n > _MAX_LISTED else ""
+
+
+def _booleans(s: pd.Series) -> np.ndarray:
+    """Where a column holds booleans (true/false), which are not numbers."""
+    if pd.api.types.is_bool_dtype(s):
+        return s.notna().to_numpy()
+    if s.dtype == object:
+        return s.map(lambda v: isinstance(v, (bool, np.bool_))).to_numpy(bool)
+    return np.zeros(len(s), bool)
 
 
 def _text_column(df: pd.DataFrame, col: str) -> pd.Series:
@@ -99,8 +114,10 @@ def _building_ids(df: gpd.GeoDataFrame, path: Path, building_id_column: str, not
         none = np.array([i is None for i in ids])
         if none.any():
             raise InputDataError(
-                f"buildings file '{path}': features {_listing(np.flatnonzero(none).tolist())} (0-based) have no "
-                f"value in the id column '{id_col}'; fill the ids, or name another building_id_column"
+                f"buildings file '{path}': features {', '.join(str(i) for i in np.flatnonzero(none)[:_MAX_LISTED])}"
+                f"{_more(int(none.sum()))} (0-based) have no "
+                f"value in the id column '{id_col}' (null or an empty string); fill the ids, or name another "
+                "building_id_column"
             )
     dup = pd.Series(ids).duplicated(keep=False).to_numpy()
     if dup.any():
@@ -112,53 +129,93 @@ def _building_ids(df: gpd.GeoDataFrame, path: Path, building_id_column: str, not
     return ids
 
 
+_TYPE_NAMES = dict(enumerate(["Point", "LineString", "LinearRing", "Polygon", "MultiPoint", "MultiLineString",
+                               "MultiPolygon", "GeometryCollection"]))
+
+
+def _footprint_geometries(raw: gpd.GeoDataFrame, path: Path, ids: np.ndarray) -> None:
+    """Refuse building features without a footprint: no geometry, an empty one, or points and lines.
+
+    The README promises that non-polygon buildings are refused (exit code 2), so nothing is dropped: a feature
+    without geometry, a Point or LineString (an OSM building node, a traced outline left open) and a
+    GeometryCollection holding anything but polygons are named with the fix.
+    """
+    geoms = raw.geometry.values
+    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    if missing.all():
+        raise InputDataError(
+            f"buildings file '{path}': none of its {len(geoms)} features has a geometry (all null or empty); "
+            "check the export (the geometry column may have been dropped) and give the footprints as polygons"
+        )
+    if missing.any():
+        raise InputDataError(
+            f"buildings file '{path}': {int(missing.sum())} feature(s) have no geometry (null or empty): "
+            f"{_feature_names(np.flatnonzero(missing), ids)}; every building needs its footprint polygon: give "
+            "it, or remove these features"
+        )
+    tid = shapely.get_type_id(geoms)
+    nonpoly = ~np.isin(tid, (3, 6))
+    coll = np.flatnonzero(tid == 7)
+    if len(coll):
+        cparts, cidx = shapely.get_parts(geoms[coll], return_index=True)
+        nonpoly[coll] = False
+        nonpoly[coll[np.unique(cidx[~np.isin(shapely.get_type_id(cparts), (3, 6))])]] = True
+    if not nonpoly.any():
+        return
+    bad = np.flatnonzero(nonpoly)
+    described = [f"{_feature_names([i], ids)} ({_TYPE_NAMES.get(int(tid[i]), '?')})" for i in bad]
+    what = "holds no polygons" if nonpoly.all() else f"has {len(bad)} feature(s) that are not polygons"
+    raise InputDataError(
+        f"buildings file '{path}' {what}: {'; '.join(described[:_MAX_LISTED])}{_more(len(described))}; footprints must be Polygons or MultiPolygons "
+        "(for OSM data, the building areas, not nodes or open ways): correct these features or remove them "
+        "(e.g. ogr2ogr -where \"OGR_GEOMETRY IN ('POLYGON', 'MULTIPOLYGON')\" out.geojson in.geojson)"
+    )
+
+
+def _stray_holes(geoms: np.ndarray, ids: np.ndarray, path: Path) -> None:
+    """Refuse polygons with an interior ring outside their exterior ring, naming the building and the ring.
+
+    RFC 7946 section 3.1.6 (and the OGC simple-feature model): the interior rings of a polygon are holes inside
+    its exterior ring.  A ring outside cannot be a courtyard; ``make_valid`` would turn it into a second part of
+    the building wherever it lies (kilometres away), so the intent is unknown: a misplaced courtyard, or another
+    footprint written as a hole.  ``geoms`` are the invalid footprints (projected, metres).
+    """
+    parts, src = _polygonal_parts(geoms)
+    found = []
+    for poly, i in zip(parts, src):
+        n = shapely.get_num_interior_rings(poly)
+        if not n:
+            continue
+        shell = shapely.make_valid(shapely.Polygon(poly.exterior))
+        for k in range(n):
+            hole = shapely.make_valid(shapely.Polygon(poly.interiors[k]))
+            if not shapely.relate_pattern(shell, hole, "T********"):  # the interiors do not meet
+                found.append(f"building {ids[i]!r} interior ring {k + 1} ({shapely.distance(shell, hole):,.0f} m "
+                             "outside its exterior ring)")
+    if found:
+        raise InputDataError(
+            f"buildings file '{path}': {len(found)} hole(s) lie outside their footprint: "
+            f"{'; '.join(found[:_MAX_LISTED])}{_more(len(found))}. The "
+            "interior rings of a polygon are holes inside its exterior ring (RFC 7946 section 3.1.6); a ring "
+            "outside is no courtyard. If it is a courtyard, correct its coordinates; if it is another footprint, "
+            "make the feature a MultiPolygon or give it a feature of its own"
+        )
+
+
 def _buildings(
     raw: gpd.GeoDataFrame,
     *,
     path: Path,
     crs: pyproj.CRS,
-    building_id_column: str,
+    ids: np.ndarray,
     height_column: str | None,
     storey_height_m: float,
     default_height_m: float | None,
     notes: list[str],
 ) -> gpd.GeoDataFrame:
+    """The ``buildings`` table from a layer whose ids (:func:`_building_ids`) and geometry kinds
+    (:func:`_footprint_geometries`) are checked already."""
     df = raw
-    ids = _building_ids(df, path, building_id_column, notes)
-    # geometry types
-    geoms = df.geometry.values
-    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
-    if missing.all():
-        raise InputDataError(f"buildings file '{path}': no feature has a geometry; check the export")
-    if missing.any():
-        notes.append(f"{int(missing.sum())} building feature(s) without geometry dropped: ids {_listing(ids[missing])}.")
-    tid = np.where(missing, -1, shapely.get_type_id(np.where(missing, None, geoms)))
-    has_poly = np.isin(tid, (3, 6))
-    coll = tid == 7
-    if coll.any():
-        cparts, cidx = shapely.get_parts(geoms[coll], return_index=True)
-        with_poly = np.zeros(int(coll.sum()), bool)
-        with_poly[cidx[np.isin(shapely.get_type_id(cparts), (3, 6))]] = True
-        has_poly[np.flatnonzero(coll)[with_poly]] = True
-    nonpoly = ~missing & ~has_poly
-    if nonpoly.any():
-        types = shapely.get_type_id(geoms[nonpoly])
-        type_names = pd.Series(types).map(dict(enumerate(
-            ["Point", "LineString", "LinearRing", "Polygon", "MultiPoint", "MultiLineString", "MultiPolygon",
-             "GeometryCollection"]))).to_numpy()
-        described = [f"{i} ({t})" for i, t in zip(ids[nonpoly], type_names)]
-        if not has_poly.any():
-            raise InputDataError(
-                f"buildings file '{path}' holds no polygons: features {_listing(described)} are not footprints; "
-                "give a polygon layer of building footprints (for OSM data, the building areas, not nodes)"
-            )
-        notes.append(
-            f"{int(nonpoly.sum())} non-polygon building feature(s) dropped (footprints must be polygons): "
-            f"{_listing(described)}."
-        )
-    keep = has_poly
-    df = df.loc[keep].reset_index(drop=True)
-    ids = ids[keep]
     # heights, names, addresses (per input feature)
     height, rule = _resolve_heights(
         df, ids, path=path, height_column=height_column, storey_height_m=storey_height_m,
@@ -172,6 +229,7 @@ def _buildings(
     geoms = np.array(gs.values, dtype=object)
     invalid = ~shapely.is_valid(geoms)
     if invalid.any():
+        _stray_holes(geoms[invalid], ids[invalid], path)
         geoms[invalid] = shapely.make_valid(geoms[invalid])
     parts, src_idx = _polygonal_parts(geoms)
     if invalid.any():
@@ -270,6 +328,13 @@ def _numeric(gdf, col, path, role, labels, *, required: bool, default: float | N
             )
         return np.full(len(gdf), np.nan if default is None else float(default))
     raw = gdf[col]
+    isbool = _booleans(raw)
+    if isbool.any():
+        raise InputDataError(
+            f"{role} file '{path}': property '{col}' is {str(raw[isbool].iloc[0]).lower()} (a boolean, not a "
+            f"number) for {_names(labels[isbool])}; give a plain number"
+            + (f" ({_valid_text(kind)})" if kind else "")
+        )
     val = pd.to_numeric(raw, errors="coerce").to_numpy(float, copy=True)
     absent = raw.isna().to_numpy()
     unreadable = ~absent & ~np.isfinite(val)
@@ -308,7 +373,11 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
     ids = _ids_to_str(gdf["bs_id"])
     none = np.array([i is None for i in ids])
     if none.any():
-        raise InputDataError(f"{role} file '{path}': features {_listing(np.flatnonzero(none).tolist())} have no bs_id; fill it")
+        raise InputDataError(
+            f"{role} file '{path}': features {', '.join(str(i) for i in np.flatnonzero(none)[:_MAX_LISTED])}"
+            f"{_more(int(none.sum()))} (0-based) have no bs_id (null or an empty string); give every base station "
+            "a unique bs_id"
+        )
     labels = np.array([f"bs_id '{i}'" for i in ids], dtype=object)
     dup = pd.Series(ids).duplicated(keep=False).to_numpy()
     if dup.any():
@@ -326,27 +395,18 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
         )
     _check_range(z, labels, path, role, "z_m", "z_m")
     tx = _numeric(gdf, "tx_power_dbm", path, role, labels, required=True, kind="tx_power_dbm")
-    gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=False, default=0.0, kind="max_gain_dbi")
+    gain = _numeric(gdf, "max_gain_dbi", path, role, labels, required=True, kind="max_gain_dbi")
     _check_range(tx, labels, path, role, "tx_power_dbm", "tx_power_dbm")
     _check_range(gain, labels, path, role, "max_gain_dbi", "max_gain_dbi")
-    az = _numeric(gdf, "azimuth_deg", path, role, labels, required=False, default=0.0) % 360.0
-    tilt = _numeric(gdf, "downtilt_deg", path, role, labels, required=False, default=0.0)
+    pat = _patterns(gdf, path, role, labels)
+    sector = pat == "sector"
+    az = _sector_angle(gdf, "azimuth_deg", sector, path, role, labels) % 360.0
+    tilt = _sector_angle(gdf, "downtilt_deg", sector, path, role, labels)
     bad = np.abs(tilt) > 90.0
     if bad.any():
         raise InputDataError(
             f"{role} file '{path}': downtilt_deg must lie in [-90, 90] degrees below horizontal; got "
             f"{tilt[bad][0]:g} for {_listing(labels[bad])}"
-        )
-    if "pattern" in gdf.columns:
-        pat = gdf["pattern"].astype(object).where(gdf["pattern"].notna(), "omni").astype(str).str.strip().str.lower()
-        pat = pat.to_numpy(object)
-    else:
-        pat = np.full(len(gdf), "omni", dtype=object)
-    badp = ~np.isin(pat, ["sector", "omni"])
-    if badp.any():
-        raise InputDataError(
-            f"{role} file '{path}': pattern must be 'sector' or 'omni'; got {pat[badp][0]!r} for "
-            f"{_listing(labels[badp])}"
         )
     out = pd.DataFrame(
         {
@@ -362,6 +422,57 @@ def _base_stations(gdf: gpd.GeoDataFrame, path: Path, role: str = "base_stations
         }
     )
     return out
+
+
+def _patterns(gdf: gpd.GeoDataFrame, path: Path, role: str, labels: np.ndarray) -> np.ndarray:
+    """The required ``pattern`` of each station, 'sector' or 'omni' (case and spaces ignored).
+
+    The README lists it among the base-station properties without a default, and either default would be
+    wrong for many stations (an omni pattern spreads a sector's gain in every direction), so a missing or empty
+    pattern is refused, naming the stations."""
+    if "pattern" not in gdf.columns:
+        raise InputDataError(
+            f"{role} file '{path}' has no property 'pattern' (required: 'sector' or 'omni'); its properties are "
+            f"{_listing([c for c in gdf.columns if c != gdf.geometry.name], 40)}; add 'pattern' to every station"
+        )
+    raw = gdf["pattern"].astype(object)
+    absent = (raw.isna() | (raw.astype(str).str.strip() == "")).to_numpy()
+    if absent.any():
+        raise InputDataError(
+            f"{role} file '{path}': property 'pattern' (required) is empty or null for {_names(labels[absent])}; "
+            "give 'sector' or 'omni'"
+        )
+    pat = raw.map(lambda v: str(v).lower() if isinstance(v, (bool, np.bool_)) else str(v)).str.strip().str.lower()
+    pat = pat.to_numpy(object)
+    badp = ~np.isin(pat, ["sector", "omni"])
+    if badp.any():
+        raise InputDataError(
+            f"{role} file '{path}': pattern must be 'sector' or 'omni'; got {pat[badp][0]!r} for "
+            f"{_listing(labels[badp])}"
+        )
+    return pat
+
+
+def _sector_angle(gdf: gpd.GeoDataFrame, col: str, sector: np.ndarray, path: Path, role: str,
+                  labels: np.ndarray) -> np.ndarray:
+    """``azimuth_deg`` or ``downtilt_deg`` [deg]: required for sector stations (where they aim the beam), not
+    used for omni stations (0 there when not given); words, booleans and ``Infinity`` refused by name."""
+    if col not in gdf.columns:
+        if sector.any():
+            raise InputDataError(
+                f"{role} file '{path}' has no property '{col}', required for the sector stations "
+                f"{_names(labels[sector])} (degrees clockwise from north for azimuth_deg, below the horizontal "
+                f"for downtilt_deg); add '{col}' to them, or give 'pattern': 'omni' where the antenna is omni"
+            )
+        return np.zeros(len(gdf))
+    val = _numeric(gdf, col, path, role, labels, required=False, default=np.nan)
+    absent = np.isnan(val) & sector
+    if absent.any():
+        raise InputDataError(
+            f"{role} file '{path}': property '{col}' is empty or null for the sector stations "
+            f"{_names(labels[absent])}; a sector antenna needs it (degrees): fill it in"
+        )
+    return np.where(np.isnan(val), 0.0, val)
 
 
 def _check_bs_not_indoors(bs: pd.DataFrame, buildings: gpd.GeoDataFrame, path: Path) -> None:

@@ -18,6 +18,7 @@ from ..cache import file_sha256
 from ..errors import InputDataError, SitingWarning
 from .common import _listing
 from .files import check_file, utf8_problem
+from .geojson import GeoJSONFacts, check_geojson
 
 _GEOJSON_SUFFIXES = (".geojson", ".json", ".geojsonl", ".geojsons")
 _PARQUET_SUFFIXES = (".parquet", ".geoparquet")
@@ -44,7 +45,8 @@ def _is_pbf(path: Path) -> bool:
     return path.name.lower().endswith(".pbf")
 
 
-def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonlat=None) -> gpd.GeoDataFrame:
+def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonlat=None,
+               id_keys: tuple[str, ...] = ("id",)) -> gpd.GeoDataFrame:
     """Read one vector layer, turning every failure into an :class:`InputDataError` naming the file.
 
     Parameters
@@ -58,13 +60,22 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
         What the layer is for ("buildings", "base_stations", ...), used in messages and layer choice.
     bbox_lonlat : sequence of 4 floats, optional
         Only used for ``.osm.pbf``: passed to pyrosm as its bounding box.
+    id_keys : tuple of str
+        Properties holding a feature's id, used to name the features of a malformed GeoJSON file.
+
+    A GeoJSON file is first checked feature by feature (:func:`siting.inputs.geojson.check_geojson`): features
+    GDAL would skip or misread are refused by name, and JSON booleans in a column of numbers stay booleans
+    (GDAL reads them as 1 and 0) so that the layer checks refuse them.  Warnings GDAL gives while reading become
+    model notes naming the file.
     """
     path = Path(path)
     check_file(path, f"{role} file")
+    facts: GeoJSONFacts | None = None
     if _is_geojson(path):
         problem = utf8_problem(path, f"{role} file")  # RFC 7946, section 11: GeoJSON is UTF-8
         if problem:
             raise InputDataError(problem)
+        facts = check_geojson(path, role, id_keys)
     if _is_pbf(path):
         if role != "buildings":
             raise InputDataError(
@@ -81,39 +92,7 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
                 "check that it is a GeoParquet file with a geometry column"
             ) from exc
     else:
-        import pyogrio
-
-        try:
-            layers = pyogrio.list_layers(path)
-        except Exception as exc:  # noqa: BLE001
-            raise InputDataError(
-                f"{role} file '{path}' could not be opened ({type(exc).__name__}: {exc}); expected a vector "
-                "file GDAL reads (GeoJSON, GeoPackage, Shapefile, FlatGeobuf) or GeoParquet; check the file "
-                "is complete and in one of these formats"
-            ) from exc
-        names = [str(n) for n in layers[:, 0]] if len(layers) else []
-        if layer is None and len(names) > 1:
-            if role in names:
-                layer = role
-            else:
-                raise InputDataError(
-                    f"{role} file '{path}' has {len(names)} layers ({_listing(names)}); name the one to use "
-                    f"(e.g. buildings_layer = '{names[0]}')"
-                )
-        if layer is not None and layer not in names:
-            raise InputDataError(
-                f"{role} file '{path}' has no layer '{layer}'; its layers are {_listing(names)}"
-            )
-        try:
-            with warnings.catch_warnings():
-                # mixed-type properties (e.g. height 12 and "12 m") come back as strings: that is what we parse
-                warnings.filterwarnings("ignore", message="Could not parse column", category=UserWarning)
-                gdf = pyogrio.read_dataframe(path, layer=layer)
-        except Exception as exc:  # noqa: BLE001
-            raise InputDataError(
-                f"{role} file '{path}' could not be read ({type(exc).__name__}: {exc}); check the file is a "
-                "complete, valid vector file"
-            ) from exc
+        gdf, layer = _read_ogr(path, layer, role)
     if not isinstance(gdf, gpd.GeoDataFrame) or gdf.geometry is None:
         raise InputDataError(f"{role} file '{path}' has no geometry column; give a layer with geometries")
     if len(gdf) == 0:
@@ -122,7 +101,75 @@ def read_layer(path, *, layer: str | None = None, role: str = "layer", bbox_lonl
             f"{role} file '{path}'{where} has no features; check that the right file or layer was named and "
             "that the export did not filter everything out"
         )
-    return _drop_z(gdf.reset_index(drop=True), path, role)
+    gdf = gdf.reset_index(drop=True)
+    if facts is not None:
+        gdf = _keep_booleans(gdf, facts, path, role)
+    return _drop_z(gdf, path, role)
+
+
+def _read_ogr(path: Path, layer: str | None, role: str) -> tuple[gpd.GeoDataFrame, str | None]:
+    """One layer of a file GDAL reads (pyogrio), and the layer's name (None: the only layer)."""
+    import pyogrio
+
+    try:
+        layers = pyogrio.list_layers(path)
+    except Exception as exc:  # noqa: BLE001
+        raise InputDataError(
+            f"{role} file '{path}' could not be opened ({type(exc).__name__}: {exc}); expected a vector "
+            "file GDAL reads (GeoJSON, GeoPackage, Shapefile, FlatGeobuf) or GeoParquet; check the file "
+            "is complete and in one of these formats"
+        ) from exc
+    names = [str(n) for n in layers[:, 0]] if len(layers) else []
+    if layer is None and len(names) > 1:
+        if role in names:
+            layer = role
+        else:
+            raise InputDataError(
+                f"{role} file '{path}' has {len(names)} layers ({_listing(names)}); name the one to use "
+                f"(e.g. buildings_layer = '{names[0]}')"
+            )
+    if layer is not None and layer not in names:
+        raise InputDataError(
+            f"{role} file '{path}' has no layer '{layer}'; its layers are {_listing(names)}"
+        )
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            # mixed-type properties (e.g. height 12 and "12 m") come back as strings: that is what we parse
+            warnings.filterwarnings("ignore", message="Could not parse column", category=UserWarning)
+            gdf = pyogrio.read_dataframe(path, layer=layer)
+    except Exception as exc:  # noqa: BLE001
+        raise InputDataError(
+            f"{role} file '{path}' could not be read ({type(exc).__name__}: {exc}); check the file is a "
+            "complete, valid vector file"
+        ) from exc
+    for w in caught:  # GDAL's own warnings (e.g. a coordinate it could not read): a note naming the file
+        if issubclass(w.category, RuntimeWarning):
+            warnings.warn(f"{role} file '{path.name}': GDAL warned while reading it: {w.message}",
+                          SitingWarning, stacklevel=2)
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return gdf, layer
+
+
+def _keep_booleans(gdf: gpd.GeoDataFrame, facts: GeoJSONFacts, path: Path, role: str) -> gpd.GeoDataFrame:
+    """The layer with the JSON booleans GDAL read as 1 / 0 in a column of numbers put back as booleans."""
+    if len(gdf) != facts.n_features:
+        raise InputDataError(
+            f"{role} file '{path}' holds {facts.n_features} features, but GDAL read {len(gdf)}; check the file "
+            "with 'ogrinfo -al -so' and write it again (e.g. 'ogr2ogr -f GeoJSON out.geojson in.geojson')"
+        )
+    numeric = [c for c in facts.booleans if c in gdf.columns and pd.api.types.is_numeric_dtype(gdf[c])
+               and not pd.api.types.is_bool_dtype(gdf[c])]
+    if not numeric:
+        return gdf
+    gdf = gdf.copy()
+    for col in numeric:
+        values = gdf[col].astype(object)
+        rows = list(facts.booleans[col])
+        values.iloc[rows] = [facts.booleans[col][r] for r in rows]
+        gdf[col] = values
+    return gdf
 
 
 def _drop_z(gdf: gpd.GeoDataFrame, path: Path, role: str) -> gpd.GeoDataFrame:
