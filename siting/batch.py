@@ -86,29 +86,82 @@ def _read_state(path: Path) -> dict:
     try:
         state = json.loads(path.read_text(encoding="utf-8"))
         return state if state.get("format") == "siting-queue" else {"jobs": {}}
-    except (OSError, ValueError):
+    except (OSError, ValueError, AttributeError):
         return {"jobs": {}}
 
 
-def _run_single(path: Path, overrides, *, fresh, workers, scheduler, progress) -> dict:
+def _is_queue_state(path: Path) -> bool:
+    """True when ``path`` is a queue state file siting wrote (a JSON object of format ``siting-queue``)."""
+    try:
+        state = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(state, dict) and state.get("format") == "siting-queue" and isinstance(state.get("jobs"), dict)
+
+
+#: The summary files, in the folder of the queue state file.
+SUMMARY_FILES = {"summary_md": "batch_summary.md", "summary_csv": "batch_summary.csv"}
+
+
+def _looks_like_summary(path: Path) -> bool:
+    """A summary an earlier version wrote (its queue state kept no record of it): siting's header line."""
+    try:
+        with open(path, encoding="utf-8") as fh:
+            head = fh.readline()
+    except (OSError, UnicodeDecodeError):
+        return False
+    return head.rstrip("\n") == ("# Batch summary" if path.suffix == ".md" else ",".join(SUMMARY_COLUMNS))
+
+
+def batch_file_problems(qpath: Path, state: dict | None = None) -> list[str]:
+    """Files of the queue that a run would replace but that no siting batch wrote, as sentences naming the file
+    and the fix: a queue state file that is not siting's, and ``batch_summary.md|csv`` that the queue state does
+    not record (with the SHA-256 of what the batch wrote).  Links are never written through."""
+    problems = []
+    if qpath.is_symlink() or (qpath.exists() and not _is_queue_state(qpath)):
+        problems.append(f"queue file '{qpath}' exists and is not a queue state siting wrote (a link, or not a "
+                        "siting-queue JSON file); move it away or name another queue file with --queue")
+        state = {"jobs": {}}
+    state = _read_state(qpath) if state is None else state
+    record = state.get("summary") if isinstance(state.get("summary"), dict) else None
+    for name in SUMMARY_FILES.values():
+        p = qpath.parent / name
+        if not (p.exists() or p.is_symlink()):
+            continue
+        if p.is_symlink() or not p.is_file():
+            ok = False
+        elif record is not None:
+            known = record.get(name)
+            ok = isinstance(known, list) and file_sha256(p) in known
+        else:  # an earlier version kept no record: its summary beside its own queue state
+            ok = _is_queue_state(qpath) and _looks_like_summary(p)
+        if not ok:
+            problems.append(f"'{p}' was not written by a siting batch (or was edited since), and the batch summary "
+                            f"would replace it; move it away, or name a queue file in another folder with --queue "
+                            "(the summary is written beside it)")
+    return problems
+
+
+def _run_single(path: Path, overrides, *, fresh, workers, scheduler, progress, overwrite=False) -> dict:
     from .job import Job
     from .runner import run
     from .scenarios import _row
 
     t0 = time.perf_counter()
     result = run(Job.from_toml(path, overrides), fresh=fresh, workers=workers, scheduler=scheduler,
-                 progress=progress, job_file=path)
+                 progress=progress, job_file=path, overwrite=overwrite)
     row = _row(result, time.perf_counter() - t0)
     return {"status": "ok", "surfaces": row["surfaces"], "cost": row["cost"], "covered_weight": row["covered_weight"],
             "covered_share": row["covered_share"], "optimality": row["proven"], "time_s": row["time_s"],
             "exit_code": 0, "output": row["folder"], "error": ""}
 
 
-def _run_scenarios(path: Path, overrides, *, fresh, workers, scheduler, progress) -> dict:
+def _run_scenarios(path: Path, overrides, *, fresh, workers, scheduler, progress, overwrite=False) -> dict:
     from .scenarios import run_scenarios
 
     t0 = time.perf_counter()
-    res = run_scenarios(path, overrides, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress)
+    res = run_scenarios(path, overrides, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress,
+                        overwrite=overwrite)
     ok = [r for r in res.runs if r.ok]
     proven = sum(r.row.get("status") == "optimal" for r in ok)
     failed = [f"{r.name}: {r.error.splitlines()[0]}" for r in res.runs if not r.ok]
@@ -140,7 +193,7 @@ def _output_present(row: dict) -> bool:
 
 def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, queue_file: str | Path | None = None,
               fresh: bool = False, workers: int = 0, scheduler: str | None = None, progress: bool = False,
-              log=None, parallel: int = 1) -> BatchResult:
+              log=None, parallel: int = 1, overwrite: bool = False) -> BatchResult:
     """Run a queue of jobs (files or folders of ``*.toml``), resumably; return the summary.
 
     Parameters
@@ -159,6 +212,10 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
         Receives one line per job.
     parallel : int
         Run up to this many jobs at once, each in its own process (1: one after another).
+    overwrite : bool
+        Let each job write into an output folder holding files no siting run created, and the summary replace
+        ``batch_summary.md|csv`` that no siting batch wrote (the CLI's ``--overwrite``).  A queue state file
+        that is not siting's is refused either way.
     """
     from .scenarios import _pooled
 
@@ -167,6 +224,10 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
         raise JobError("no job files given", "siting plan")
     common = Path(os.path.commonpath([str(j.parent) for j in jobs]))
     qpath = Path(queue_file) if queue_file else common / QUEUE_FILE
+    problems = batch_file_problems(qpath)
+    problems = [p for p in problems if p.startswith("queue file")] if overwrite else problems
+    if problems:
+        raise JobError(problems, str(qpath.parent))  # before any job runs
     state = _read_state(qpath)
     state.update(format="siting-queue", format_version=1)
     rows: dict[str, dict] = {}
@@ -181,7 +242,8 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
                 log(f"{path.name}: finished earlier, not rerun")
         else:
             todo.append((path, dg))
-    kw = dict(fresh=fresh, workers=workers, scheduler=scheduler, progress=progress and parallel <= 1)
+    kw = dict(fresh=fresh, workers=workers, scheduler=scheduler, progress=progress and parallel <= 1,
+              overwrite=overwrite)
     results = _pooled(run_job, [((path, overrides, kw), {}) for path, _ in todo], parallel,
                       lambda args, exc: {**{c: None for c in SUMMARY_COLUMNS if c != "job"}, "status": "failed",
                                          "exit_code": 1, "error": f"worker process failed: {exc}"})
@@ -195,7 +257,7 @@ def run_batch(paths: list[str | Path], overrides: list[str] | None = None, *, qu
             log(f"{path.name}: {row['status']}" + (f" ({row['optimality']})" if row.get("optimality") else "")
                 + (f": {row['error']}" if row.get("error") else ""))
     result = BatchResult([rows[str(p)] for p in jobs])
-    result.files = write_summary(qpath.parent, result)
+    result.files = write_summary(qpath.parent, result, state=state, queue_file=qpath, overwrite=overwrite)
     return result
 
 
@@ -222,9 +284,33 @@ def summary_text(result: BatchResult) -> str:
     return "\n".join(lines)
 
 
-def write_summary(folder: Path, result: BatchResult) -> dict[str, Path]:
-    """``batch_summary.md`` and ``batch_summary.csv`` in ``folder`` (atomically)."""
-    files = {"summary_md": folder / "batch_summary.md", "summary_csv": folder / "batch_summary.csv"}
-    atomic.write_text(files["summary_md"], "# Batch summary\n\n" + summary_text(result) + "\n")
-    atomic.write_with(files["summary_csv"], lambda fh: result.table().to_csv(fh, index=False, lineterminator="\n"))
+def write_summary(folder: Path, result: BatchResult, *, state: dict | None = None, queue_file: Path | None = None,
+                  overwrite: bool = False) -> dict[str, Path]:
+    """``batch_summary.md`` and ``batch_summary.csv`` in ``folder`` (atomically).
+
+    With the queue's ``state`` (and its ``queue_file``), the SHA-256 of each summary is recorded there, and a
+    summary file that the record does not list (the user's own, or one edited since) is refused with
+    :class:`JobError` unless ``overwrite``: only files a siting batch wrote are replaced.
+    """
+    files = {k: folder / name for k, name in SUMMARY_FILES.items()}
+    texts = {"summary_md": "# Batch summary\n\n" + summary_text(result) + "\n",
+             "summary_csv": result.table().to_csv(index=False, lineterminator="\n")}
+    if state is None or queue_file is None:
+        atomic.write_text(files["summary_md"], texts["summary_md"])
+        atomic.write_text(files["summary_csv"], texts["summary_csv"])
+        return files
+    problems = [p for p in batch_file_problems(queue_file, state) if not overwrite or p.startswith("queue file")]
+    if problems:
+        raise JobError(problems, str(folder))
+    import hashlib
+
+    new = {SUMMARY_FILES[k]: hashlib.sha256(t.encode("utf-8")).hexdigest() for k, t in texts.items()}
+    old = {SUMMARY_FILES[k]: file_sha256(p) for k, p in files.items() if p.is_file() and not p.is_symlink()}
+    # recorded before the files change, so a kill in between leaves either version recognised as the batch's
+    state["summary"] = {n: sorted({new[n], *([old[n]] if n in old else [])}) for n in new}
+    atomic.write_text(queue_file, json.dumps(state, indent=1, default=str) + "\n")
+    for k, path in files.items():
+        atomic.write_text(path, texts[k])
+    state["summary"] = {n: [new[n]] for n in new}
+    atomic.write_text(queue_file, json.dumps(state, indent=1, default=str) + "\n")
     return files

@@ -199,7 +199,7 @@ def _batch(args) -> int:
 
     result = run_batch(args.job, args.overrides, queue_file=args.queue, fresh=args.fresh, workers=args.workers,
                        scheduler=args.scheduler, progress=bool(args.progress) and not args.quiet, log=_say(args),
-                       parallel=args.parallel)
+                       parallel=args.parallel, overwrite=args.overwrite)
     if not args.quiet:
         print(summary_text(result))
     for row in result.rows:
@@ -213,7 +213,8 @@ def _scenarios(args, path) -> int:
     from .scenarios import run_scenarios
 
     result = run_scenarios(path, args.overrides, fresh=args.fresh, workers=args.workers, scheduler=args.scheduler,
-                           progress=bool(args.progress) and not args.quiet, log=_say(args), parallel=args.parallel)
+                           progress=bool(args.progress) and not args.quiet, log=_say(args), parallel=args.parallel,
+                           overwrite=args.overwrite)
     for r in result.runs:
         if not r.ok:
             print(f"siting: scenario {r.name} failed: {r.error}", file=sys.stderr)

@@ -37,8 +37,6 @@ PLAN_WILL_BE_EMPTY = "the plan will be empty"
 #: What misplaced data usually is.
 MISPLACED_HINT = ("swapped coordinates (GeoJSON is longitude first, then latitude) or a wrong CRS (inputs.crs, or "
                   "the CRS the layer file declares)")
-#: Names a file manager or an OS leaves in any folder; they do not make a folder "someone else's".
-_SYSTEM_FILES = frozenset({".DS_Store", "Thumbs.db", "desktop.ini"})
 
 
 def input_files(job: Job) -> list[tuple[str, Path]]:
@@ -164,25 +162,6 @@ def weight_column_problem(job: Job) -> str | None:
             "or remove the key to weigh every user 1")
 
 
-def _foreign_folder(folder: Path) -> str | None:
-    """A sentence when ``folder`` exists, is not empty and holds no sign of a siting run (its ``run.json``,
-    stage cache, log or an interrupted commit); None otherwise."""
-    from .outputs import atomic
-
-    if not folder.is_dir() or not os.access(folder, os.R_OK | os.X_OK):
-        return None
-    names = sorted(n for n in os.listdir(folder) if n not in _SYSTEM_FILES)
-    if not names:
-        return None
-    ours = {".cache", "siting.log", atomic.JOURNAL, atomic.RECORD}
-    if ours & set(names) or any(n.startswith(atomic.TMP_PREFIX) for n in names):
-        return None
-    shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
-    return (f"output.folder '{folder}' is not empty and no siting run created it (it holds {shown}); choose a new "
-            "or empty folder, e.g. 'out', or allow writing there with --overwrite (siting replaces only the "
-            "files of its output set)")
-
-
 def check_job(job: Job, *, job_file: str | os.PathLike | None = None, write: bool = True,
               overwrite: bool = False) -> None:
     """Refuse a job that cannot run, before any layer is read: one JobError listing every problem.
@@ -194,7 +173,7 @@ def check_job(job: Job, *, job_file: str | os.PathLike | None = None, write: boo
     write : the run writes an output set (False: the output folder is not checked).
     overwrite : allow an output folder that holds files no siting run created (the CLI's ``--overwrite``).
     """
-    from .outputs.folder import output_folder_problems
+    from .outputs.folder import input_problems, output_folder_problems
 
     problems = job_problems(job)
     inputs = input_files(job)
@@ -207,9 +186,8 @@ def check_job(job: Job, *, job_file: str | os.PathLike | None = None, write: boo
         paths = [path for _, path in inputs] + ([Path(job_file)] if job_file is not None else [])
         folder = Path(job.output.folder)
         problems += output_folder_problems(folder, paths, files=output_files(job), overwrite=overwrite)
-        foreign = None if overwrite else _foreign_folder(folder)
-        if foreign and not any("holds files that no siting run created" in p for p in problems):
-            problems.append(foreign)
+        problems += input_problems(folder, {f"inputs.{k}": getattr(job.inputs, k)
+                                            for k in ("survey_results", "previous_plan", "scenarios")})
     if problems:
         raise JobError(problems, str(job_file) if job_file is not None else "job")
 

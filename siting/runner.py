@@ -36,6 +36,7 @@ from __future__ import annotations
 import json
 import logging
 import logging.handlers
+import os
 import sys
 import time
 import warnings
@@ -324,11 +325,52 @@ def coverage_row_counts(gains: GainResult, snr_target_db: float) -> tuple[int, i
     return len(gains.coverage), int((gains.coverage["snr_db"].to_numpy(float) >= snr_target_db).sum())
 
 
+class _LogFile(logging.FileHandler):
+    """``siting.log`` opened for appending without following a symbolic link (``O_NOFOLLOW``): a link named
+    ``siting.log`` fails to open instead of sending the log to a file outside the output folder."""
+
+    def _open(self):
+        flags = os.O_WRONLY | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0)
+        try:
+            fd = os.open(self.baseFilename, flags, 0o666)
+        except OSError as exc:
+            raise JobError(f"output folder: cannot open '{self.baseFilename}' for the log ({exc.strerror}); it "
+                           "must be a regular file siting created, not a link: move it away", "job") from exc
+        return open(fd, "a", encoding=self.encoding)  # noqa: SIM115 - the handler owns and closes it
+
+
 def _log_handler(out_dir: Path) -> logging.Handler:
     out_dir.mkdir(parents=True, exist_ok=True)
-    handler = logging.FileHandler(out_dir / "siting.log", encoding="utf-8")
+    handler = _LogFile(out_dir / "siting.log", encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
     return handler
+
+
+def field_input_paths(job: Job) -> dict[str, str]:
+    """``{"inputs.<key>": path}`` of the inputs read besides the layers (:data:`siting.replan.FIELD_INPUTS`: the
+    survey verdicts, the previous plan, the scenario file) that the job names."""
+    return {f"inputs.{k}": getattr(job.inputs, k) for k in FIELD_INPUTS if getattr(job.inputs, k)}
+
+
+def check_writes(job: Job, *, job_file: str | Path | None = None, overwrite: bool = False) -> None:
+    """:func:`siting.preflight.check_job` plus the checks of what a writing run may touch, as one
+    :class:`JobError`: ``output.folder`` must not be empty, and no input the job reads (the layers, the job file,
+    ``inputs.survey_results``, ``inputs.previous_plan``, ``inputs.scenarios``) may lie in the output folder,
+    where the run writes and replaces files."""
+    from .outputs.folder import input_problems
+
+    problems: list[str] = []
+    if not str(job.output.folder).strip():
+        problems.append("output.folder: empty, which would write the output set into the current folder; give a "
+                        "folder of its own, e.g. output.folder = \"out\" (relative to the job file)")
+    else:
+        problems += input_problems(job.output.folder, field_input_paths(job))
+    try:
+        preflight.check_job(job, job_file=job_file, write=True, overwrite=overwrite)
+    except JobError as exc:
+        raise JobError([*exc.problems, *problems], exc.source) from None
+    if problems:
+        raise JobError(problems, str(job_file) if job_file is not None else "job")
 
 
 def _open_log(buffer: logging.handlers.BufferingHandler | None, out_dir: Path) -> logging.Handler | None:
@@ -383,7 +425,10 @@ def run(job: Job | Mapping[str, Any], *, fresh: bool = False, workers: int = 0, 
         The job file the job came from: the output folder may not hold it either (:func:`siting.preflight.check_job`).
     """
     job = job if isinstance(job, Job) else Job.from_dict(job)
-    preflight.check_job(job, job_file=job_file, write=write, overwrite=overwrite)
+    if write:
+        check_writes(job, job_file=job_file, overwrite=overwrite)
+    else:
+        preflight.check_job(job, job_file=job_file, write=False, overwrite=overwrite)
     out_dir = Path(job.output.folder)
     cache_root = Path(cache_dir) if cache_dir is not None else (out_dir / ".cache" if write else None)
     buffer = logging.handlers.BufferingHandler(1 << 20) if write else None  # siting.log opens after the checks

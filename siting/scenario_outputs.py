@@ -41,10 +41,11 @@ class MemoryStageCache(StageCache):
         self._memory[(name, key)] = (dict(tables), copy.deepcopy(extras or {}))
 
 
-def write_light(result) -> dict[str, Path]:
+def write_light(result, overwrite: bool = False) -> dict[str, Path]:
     """Write ``run.json`` and ``survey.csv`` of a run into its output folder as one committed set.
 
-    Refuses (:class:`~siting.errors.SitingError`) a folder holding files of those names that no siting run made.
+    Refuses (:class:`~siting.errors.SitingError`) a folder holding files of those names that no siting run made
+    (unless ``overwrite``), and one where a link or a file of another kind is in the way.
     """
     from .outputs import atomic, commit_set, derive, survey
     from .outputs import record as record_mod
@@ -66,5 +67,5 @@ def write_light(result) -> dict[str, Path]:
         atomic.write_text(st.path("run.json"), json.dumps(record, indent=1, allow_nan=False, ensure_ascii=False) + "\n")
         return {"survey_csv": "survey.csv", "run_json": "run.json"}
 
-    commit_set(out, names, write)
+    commit_set(out, names, write, overwrite=overwrite)
     return {"survey_csv": out / "survey.csv", "run_json": out / "run.json"}

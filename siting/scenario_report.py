@@ -1,7 +1,9 @@
 """The scenario comparison files: ``scenarios.md``, ``scenarios.html``, ``scenarios.json``, ``robust_survey.csv``.
 
-Written atomically (temporary file, then rename) into the job's output folder by
-:func:`siting.scenarios.run_scenarios`.
+Written into the job's output folder by :func:`siting.scenarios.run_scenarios` as one committed set (staging
+folder, then moved into place together, :class:`siting.outputs.atomic.OutputSet`): a failure leaves the previous
+comparison as it was.  ``scenarios.json`` (moved last) lists the four files in its ``manifest``; only files it
+lists are replaced by a later run without ``--overwrite`` (:func:`comparison_clash`).
 """
 
 from __future__ import annotations
@@ -94,8 +96,37 @@ def comparison_html(result) -> str:
     return "\n".join(parts)
 
 
-def write_comparison(out_dir: Path, result) -> dict[str, Path]:
-    """Write the comparison files into ``out_dir``; return ``{name: path}``."""
+#: The comparison files, ``scenarios.json`` (the record) last.
+COMPARISON_FILES = ("scenarios.md", "scenarios.html", "robust_survey.csv", "scenarios.json")
+
+
+def comparison_clash(out_dir: Path) -> list[str]:
+    """The comparison files present in ``out_dir`` that no siting run wrote there: all of them unless a
+    ``scenarios.json`` record of siting's lists them (records without a manifest, of earlier versions: all four),
+    and any that is a link or not a regular file."""
+    out_dir = Path(out_dir)
+    rec = atomic._read_json(out_dir / "scenarios.json")
+    ours: set[str] = set()
+    if isinstance(rec, dict) and rec.get("format") == "siting-scenarios":
+        man = rec.get("manifest")
+        ours = set(man.get("files", [])) if isinstance(man, dict) else set(COMPARISON_FILES)
+    out = []
+    for name in COMPARISON_FILES:
+        p = out_dir / name
+        if p.is_symlink() or (p.exists() and (not p.is_file() or name not in ours)):
+            out.append(name)
+    return out
+
+
+def write_comparison(out_dir: Path, result, *, overwrite: bool = False) -> dict[str, Path]:
+    """Write the comparison files into ``out_dir`` as one set; return ``{name: path}``.
+
+    Refuses (:class:`~siting.errors.SitingError`) files of those names that no siting run wrote (unless
+    ``overwrite``) and links or folders in their place; a failure while moving the set into place restores the
+    previous comparison.
+    """
+    from .errors import SitingError
+    from .outputs.folder import unsafe_paths
     from .scenarios import robust_survey_frame
 
     out_dir = Path(out_dir)
@@ -106,12 +137,30 @@ def write_comparison(out_dir: Path, result) -> dict[str, Path]:
                              "recomputed": r.recomputed, "job_fingerprint": r.fingerprint,
                              "chosen_sites": [] if r.chosen is None else r.chosen["site_id"].astype(int).tolist()}
                             for r in result.runs],
-              "robustness": json.loads(result.robustness.to_json(orient="records")) if len(result.robustness) else []}
-    files = {"scenarios_md": out_dir / "scenarios.md", "scenarios_html": out_dir / "scenarios.html",
-             "scenarios_json": out_dir / "scenarios.json", "robust_survey_csv": out_dir / "robust_survey.csv"}
-    atomic.write_text(files["scenarios_md"], comparison_md(result))
-    atomic.write_text(files["scenarios_html"], comparison_html(result))
-    atomic.write_text(files["scenarios_json"], json.dumps(record, indent=1, allow_nan=False, ensure_ascii=False,
-                                                          default=str) + "\n")
-    write_survey_csv(files["robust_survey_csv"], robust_survey_frame(result))
-    return files
+              "robustness": json.loads(result.robustness.to_json(orient="records")) if len(result.robustness) else [],
+              "manifest": {"created_by": "siting", "files": list(COMPARISON_FILES),
+                           "note": "the comparison files of this folder; a later run replaces only these"}}
+    keys = {"scenarios.md": "scenarios_md", "scenarios.html": "scenarios_html", "scenarios.json": "scenarios_json",
+            "robust_survey.csv": "robust_survey_csv"}
+    with atomic.folder_lock(out_dir):
+        atomic.recover(out_dir)
+        unsafe = unsafe_paths(out_dir, COMPARISON_FILES)
+        clash = [] if overwrite else comparison_clash(out_dir)
+        if unsafe or clash:
+            raise SitingError(f"output folder '{out_dir}': " + "; ".join(
+                [*unsafe, *([f"holds files that no siting run created there: {', '.join(clash)}"] if clash else [])])
+                + "; move them away or choose another output.folder")
+        try:
+            with atomic.OutputSet(out_dir) as st:
+                atomic.write_text(st.path("scenarios.md"), comparison_md(result))
+                atomic.write_text(st.path("scenarios.html"), comparison_html(result))
+                write_survey_csv(st.path("robust_survey.csv"), robust_survey_frame(result))
+                atomic.write_text(st.path("scenarios.json"), json.dumps(
+                    record, indent=1, allow_nan=False, ensure_ascii=False, default=str) + "\n")
+                st.commit(list(COMPARISON_FILES), previous=[])
+        except atomic.CommitError as exc:
+            raise SitingError(f"output folder '{out_dir}': writing the scenario comparison: {exc}") from exc
+        except OSError as exc:
+            raise SitingError(f"output folder '{out_dir}': writing the scenario comparison failed "
+                              f"({exc.strerror or exc}); the previous comparison is left as it was") from exc
+    return {keys[name]: out_dir / name for name in COMPARISON_FILES}

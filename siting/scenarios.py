@@ -191,6 +191,11 @@ def validate_scenarios(job_path: str | Path, overrides: list[str] | None = None,
     raw, scenarios = read_scenarios(job_path, overrides)
     base_out = base_output_folder(raw, job_path)
     worst = 0
+    try:
+        check_base_folder(raw, scenarios, job_path, base_out)
+    except JobError as exc:
+        say(f"output folder: {exc}")
+        worst = exc.exit_code
     for sc in scenarios:
         try:
             scenario_job(raw, sc, job_path, base_out)
@@ -269,11 +274,12 @@ def _row(result, seconds: float) -> dict:
 
 def run_one(raw: dict, scenario: Scenario, job_path: Path, base_out: Path, *, fresh: bool = False, workers: int = 0,
             scheduler: str | None = None, progress: bool = False, checks: bool | None = None,
-            outputs: str | None = None, cache=None) -> ScenarioRun:
+            outputs: str | None = None, cache=None, overwrite: bool = False) -> ScenarioRun:
     """Run one scenario with the shared stage cache; a failure is returned, not raised.
 
     ``cache`` is the shared :class:`~siting.scenario_outputs.MemoryStageCache` (default: a new one on
-    ``<base_out>/.cache``); ``checks`` and ``outputs`` override the scenario's own settings.
+    ``<base_out>/.cache``); ``checks`` and ``outputs`` override the scenario's own settings; ``overwrite`` lets
+    its output set replace files of the same names that no siting run created (the CLI's ``--overwrite``).
     """
     from .runner import run
     from .scenario_outputs import MemoryStageCache, write_light
@@ -284,9 +290,9 @@ def run_one(raw: dict, scenario: Scenario, job_path: Path, base_out: Path, *, fr
     try:
         job = scenario_job(raw, scenario, job_path, base_out)
         result = run(job, fresh=fresh, workers=workers, scheduler=scheduler, progress=progress, write=not light,
-                     cache=cache, checks=scenario.checks if checks is None else checks)
+                     cache=cache, checks=scenario.checks if checks is None else checks, overwrite=overwrite)
         if light:
-            write_light(result)
+            write_light(result, overwrite=overwrite)
     except SitingError as exc:
         return ScenarioRun(scenario.name, False, exc.exit_code, str(exc), {"status": "failed"})
     except Exception as exc:  # noqa: BLE001 - one failing scenario must not stop the others
@@ -376,9 +382,63 @@ def _pooled(fn, calls: list[tuple[tuple, dict]], parallel: int, on_failure):
                 yield on_failure(args, exc)
 
 
+def check_base_folder(raw: dict, scenarios: list[Scenario], job_path: Path, base_out: Path, *,
+                      overwrite: bool = False) -> None:
+    """Refuse an unsafe output folder for a job's scenarios before any of them runs (one :class:`JobError`).
+
+    The scenarios write into ``output.folder`` (the comparison files, ``scenarios/<name>/``, the stage cache), so
+    it gets the checks of a plain job's folder (:func:`siting.outputs.folder.output_folder_problems`): not empty,
+    not a file, not an input's folder or the job's, not the root or home folder, writable, no link on the way, a
+    non-empty folder only when a siting run created it; and the comparison files of a folder may be replaced only
+    when its ``scenarios.json`` lists them (unless ``overwrite``).  No input of any scenario (layers,
+    ``inputs.survey_results``, ``inputs.previous_plan``, ``inputs.scenarios``) may lie inside it.
+    """
+    from .outputs.atomic import path_problem
+    from .outputs.folder import input_problems, output_folder_problems, unsafe_paths
+    from .preflight import input_files
+    from .runner import field_input_paths
+    from .scenario_report import COMPARISON_FILES, comparison_clash
+
+    problems: list[str] = []
+    out: dict = raw["output"] if isinstance(raw.get("output"), dict) else {}
+    if isinstance(out.get("folder"), str) and not out["folder"].strip():
+        problems.append("output.folder: empty, which would write the scenarios into the job's folder; give a folder "
+                        "of its own, e.g. output.folder = \"out\" (relative to the job file)")
+    inputs: list[Path] = [job_path]
+    named: dict[str, str] = {}
+    extra = (raw.get("inputs") or {}).get("scenarios") if isinstance(raw.get("inputs"), dict) else None
+    if isinstance(extra, str) and extra:
+        named["inputs.scenarios"] = str((job_path.parent / extra).resolve())
+    for sc in scenarios:
+        try:
+            job = scenario_job(raw, sc, job_path, base_out)
+        except JobError:
+            continue  # reported as this scenario's failure
+        inputs += [p for _, p in input_files(job)]
+        for key, path in field_input_paths(job).items():
+            if named.setdefault(key, path) != path:
+                named[f"{key} (scenario {sc.name})"] = path
+    problems += output_folder_problems(base_out, inputs, files=[], overwrite=overwrite)
+    problems += input_problems(base_out, named)
+    if base_out.is_dir():
+        unsafe = [*unsafe_paths(base_out, COMPARISON_FILES),
+                  *[p for p in (path_problem(base_out, f"scenarios/{sc.name}", want="folder") for sc in scenarios)
+                    if p]]
+        problems += [f"output.folder '{base_out}': {p}; move it away or choose another output.folder (--overwrite "
+                     "does not lift this)" for p in dict.fromkeys(unsafe)]
+        clash = [] if overwrite else comparison_clash(base_out)
+        if clash:
+            problems.append(f"output.folder '{base_out}' holds files that no siting run created there and that the "
+                            f"scenario comparison would replace: {', '.join(clash)}; move them away, choose another "
+                            "output.folder, or allow it with --overwrite")
+    if problems:
+        raise JobError(list(dict.fromkeys(problems)), str(job_path))
+
+
 def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, fresh: bool = False, workers: int = 0,
                   scheduler: str | None = None, progress: bool = False, checks: bool | None = None,
-                  write: bool = True, log=None, parallel: int = 1, outputs: str | None = None) -> ScenarioResult:
+                  write: bool = True, log=None, parallel: int = 1, outputs: str | None = None,
+                  overwrite: bool = False) -> ScenarioResult:
     """Run every scenario of a job file (one after another, one shared stage cache) and compare them.
 
     Parameters
@@ -402,16 +462,20 @@ def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, f
         shared cache (1: one after another, sharing the cache in memory too).
     outputs : str, optional
         "light" or "full" output sets for every scenario (default: each scenario's own, "light" unless set).
+    overwrite : bool
+        Write into an output folder holding files that no siting run created (the CLI's ``--overwrite``); the
+        other checks of :func:`check_base_folder` still apply.
     """
     job_path = Path(job_path)
     raw, scenarios = read_scenarios(job_path, overrides)
     if not scenarios:
         raise JobError("no scenarios: add [[scenarios]] tables or inputs.scenarios to the job", str(job_path))
     base_out = base_output_folder(raw, job_path)
+    check_base_folder(raw, scenarios, job_path, base_out, overwrite=overwrite)  # before any scenario runs
     from .scenario_outputs import MemoryStageCache
 
     kw: dict[str, Any] = dict(workers=workers, scheduler=scheduler, progress=progress and parallel <= 1, checks=checks,
-                              outputs=outputs)
+                              outputs=outputs, overwrite=overwrite)
     cache = MemoryStageCache(base_out / ".cache", read=not fresh)
     first = run_one(raw, scenarios[0], job_path, base_out, fresh=fresh, cache=cache, **kw)  # fills the cache
     cache.read = True
@@ -431,7 +495,7 @@ def run_scenarios(job_path: str | Path, overrides: list[str] | None = None, *, f
     if write:
         from .scenario_report import write_comparison
 
-        result.files = write_comparison(base_out, result)
+        result.files = write_comparison(base_out, result, overwrite=overwrite)
     return result
 
 

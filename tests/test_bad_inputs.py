@@ -343,8 +343,9 @@ def test_latin1_file_refused_with_offset(demo, capsys, name):
 
 
 def test_empty_plan_reason_names_the_first_true_cause():
-    """Exact cases of the empty-plan reason: no station seen, no option reaches a user, budget below the cheapest
-    *useful* option (a cheaper useless option does not count), count limit 0."""
+    """Exact cases of the empty-plan reason: no station seen, every user beyond reach of every station, no option
+    reaches a user, budget below the cheapest *useful* option (a cheaper useless option does not count), count
+    limit 0."""
     from types import SimpleNamespace
 
     import geopandas as gpd
@@ -353,8 +354,10 @@ def test_empty_plan_reason_names_the_first_true_cause():
 
     from siting.outputs.emptyplan import empty_plan_reason
 
-    def bundle(coverage, budget=None, max_panels=None, bs_site_max=1):
+    def bundle(coverage, budget=None, max_panels=None, bs_site_max=1, user_x=4900.0):
         return SimpleNamespace(
+            users=pd.DataFrame({"user_id": [0, 1], "x": [user_x, user_x], "y": [5.0, 5.0]}),
+            params={"radio": {"bs_range_m": 300.0, "surface_range_m": 150.0}},
             options=pd.DataFrame({"option_id": [0, 1], "cost": [100.0, 1500.0]}),
             coverage=pd.DataFrame(coverage, columns=["option_id", "user_id", "snr_db"]),
             direct=pd.DataFrame({"user_id": [0, 1], "covered": [True, False]}),
@@ -365,6 +368,9 @@ def test_empty_plan_reason_names_the_first_true_cause():
 
     reason = empty_plan_reason(bundle([], bs_site_max=0), 5.0, "EUR")
     assert "no candidate facade spot sees a base station" in reason and "4,990 m" in reason  # 5000 - 10 m
+    reason = empty_plan_reason(bundle([], user_x=0.0), 5.0, "EUR")  # every user 5,000 m from the station
+    assert "no demand point lies within radio.bs_range_m + radio.surface_range_m (450 m)" in reason
+    assert "5,000 m away" in reason and "swapped coordinates" in reason
     reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 0, 20.0)]), 5.0, "EUR")  # too weak; covered directly
     assert "no option brings any demand point that the direct path leaves uncovered up to the SNR target" in reason
     reason = empty_plan_reason(bundle([(0, 1, 4.9), (1, 1, 5.0)], budget=1000.0), 5.0, "EUR")

@@ -1045,26 +1045,25 @@ def _kill_commit_after(monkeypatch, n_moves: int):
 
 
 @pytest.mark.parametrize("n_moves", [0, 2, 6, 11])
-def test_a_commit_killed_midway_is_finished_by_the_next_run(tmp_path, monkeypatch, n_moves):
+def test_a_commit_killed_midway_is_rolled_back_by_the_next_run(tmp_path, monkeypatch, n_moves):
     """Killed while the new set moves into place: no run.json marks the mixed folder complete, and the next
-    write into the folder first completes the interrupted set, giving exactly the new set."""
+    write into the folder first moves every file back, giving exactly the previous set (never a mix)."""
     old_b, new_b = make_bundle(random_state=3), make_bundle(random_state=4, budget=900.0)
-    ref_new = tmp_path / "ref"
-    write_outputs(ref_new, new_b)
     d = tmp_path / "out"
     write_outputs(d, old_b)
+    (d / "my notes.txt").write_text("the user's own file")
+    before = _snapshot(d)
     killed = _kill_commit_after(monkeypatch, n_moves)
     with pytest.raises(killed):
         write_outputs(d, new_b)
     monkeypatch.undo()
     assert not (d / "run.json").exists() and (d / atomic.JOURNAL).exists()
+    assert sorted(atomic.read_manifest(d)) == sorted(json.loads(before["run.json"])["manifest"]["files"])
     assert atomic.recover(d) is True
-    got, ref = _visible(_snapshot(d)), _visible(_snapshot(ref_new))
-    assert sorted(got) == sorted(ref)
-    for name in ("surfaces.geojson", "demand.geojson", "survey.csv"):
-        assert got[name] == ref[name], name
-    assert json.loads(got["run.json"])["manifest"] == json.loads(ref["run.json"])["manifest"]
+    assert _snapshot(d) == before
     assert atomic.leftover_temp_files(d) == [] and not (d / atomic.JOURNAL).exists()
+    write_outputs(d, new_b)  # and the next run commits its set
+    assert json.loads((d / "run.json").read_text())["manifest"]["complete"] is True
 
 
 def test_a_kill_before_the_commit_leaves_the_previous_set(tmp_path, monkeypatch):

@@ -179,6 +179,10 @@ def commit_set(out: Path, names: list[str], write, *, extra_names=(), overwrite:
         except OSError as exc:
             raise SitingError(f"output folder: expected a writable folder at '{out}', got {exc.strerror}; "
                               "choose another output.folder or fix its permissions") from exc
+        unsafe = folder.unsafe_paths(out, names)
+        if unsafe:
+            raise SitingError(f"output folder '{out}': {'; '.join(unsafe)}; move it away or choose another "
+                              "output.folder (--overwrite does not lift this)")
         clash = [] if overwrite else folder.foreign_files(out, names)
         if clash:
             raise SitingError(f"output folder '{out}' holds files that no siting run created there: "
@@ -188,6 +192,15 @@ def commit_set(out: Path, names: list[str], write, *, extra_names=(), overwrite:
             with atomic.OutputSet(out, allowed) as st:
                 rel = write(st)
                 st.commit(list(rel.values()))
+        except atomic.CommitError as exc:
+            cause = exc.cause
+            why = ""
+            if isinstance(cause, OSError):
+                names = [str(f) for f in (cause.filename, cause.filename2) if f is not None]
+                where = next((f for f in names if atomic.STAGING_PREFIX not in f), names[0] if names else "")
+                why = f" ({cause.strerror or cause}{f': {where}' if where else ''})"
+            raise SitingError(f"output folder '{out}': {exc}{why}; fix the permissions of the folder or of the item "
+                              "named, or move it away, and run again") from exc
         except OSError as exc:
             raise SitingError(f"output folder '{out}': writing the output set failed ({exc.strerror or exc}); the "
                               "previous set is left as it was; free disk space or fix the folder's permissions and "

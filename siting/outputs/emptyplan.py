@@ -5,11 +5,13 @@ The causes are checked in pipeline order, so the sentence names the stage where 
 0. there are no candidate options at all (no facade spot);
 1. no candidate facade spot sees a base station within ``radio.bs_range_m`` (stations far away, or every
    station hidden behind buildings);
-2. no option (a spot with a panel size) brings any demand point that the direct path leaves uncovered up to
+2. no demand point lies within ``radio.bs_range_m + radio.surface_range_m`` of a base station (far users,
+   swapped coordinates, a wrong CRS);
+3. no option (a spot with a panel size) brings any demand point that the direct path leaves uncovered up to
    the SNR target;
-3. the budget is below the cheapest useful option (one that covers such a point);
-4. the panel count limit is 0;
-5. otherwise the optimiser's own message.
+4. the budget is below the cheapest useful option (one that covers such a point);
+5. the panel count limit is 0;
+6. otherwise the optimiser's own message.
 """
 
 from __future__ import annotations
@@ -35,6 +37,17 @@ def _nearest_station_m(b) -> float | None:
     return float(np.min(dist)) if len(dist) else None
 
 
+def _nearest_user_m(b) -> float | None:
+    """Distance [m] from the nearest demand point to the nearest base station (horizontal)."""
+    bs, users = b.base_stations, getattr(b, "users", None)
+    if users is None or not len(bs) or not len(users):
+        return None
+    stations = shapely.points(bs["x"].to_numpy(float), bs["y"].to_numpy(float))
+    pts = shapely.points(users["x"].to_numpy(float), users["y"].to_numpy(float))
+    _, dist = shapely.STRtree(stations).query_nearest(pts, return_distance=True, all_matches=False)
+    return float(np.min(dist)) if len(dist) else None
+
+
 def empty_plan_reason(b, target_db: float, currency: str, message: str = "") -> str:
     """The reason an empty plan is empty (see the module docstring); ``b`` is an
     :class:`~siting.outputs.OutputBundle`, ``currency`` the label printed beside costs."""
@@ -47,6 +60,13 @@ def empty_plan_reason(b, target_db: float, currency: str, message: str = "") -> 
         where = f" (the nearest base station is {far:,.0f} m from the nearest building)" if far else ""
         return (head + "no candidate facade spot sees a base station within radio.bs_range_m" + where + "; check "
                 "the base stations' coordinates and heights, or raise radio.bs_range_m")
+    radio = (getattr(b, "params", None) or {}).get("radio") or {}
+    reach = radio.get("bs_range_m", np.inf) + radio.get("surface_range_m", 0.0)
+    nearest_user = _nearest_user_m(b)
+    if nearest_user is not None and nearest_user > reach:
+        return (head + f"no demand point lies within radio.bs_range_m + radio.surface_range_m ({reach:,.0f} m) of a "
+                f"base station (the nearest is {nearest_user:,.0f} m away); check the coordinates of the demand "
+                "points and the base stations (swapped coordinates, GeoJSON is longitude first, or a wrong CRS)")
     cov, direct = b.coverage, b.direct
     covered = set(direct.loc[direct["covered"].to_numpy(bool), "user_id"].tolist())
     useful = cov[(cov["snr_db"].to_numpy(float) >= target_db) & ~cov["user_id"].isin(covered).to_numpy()]

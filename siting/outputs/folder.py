@@ -2,8 +2,12 @@
 
 :func:`check_output_folder` is meant to run when the job is validated, before any heavy stage: it refuses an
 output folder that would overwrite an input, a home folder or the file-system root, a path that is a file, a
-folder the user cannot write, and a folder holding files of the same names that no siting run created (for
-example the user's own ``report.html``).  :func:`write_outputs` repeats the last check just before it writes.
+folder the user cannot write, a folder where a file of the set (or ``siting.log``, ``.cache``) would be written
+through a symbolic link or over a folder or file of the other kind, a non-empty folder holding no record of a
+siting run (:func:`siting_folder`: a ``siting.log`` or ``.cache`` alone is no proof), and a folder holding files
+of the same names that no siting run created (for example the user's own ``report.html``).
+:func:`write_outputs` repeats the last checks just before it writes.  :func:`input_problems` refuses the other
+inputs a job reads (field verdicts, previous plan, scenario file) inside the output folder.
 """
 
 from __future__ import annotations
@@ -52,7 +56,8 @@ def siting_name(rel: str, extra: Iterable[str] = ()) -> bool:
 
 def foreign_files(folder: str | os.PathLike, files: Iterable[str]) -> list[str]:
     """Of ``files`` (relative paths), those present in ``folder`` that no siting run created there (absent
-    from the previous run's manifest), and those present as something other than a regular file."""
+    from the previous run's manifest), and those present as something other than a regular file; plus a commit
+    journal that siting did not write (:func:`siting.outputs.atomic.read_journal`)."""
     folder = Path(folder)
     if not folder.is_dir():
         return []
@@ -62,7 +67,110 @@ def foreign_files(folder: str | os.PathLike, files: Iterable[str]) -> list[str]:
         p = folder / rel
         if p.is_symlink() or (p.exists() and not p.is_file()) or p.exists() and rel not in ours:
             out.append(rel)
+    if atomic.read_journal(folder)[0] == "foreign":
+        out.append(atomic.JOURNAL)
     return sorted(out)
+
+
+#: What siting writes into an output folder besides the files of the set: (relative path, "file" or "folder").
+RUN_PATHS = (("siting.log", "file"), (".cache", "folder"))
+
+
+def unsafe_paths(folder: str | os.PathLike, files: Iterable[str] = ()) -> list[str]:
+    """Sentences for paths a run would have to write through a symbolic link or over something of another kind:
+    any of ``files``, ``siting.log`` or ``.cache`` that is a link, sits below a link or a file inside ``folder``, or
+    is a folder where a file goes (and the reverse).  ``--overwrite`` never lifts these."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        return []
+    todo = [(rel, "file") for rel in files] + list(RUN_PATHS)
+    return list(dict.fromkeys(p for p in (atomic.path_problem(folder, rel, want=w) for rel, w in todo) if p))
+
+
+def siting_folder(folder: str | os.PathLike) -> bool:
+    """True when ``folder`` holds a record siting writes: a ``run.json`` of an output set, a ``scenarios.json``
+    of a scenario comparison, a commit journal with its staging folder, or a stage-cache entry whose manifest
+    verifies (a run killed before its first commit).  A ``siting.log`` or a ``.cache`` folder alone is no proof:
+    other tools use those names too."""
+    from ..cache import _manifest_digest
+
+    folder = Path(folder)
+    if atomic.read_manifest(folder):
+        return True
+    rec = atomic._read_json(folder / "scenarios.json")
+    if isinstance(rec, dict) and rec.get("format") == "siting-scenarios":
+        return True
+    cache = folder / ".cache"
+    if cache.is_symlink() or not cache.is_dir():
+        return False
+    try:
+        entries = list(cache.iterdir())
+    except OSError:
+        return False
+    return any(_cache_entry(entry, _manifest_digest) for entry in entries)
+
+
+_HEX64 = re.compile(r"[0-9a-f]{64}")
+
+
+def _cache_entry(entry: Path, manifest_digest) -> bool:
+    """True for a stage-cache entry siting wrote: a folder ``<stage>-<first 24 hex digits of its key>`` whose
+    ``manifest.json`` holds that 64-digit key and the SHA-256 of each table (its own digest, when it has one,
+    must verify)."""
+    if entry.is_symlink() or not entry.is_dir():
+        return False
+    man = atomic._read_json(entry / "manifest.json")
+    if not isinstance(man, dict):
+        return False
+    key, files = man.get("key"), man.get("files")
+    if not (isinstance(key, str) and _HEX64.fullmatch(key) and entry.name.endswith("-" + key[:24])
+            and isinstance(files, dict) and all(isinstance(v, str) and _HEX64.fullmatch(v) for v in files.values())):
+        return False
+    return "manifest_sha256" not in man or man["manifest_sha256"] == manifest_digest(man)
+
+
+#: Names a file manager or an OS leaves in any folder; they do not make a folder "someone else's".
+SYSTEM_FILES = frozenset({".DS_Store", "Thumbs.db", "desktop.ini"})
+
+
+def foreign_folder_problem(folder: str | os.PathLike) -> str | None:
+    """A sentence when ``folder`` exists, is not empty and holds no record of a siting run
+    (:func:`siting_folder`); None otherwise."""
+    folder = Path(folder)
+    if not folder.is_dir() or not os.access(folder, os.R_OK | os.X_OK):
+        return None
+    names = sorted(n for n in os.listdir(folder) if n not in SYSTEM_FILES)
+    if not names or siting_folder(folder):
+        return None
+    shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+    return (f"output.folder '{folder}' is not empty and no siting run created it (it holds files that no siting run "
+            f"created there: {shown}; a siting output folder holds its run.json, scenarios.json or stage cache); "
+            "choose a new or empty folder, e.g. 'out', or allow writing there with --overwrite (siting replaces "
+            "only the files of its output set)")
+
+
+def input_problems(folder, named_inputs: dict) -> list[str]:
+    """Sentences for inputs (``{"inputs.survey_results": path, ...}``) that are ``folder`` or lie inside it: a run
+    writes and replaces files there, so it could overwrite what the job reads (e.g. a survey list filled in by
+    the field teams, which the next survey list would replace)."""
+    try:
+        target = _resolved(folder)
+    except (OSError, RuntimeError):
+        return []
+    probs = []
+    for key, path in named_inputs.items():
+        if path is None or str(path) == "":
+            continue
+        try:
+            ip = _resolved(path)
+        except (OSError, RuntimeError):
+            continue
+        if ip == target or target in ip.parents:
+            where = "is output.folder" if ip == target else f"lies inside output.folder '{target}'"
+            probs.append(f"{key} '{path}' {where}, whose files a run writes and replaces, so this run could "
+                         f"overwrite what it reads: copy the file out of the output folder (e.g. beside the job "
+                         f"file) and point {key} at the copy, or choose another output.folder")
+    return probs
 
 
 def _resolved(p) -> Path:
@@ -116,12 +224,23 @@ def output_folder_problems(folder, input_paths: Iterable = (), *, files: Iterabl
     elif not os.access(probe, os.W_OK | os.X_OK):
         what = "is not writable" if probe == target else f"cannot be created: '{probe}' is not writable"
         probs.append(f"{where} {what} by this user; fix its permissions or choose another output.folder")
+    return probs + _content_problems(target, where, planned_files() if files is None else list(files), overwrite)
+
+
+def _content_problems(target: Path, where: str, names: list[str], overwrite: bool) -> list[str]:
+    """What the folder holds that a run must not write through or replace (see :func:`output_folder_problems`)."""
+    probs = [f"{where}: {p}; move it away or choose another output.folder (--overwrite does not lift this)"
+             for p in unsafe_paths(target, names)]
     if target.is_dir() and not overwrite:
-        clash = foreign_files(target, planned_files() if files is None else files)
+        clash = foreign_files(target, names)
         if clash:
             shown = ", ".join(clash[:8]) + (f" and {len(clash) - 8} more" if len(clash) > 8 else "")
             probs.append(f"{where} holds files that no siting run created there and that a run would replace: "
                          f"{shown}; move them away, choose another output.folder, or allow it with --overwrite")
+        else:
+            foreign = foreign_folder_problem(target)
+            if foreign:
+                probs.append(foreign.replace(f"output.folder '{target}'", where, 1))
     return probs
 
 
@@ -132,9 +251,11 @@ def check_output_folder(folder, input_paths: Iterable = (), *, files: Iterable[s
     Refused, each with a message naming the folder and the fix (one :class:`~siting.errors.JobError` listing
     every problem, exit code 2): a folder that is an input, is an input's folder or contains an input at any
     depth; the user's home folder; a file-system root; a path that is an existing file; a folder (or the
-    nearest existing folder above a new one) the user cannot write; and, unless ``overwrite``, a folder
-    holding any of ``files`` (relative paths; default :func:`planned_files` of the default options) that the
-    previous siting run's manifest does not list, or that is not a regular file.
+    nearest existing folder above a new one) the user cannot write; a symbolic link or an item of the wrong
+    kind on the way to any of ``files``, ``siting.log`` or ``.cache`` (:func:`unsafe_paths`, even with
+    ``overwrite``); and, unless ``overwrite``, a folder holding any of ``files`` (relative paths; default
+    :func:`planned_files` of the default options) that the previous siting run's manifest does not list, or that
+    is not a regular file, or a non-empty folder with no record of a siting run (:func:`foreign_folder_problem`).
 
     Parameters
     ----------
