@@ -23,16 +23,6 @@ SMALL = ["--set", "area.bbox=[1.9045, 46.8118, 1.9075, 46.8140]", "--set", "budg
 IS_ROOT = hasattr(os, "geteuid") and os.geteuid() == 0
 
 
-@pytest.fixture
-def demo(tmp_path) -> Path:
-    """A copy of the demo job and its layers; the output folder is ``<tmp>/out`` (not created)."""
-    job = tmp_path / "job"
-    job.mkdir()
-    for name in ("job.toml", "buildings.geojson", "base_stations.geojson"):
-        shutil.copy(DEMO / name, job / name)
-    text = (job / "job.toml").read_text().replace('folder = "out"', f'folder = {json.dumps(str(tmp_path / "out"))}')
-    (job / "job.toml").write_text(text)
-    return job
 
 
 def cli(capsys, *args: str) -> tuple[int, str, str]:

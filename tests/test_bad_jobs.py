@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
 from pathlib import Path
 
 import pytest
@@ -16,32 +15,8 @@ import pytest
 from siting.errors import JobError
 from siting.job import load_job
 
-from .test_bad_inputs import DEMO, SMALL, _users, cli, features, refused, write_fc
-
-GOOD = """
-[inputs]
-buildings = "b.geojson"
-base_stations = "bs.geojson"
-[[surfaces.panels]]
-size_id = "S"
-width_m = 0.5
-height_m = 0.5
-cost = 900.0
-[budget]
-max_cost = 5000.0
-"""
-
-
-@pytest.fixture
-def demo(tmp_path) -> Path:
-    """A copy of the demo job and its layers; the output folder is ``<tmp>/out`` (not created)."""
-    job = tmp_path / "job"
-    job.mkdir()
-    for name in ("job.toml", "buildings.geojson", "base_stations.geojson"):
-        shutil.copy(DEMO / name, job / name)
-    text = (job / "job.toml").read_text().replace('folder = "out"', f'folder = {json.dumps(str(tmp_path / "out"))}')
-    (job / "job.toml").write_text(text)
-    return job
+from .test_bad_inputs import SMALL, _users, cli, features, refused, write_fc
+from .test_job import GOOD
 
 
 def _no_gains(monkeypatch) -> None:

@@ -159,13 +159,8 @@ def input_problems(folder, named_inputs: dict) -> list[str]:
         return []
     probs = []
     for key, path in named_inputs.items():
-        if path is None or str(path) == "":
-            continue
-        try:
-            ip = _resolved(path)
-        except (OSError, RuntimeError):
-            continue
-        if ip == target or target in ip.parents:
+        ip = _within(path, target)
+        if ip is not None:
             where = "is output.folder" if ip == target else f"lies inside output.folder '{target}'"
             probs.append(f"{key} '{path}' {where}, whose files a run writes and replaces, so this run could "
                          f"overwrite what it reads: copy the file out of the output folder (e.g. beside the job "
@@ -175,6 +170,18 @@ def input_problems(folder, named_inputs: dict) -> list[str]:
 
 def _resolved(p) -> Path:
     return Path(os.path.expanduser(str(p))).resolve()
+
+
+def _within(path, target: Path) -> Path | None:
+    """``path`` resolved when it is ``target`` or lies inside it; None otherwise (also for no path, or one that
+    cannot be resolved)."""
+    if path is None or str(path) == "":
+        return None
+    try:
+        ip = _resolved(path)
+    except (OSError, RuntimeError):
+        return None
+    return ip if ip == target or target in ip.parents else None
 
 
 def output_folder_problems(folder, input_paths: Iterable = (), *, files: Iterable[str] | None = None,
@@ -200,13 +207,8 @@ def output_folder_problems(folder, input_paths: Iterable = (), *, files: Iterabl
         probs.append(f"{where} is your home folder; a run would replace files such as report.html there: "
                      "set output.folder to a folder of its own, e.g. '~/siting-out'")
     for inp in input_paths or ():
-        if inp is None or str(inp) == "":
-            continue
-        try:
-            ip = _resolved(inp)
-        except (OSError, RuntimeError):
-            continue
-        if ip == target or target in ip.parents:
+        ip = _within(inp, target)
+        if ip is not None:
             kind = "is the input" if ip == target else (
                 "is the folder of the input" if ip.parent == target else "contains the input")
             probs.append(f"{where} {kind} '{inp}'; a run could overwrite its inputs: set output.folder to a "
