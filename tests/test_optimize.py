@@ -214,10 +214,10 @@ def test_units_do_not_change_the_optimum(seed, w_unit, c_unit):
     assert q.cost == pytest.approx(cost[ok & (cost <= budget) & (val >= best * (1 - 1e-9))].min(), rel=1e-9)
 
 
-def test_min_cost_target_a_hair_below_the_best_weight():
-    # Reference: brute force.  Found by fuzzing: with the target row 1e-9 below the best reachable weight,
-    # HiGHS 1.x presolve calls this model infeasible (optimal at cost 12 without presolve); an 'infeasible'
-    # verdict is checked by a run without presolve before it is believed.
+def _presolve_instance():
+    """Found by a brute-force fuzz: 9 options, 20 users, at most 4 panels, sites 2 and 5 in conflict.  With a
+    cost-minimising model whose weight row sits 1e-9 below the best weight (61.226), HiGHS 1.16 presolve calls it
+    infeasible, and with a start hands the start (cost 13) back as optimal; the cheapest such plan costs 12."""
     D = np.array([
         [0, 0, 0, 0, 0, 0, 1, 0, 0, 0, 0, 1, 1, 0, 0, 0, 0, 1, 0, 1],
         [1, 0, 0, 1, 0, 1, 0, 1, 1, 1, 0, 1, 1, 1, 0, 0, 0, 0, 1, 1],
@@ -232,14 +232,28 @@ def test_min_cost_target_a_hair_below_the_best_weight():
                   0.685, 4.249, 1.783, 4.615, 4.381, 3.847])
     c = np.array([2.0, 5.0, 9.0, 0.0, 8.0, 0.0, 3.0, 0.0, 4.0])
     site = np.array([0, 1, 1, 2, 2, 3, 4, 5, 7])
-    conflicts = np.array([[2, 5]])
-    C = sp.csr_array(D)
-    val, cost, ok = brute_force(C, w, c, site, max_count=4, conflicts=conflicts)
-    best = val[ok].max()
-    target = best * (1 - 1e-9)
-    q = opt.min_cost_cover(C, w, c, site, target, max_count=4, conflicts=conflicts)
+    return sp.csr_array(D), w, c, site, dict(max_count=4, conflicts=np.array([[2, 5]]))
+
+
+def test_min_cost_target_a_hair_below_the_best_weight():
+    # Reference: brute force.  An 'infeasible' verdict is checked by a run without presolve before it is believed.
+    C, w, c, site, kw = _presolve_instance()
+    val, cost, ok = brute_force(C, w, c, site, **kw)
+    target = val[ok].max() * (1 - 1e-9)
+    q = opt.min_cost_cover(C, w, c, site, target, **kw)
     assert q.objective >= target
     assert q.cost == pytest.approx(cost[ok & (val >= target)].min())
+
+
+def test_tie_break_finds_the_cheapest_plan_of_the_best_weight():
+    # Reference: brute force.  The second solve's weight row sits half a weight step (0.0005) below the best
+    # weight, clear of the solver's tolerances, so presolve does not hand back the first plan (cost 13).
+    C, w, c, site, kw = _presolve_instance()
+    val, cost, ok = brute_force(C, w, c, site, **kw)
+    best = val[ok].max()
+    p = opt.solve_coverage(C, w, c, site, **kw)
+    assert p.objective == pytest.approx(best) and p.tie_break == "proven"
+    assert p.cost == pytest.approx(cost[ok & (val >= best - 1e-9)].min())
 
 
 @pytest.mark.parametrize("share", [1e-7, 1e-8, 1e-12])

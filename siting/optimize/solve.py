@@ -187,10 +187,17 @@ def _tie_break_solve(asm: Assembly, plan: Plan, milp: _Milp, bound_raw: float, s
     if asm.mode == "max" and lp is not None and _cheapest_by_lp_duals(red, milp, lp, chosen_red, plan.cost, tol_c):
         return _with_tie_break(plan, "proven", "Ties broken by LP duality: the first solve's LP relaxation proves "
                                                "that no plan covering at least as much weight is cheaper.")
+    # The second model's new row sits half a grid step away from the plan's value when the values lie on a
+    # decimal grid (weights 1, 0.5, 0.125; costs in cents): no plan lies between, and the row stays clear of the
+    # solvers' tolerances (HiGHS 1.16 presolve handed back the start as optimal with the row 1e-9 below the
+    # plan's weight, although a cheaper plan of that weight exists; it found it with the row 5e-4 below).  Under
+    # a load cap the served weight need not lie on the grid of the weights, so the weight row keeps tol_w.
     if asm.mode == "max":
-        m2 = _build(red, inst.budget, inst.max_count, mode="min", target=plan.objective - tol_w)
+        margin = max(tol_w, 0.5 * _decimal_step(red.w) if red.cap is None else 0.0)
+        m2 = _build(red, inst.budget, inst.max_count, mode="min", target=plan.objective - margin)
     else:
-        budget = plan.cost + tol_c if inst.budget is None else min(inst.budget, plan.cost + tol_c)
+        margin = max(tol_c, 0.5 * _decimal_step(red.c))
+        budget = plan.cost + margin if inst.budget is None else min(inst.budget, plan.cost + margin)
         m2 = _build(red, budget, inst.max_count, mode="max", target=_model_target(inst, "min", asm.target))
     start = _start_vector(red, m2, chosen_red)
     if red.cap is None and not _satisfies(m2, start[1]):  # (with a load cap the start is partial)
@@ -226,6 +233,16 @@ def _tie_break_solve(asm: Assembly, plan: Plan, milp: _Milp, bound_raw: float, s
         better.timings_s = plan.timings_s
         return _with_tie_break(better, state, text)
     return _with_tie_break(plan, state, " ".join((*res.notes, text)))
+
+
+def _decimal_step(values: np.ndarray) -> float:
+    """The coarsest step 10^-k (k = 0..6) of which every value is a whole multiple (within 1e-9), else 0."""
+    v = np.abs(values[values != 0])
+    for k in range(7):
+        q = v * 10.0**k
+        if np.all(np.abs(q - np.round(q)) <= 1e-9 * np.maximum(1.0, q)):
+            return 10.0**-k
+    return 0.0
 
 
 def _cheapest_by_lp_duals(red: _Reduced, milp: _Milp, lp, chosen_red, plan_cost: float, tol_c: float) -> bool:
