@@ -189,7 +189,8 @@ def check_job(job: Job, *, job_file: str | os.PathLike | None = None, write: boo
         problems += input_problems(folder, {f"inputs.{k}": getattr(job.inputs, k)
                                             for k in ("survey_results", "previous_plan", "scenarios")})
     if problems:
-        raise JobError(problems, str(job_file) if job_file is not None else "job")
+        # one sentence once (the output-folder rules and the input rules can name the same file)
+        raise JobError(list(dict.fromkeys(problems)), str(job_file) if job_file is not None else "job")
 
 
 def check_district(job: Job, district) -> None:
@@ -263,7 +264,7 @@ def check_demand(job: Job, users: pd.DataFrame) -> None:
         return
     what = "no demand point" if not len(users) else f"{len(users)} demand point(s) of total weight 0"
     indoor = (" (given users inside buildings are dropped: set demand.allow_indoor = true to keep them as indoor "
-              "demand)" if job.inputs.users is not None and not job.demand.allow_indoor else "")
+              "demand)" if job.inputs.users is not None and not job.demand.allow_indoor and not len(users) else "")
     raise JobError(f"demand: the job gives {what} (demand.street_grid = {str(job.demand.street_grid).lower()}, "
                    f"demand.homes = {str(job.demand.homes).lower()}, inputs.users = "
                    f"'{job.inputs.users or ''}'){indoor}; widen the area (area.bbox / area.polygon), set "

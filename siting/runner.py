@@ -368,7 +368,7 @@ def check_writes(job: Job, *, job_file: str | Path | None = None, overwrite: boo
     try:
         preflight.check_job(job, job_file=job_file, write=True, overwrite=overwrite)
     except JobError as exc:
-        raise JobError([*exc.problems, *problems], exc.source) from None
+        raise JobError(list(dict.fromkeys([*exc.problems, *problems])), exc.source) from None
     if problems:
         raise JobError(problems, str(job_file) if job_file is not None else "job")
 
