@@ -182,15 +182,24 @@ def check_job(job: Job, *, job_file: str | os.PathLike | None = None, write: boo
     problems += field_file_problems(job)
     if not file_problems.get("users file"):
         problems += [p for p in [weight_column_problem(job)] if p]
-    if write:
+    if write and not str(job.output.folder).strip():
+        problems.append("output.folder: empty, which would write the output set into the current folder; give a "
+                        "folder of its own, e.g. output.folder = \"out\" (relative to the job file)")
+    elif write:
         paths = [path for _, path in inputs] + ([Path(job_file)] if job_file is not None else [])
         folder = Path(job.output.folder)
         problems += output_folder_problems(folder, paths, files=output_files(job), overwrite=overwrite)
-        problems += input_problems(folder, {f"inputs.{k}": getattr(job.inputs, k)
-                                            for k in ("survey_results", "previous_plan", "scenarios")})
+        problems += input_problems(folder, field_input_paths(job))
     if problems:
-        # one sentence once (the output-folder rules and the input rules can name the same file)
-        raise JobError(list(dict.fromkeys(problems)), str(job_file) if job_file is not None else "job")
+        raise JobError(problems, str(job_file) if job_file is not None else "job")
+
+
+def field_input_paths(job: Job) -> dict[str, str]:
+    """``{"inputs.<key>": path}`` of the inputs read besides the layers (:data:`siting.replan.FIELD_INPUTS`: the
+    survey verdicts, the previous plan, the scenario file) that the job names."""
+    from .replan import FIELD_INPUTS
+
+    return {f"inputs.{k}": getattr(job.inputs, k) for k in FIELD_INPUTS if getattr(job.inputs, k)}
 
 
 def check_district(job: Job, district) -> None:

@@ -346,31 +346,11 @@ def _log_handler(out_dir: Path) -> logging.Handler:
     return handler
 
 
-def field_input_paths(job: Job) -> dict[str, str]:
-    """``{"inputs.<key>": path}`` of the inputs read besides the layers (:data:`siting.replan.FIELD_INPUTS`: the
-    survey verdicts, the previous plan, the scenario file) that the job names."""
-    return {f"inputs.{k}": getattr(job.inputs, k) for k in FIELD_INPUTS if getattr(job.inputs, k)}
-
-
 def check_writes(job: Job, *, job_file: str | Path | None = None, overwrite: bool = False) -> None:
-    """:func:`siting.preflight.check_job` plus the checks of what a writing run may touch, as one
-    :class:`JobError`: ``output.folder`` must not be empty, and no input the job reads (the layers, the job file,
-    ``inputs.survey_results``, ``inputs.previous_plan``, ``inputs.scenarios``) may lie in the output folder,
-    where the run writes and replaces files."""
-    from .outputs.folder import input_problems
-
-    problems: list[str] = []
-    if not str(job.output.folder).strip():
-        problems.append("output.folder: empty, which would write the output set into the current folder; give a "
-                        "folder of its own, e.g. output.folder = \"out\" (relative to the job file)")
-    else:
-        problems += input_problems(job.output.folder, field_input_paths(job))
-    try:
-        preflight.check_job(job, job_file=job_file, write=True, overwrite=overwrite)
-    except JobError as exc:
-        raise JobError(list(dict.fromkeys([*exc.problems, *problems])), exc.source) from None
-    if problems:
-        raise JobError(problems, str(job_file) if job_file is not None else "job")
+    """The checks of a writing run (:func:`siting.preflight.check_job` with ``write=True``): besides the job and its
+    files, ``output.folder`` must be given and safe, and no input the job reads (the layers, the job file,
+    ``inputs.survey_results``, ``inputs.previous_plan``, ``inputs.scenarios``) may lie in it."""
+    preflight.check_job(job, job_file=job_file, write=True, overwrite=overwrite)
 
 
 def _open_log(buffer: logging.handlers.BufferingHandler | None, out_dir: Path) -> logging.Handler | None:

@@ -395,8 +395,7 @@ def check_base_folder(raw: dict, scenarios: list[Scenario], job_path: Path, base
     """
     from .outputs.atomic import path_problem
     from .outputs.folder import input_problems, output_folder_problems, unsafe_paths
-    from .preflight import input_files
-    from .runner import field_input_paths
+    from .preflight import field_input_paths, input_files
     from .scenario_report import COMPARISON_FILES, comparison_clash
 
     problems: list[str] = []
