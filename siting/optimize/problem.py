@@ -118,12 +118,10 @@ def _finite_total(name, arr):
         )
 
 
-def _is_scalar(x: object) -> bool:
-    """``x`` is one real number: a Python or numpy bool, integer or float (not text, a complex number or an array).
-
-    A plain bool, not ``numpy.isscalar``'s TypeGuard (that would narrow a number to numpy's scalar union).
-    """
-    return bool(np.isscalar(x)) and np.asarray(x).dtype.kind in _REAL_KINDS
+def _is_scalar(x) -> bool:
+    """``x`` is one real number: a Python or numpy bool, integer or float, also as a 0-d array (not text, a complex
+    number, a list or a longer array)."""
+    return np.ndim(x) == 0 and np.asarray(x).dtype.kind in _REAL_KINDS
 
 
 def _finite_number(name: str, value, expected: str, fix: str, low: float = -_INF, integer: bool = False) -> float:

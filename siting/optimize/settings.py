@@ -7,13 +7,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SitingError
+from .problem import _is_scalar
 
 SOLVER_NAMES = ("highs", "cbc")
-
-
-def _is_number(x) -> bool:
-    """One real number: a bool, integer or float, also as a 0-d array (not text, a complex number or a list)."""
-    return np.ndim(x) == 0 and np.asarray(x).dtype.kind in "biuf"
 
 
 @dataclass(frozen=True)
@@ -41,9 +37,9 @@ class SolverSettings:
         if self.name not in SOLVER_NAMES:
             raise SitingError(f"optimiser argument 'solver': expected 'highs' or 'cbc', got {self.name!r}")
         t = self.time_limit_s
-        if not (_is_number(t) and np.isfinite(t) and t > 0):
+        if not (_is_scalar(t) and np.isfinite(t) and t > 0):
             raise SitingError(f"optimiser argument 'time_limit_s': expected a positive number, got {t!r}")
-        if not (_is_number(self.mip_gap) and np.isfinite(self.mip_gap) and self.mip_gap >= 0):
+        if not (_is_scalar(self.mip_gap) and np.isfinite(self.mip_gap) and self.mip_gap >= 0):
             raise SitingError(f"optimiser argument 'mip_rel_gap': expected a finite number >= 0, got {self.mip_gap!r}")
         n = self.threads
         if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
